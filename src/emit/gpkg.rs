@@ -1,0 +1,185 @@
+//! `control-points.gpkg` and landmark files through GDAL's vector drivers.
+//!
+//! GeoPackage writes run inside one transaction (orders of magnitude faster than one per
+//! feature); drivers without transactions (GeoJSON, FlatGeobuf) write directly. The dataset is
+//! closed explicitly so that an error while finishing (spatial index, flush) is reported.
+
+use super::EmitError;
+use crate::ingest::LandmarkSet;
+use crate::pipeline::MatchResult;
+use gdal::spatial_ref::{AxisMappingStrategy, SpatialRef};
+use gdal::vector::{Feature, FieldDefn, Geometry, LayerAccess, LayerOptions, OGRFieldType, OGRwkbGeometryType};
+use gdal::{Dataset, DriverManager};
+use std::path::Path;
+
+fn gdal_err(path: &Path) -> impl Fn(gdal::errors::GdalError) -> EmitError + '_ {
+    move |e| EmitError::Gdal {
+        path: path.to_path_buf(),
+        detail: e.to_string(),
+    }
+}
+
+fn srs_from_wkt(wkt: &str, path: &Path) -> Result<SpatialRef, EmitError> {
+    let mut srs = SpatialRef::from_wkt(wkt).map_err(gdal_err(path))?;
+    srs.set_axis_mapping_strategy(AxisMappingStrategy::TraditionalGisOrder);
+    Ok(srs)
+}
+
+fn add_fields<L: LayerAccess>(layer: &L, fields: &[(&str, OGRFieldType::Type)], path: &Path) -> Result<(), EmitError> {
+    for (name, ty) in fields {
+        FieldDefn::new(name, *ty)
+            .and_then(|d| d.add_to_layer(layer))
+            .map_err(gdal_err(path))?;
+    }
+    Ok(())
+}
+
+fn point(p: [f64; 2]) -> gdal::errors::Result<Geometry> {
+    let mut g = Geometry::empty(OGRwkbGeometryType::wkbPoint)?;
+    g.add_point_2d((p[0], p[1]));
+    Ok(g)
+}
+
+fn line(a: [f64; 2], b: [f64; 2]) -> gdal::errors::Result<Geometry> {
+    let mut g = Geometry::empty(OGRwkbGeometryType::wkbLineString)?;
+    g.add_point_2d((a[0], a[1]));
+    g.add_point_2d((b[0], b[1]));
+    Ok(g)
+}
+
+/// Writes `control-points.gpkg` (see the module doc of [`crate::emit`]).
+pub fn write_control_points(result: &MatchResult, path: &Path) -> Result<(), EmitError> {
+    let e = gdal_err(path);
+    let srs = srs_from_wkt(&result.frame.reference_crs.wkt, path)?;
+    let s = &result.solution;
+    let t = s.fit.transform;
+    let mpu = result.frame.metres_per_unit();
+    // Where the target puts each control point, in the reference CRS.
+    let starts_working: Vec<[f64; 2]> = s
+        .pairs
+        .iter()
+        .map(|p| {
+            let w = result.frame.target[p.target as usize];
+            if result.frame.target_crs.is_some() {
+                w
+            } else {
+                t.apply(w)
+            }
+        })
+        .collect();
+    let starts = result
+        .frame
+        .to_reference_crs(&starts_working)
+        .map_err(|err| EmitError::Frame(err.to_string()))?;
+    let driver = DriverManager::get_driver_by_name("GPKG").map_err(&e)?;
+    let mut ds = driver.create_vector_only(path).map_err(&e)?;
+    {
+        let mut txn = ds.start_transaction().map_err(&e)?;
+        {
+            let layer = txn
+                .create_layer(LayerOptions {
+                    name: "control_points",
+                    srs: Some(&srs),
+                    ty: OGRwkbGeometryType::wkbPoint,
+                    options: None,
+                })
+                .map_err(&e)?;
+            add_fields(
+                &layer,
+                &[
+                    ("reference_id", OGRFieldType::OFTString),
+                    ("target_id", OGRFieldType::OFTString),
+                    ("residual_m", OGRFieldType::OFTReal),
+                ],
+                path,
+            )?;
+            for p in &s.pairs {
+                let mut f = Feature::new(layer.defn()).map_err(&e)?;
+                f.set_field_string(0, &result.reference.ids[p.reference as usize]).map_err(&e)?;
+                f.set_field_string(1, &result.target.ids[p.target as usize]).map_err(&e)?;
+                f.set_field_double(2, p.residual * mpu).map_err(&e)?;
+                f.set_geometry(point(result.reference.points[p.reference as usize]).map_err(&e)?)
+                    .map_err(&e)?;
+                f.create(&layer).map_err(&e)?;
+            }
+        }
+        {
+            let layer = txn
+                .create_layer(LayerOptions {
+                    name: "displacements",
+                    srs: Some(&srs),
+                    ty: OGRwkbGeometryType::wkbLineString,
+                    options: None,
+                })
+                .map_err(&e)?;
+            add_fields(
+                &layer,
+                &[
+                    ("reference_id", OGRFieldType::OFTString),
+                    ("target_id", OGRFieldType::OFTString),
+                    ("length_m", OGRFieldType::OFTReal),
+                ],
+                path,
+            )?;
+            for ((p, start), start_w) in s.pairs.iter().zip(&starts).zip(&starts_working) {
+                let end_w = result.frame.reference[p.reference as usize];
+                let len = crate::spatial::dist2(*start_w, end_w).sqrt() * mpu;
+                let mut f = Feature::new(layer.defn()).map_err(&e)?;
+                f.set_field_string(0, &result.reference.ids[p.reference as usize]).map_err(&e)?;
+                f.set_field_string(1, &result.target.ids[p.target as usize]).map_err(&e)?;
+                f.set_field_double(2, len).map_err(&e)?;
+                f.set_geometry(line(*start, result.reference.points[p.reference as usize]).map_err(&e)?)
+                    .map_err(&e)?;
+                f.create(&layer).map_err(&e)?;
+            }
+        }
+        txn.commit().map_err(&e)?;
+    }
+    ds.close().map_err(&e)?;
+    Ok(())
+}
+
+/// Writes a landmark set as points (field `id`) in its own CRS.
+pub fn write_landmarks(set: &LandmarkSet, path: &Path, ext: &str) -> Result<(), EmitError> {
+    let e = gdal_err(path);
+    let driver_name = match ext {
+        "gpkg" => "GPKG",
+        "fgb" => "FlatGeobuf",
+        _ => "GeoJSON",
+    };
+    let srs = match &set.crs_wkt {
+        Some(w) => Some(srs_from_wkt(w, path)?),
+        None => None,
+    };
+    let driver = DriverManager::get_driver_by_name(driver_name).map_err(&e)?;
+    let mut ds: Dataset = driver.create_vector_only(path).map_err(&e)?;
+    if driver_name == "GPKG" {
+        let mut txn = ds.start_transaction().map_err(&e)?;
+        fill_landmarks(&mut txn, set, srs.as_ref(), path)?;
+        txn.commit().map_err(&e)?;
+    } else {
+        fill_landmarks(&mut ds, set, srs.as_ref(), path)?;
+    }
+    ds.close().map_err(&e)?;
+    Ok(())
+}
+
+fn fill_landmarks(ds: &mut Dataset, set: &LandmarkSet, srs: Option<&SpatialRef>, path: &Path) -> Result<(), EmitError> {
+    let e = gdal_err(path);
+    let layer = ds
+        .create_layer(LayerOptions {
+            name: "landmarks",
+            srs,
+            ty: OGRwkbGeometryType::wkbPoint,
+            options: None,
+        })
+        .map_err(&e)?;
+    add_fields(&layer, &[("id", OGRFieldType::OFTString)], path)?;
+    for (id, p) in set.ids.iter().zip(&set.points) {
+        let mut f = Feature::new(layer.defn()).map_err(&e)?;
+        f.set_field_string(0, id).map_err(&e)?;
+        f.set_geometry(point(*p).map_err(&e)?).map_err(&e)?;
+        f.create(&layer).map_err(&e)?;
+    }
+    Ok(())
+}

@@ -1,0 +1,92 @@
+//! `transform.json`: the fitted similarity and everything needed to reproduce or judge it.
+//!
+//! Fields: `scale`, `rotation_deg`, `translation_x`, `translation_y` map target working
+//! coordinates to reference working coordinates as x' = s(cos t·x − sin t·y) + tx,
+//! y' = s(sin t·x + cos t·y) + ty, t counter-clockwise; `standard_errors` of each; `rmse_m`;
+//! `sigma_m` (per-coordinate σ̂); `inliers`; `working_crs` (authority code, name, WKT and why it
+//! was chosen); `reference_crs`, `target_crs` ("local" for a local grid); `thresholds`;
+//! `significance`; `seed`; `version`. Translation standard errors are at the working frame's
+//! origin; `centroid` gives the target centroid of the control points, where the position
+//! error is smallest (σ̂/√n per coordinate).
+
+use super::{io_err, EmitError};
+use crate::pipeline::MatchResult;
+use serde_json::json;
+use std::path::Path;
+
+/// Builds the JSON document.
+pub fn transform_document(result: &MatchResult) -> serde_json::Value {
+    let s = &result.solution;
+    let f = &s.fit;
+    let t = f.transform;
+    let mpu = result.frame.metres_per_unit();
+    let cfg = &result.config;
+    let n = s.pairs.len() as f64;
+    let centroid = s.pairs.iter().fold([0.0, 0.0], |a, p| {
+        let q = result.frame.target[p.target as usize];
+        [a[0] + q[0] / n, a[1] + q[1] / n]
+    });
+    let crs_doc = |c: &crate::landmarks::crs::Crs| {
+        json!({"authority": c.authority, "name": c.name, "wkt": c.wkt})
+    };
+    json!({
+        "tool": "tiemark",
+        "version": env!("CARGO_PKG_VERSION"),
+        "maps": "target working coordinates to reference working coordinates",
+        "formula": "x' = scale*(cos(t)*x - sin(t)*y) + translation_x; y' = scale*(sin(t)*x + cos(t)*y) + translation_y; t = rotation, counter-clockwise",
+        "scale": t.scale(),
+        "rotation_deg": t.rotation().to_degrees(),
+        "translation_x": t.tx,
+        "translation_y": t.ty,
+        "standard_errors": {
+            "scale": f.se_scale,
+            "rotation_deg": f.se_rotation.to_degrees(),
+            "translation_x": f.se_tx,
+            "translation_y": f.se_ty,
+        },
+        "centroid": {"target_x": centroid[0], "target_y": centroid[1], "position_se_m": f.sigma * mpu / n.sqrt()},
+        "rmse_m": f.rmse * mpu,
+        "sigma_m": f.sigma * mpu,
+        "inliers": s.pairs.len(),
+        "working_crs": {
+            "authority": result.frame.crs.authority,
+            "name": result.frame.crs.name,
+            "wkt": result.frame.crs.wkt,
+            "metres_per_unit": mpu,
+            "chosen_because": result.frame.chosen_because,
+        },
+        "reference_crs": crs_doc(&result.frame.reference_crs),
+        "target_crs": match &result.frame.target_crs {
+            Some(c) => crs_doc(c),
+            None => json!("local"),
+        },
+        "inputs": {
+            "reference": {"path": result.reference.source, "layer": result.reference.layer, "landmarks": result.reference.points.len()},
+            "target": {"path": result.target.source, "layer": result.target.layer, "landmarks": result.target.points.len()},
+        },
+        "thresholds": {
+            "tolerance_m": s.tolerance * mpu,
+            "tolerance_default": cfg.fit.tolerance_m.is_none(),
+            "reference_spacing_m": result.reference_spacing * mpu,
+            "confidence": cfg.fit.confidence,
+            "max_rounds": cfg.fit.max_rounds,
+            "false_alarm_level": cfg.fit.false_alarm_level,
+            "min_control_points": cfg.fit.min_control_points,
+            "neighbours": cfg.signatures.neighbours,
+            "order": cfg.signatures.order.to_string(),
+            "harmonic": cfg.signatures.harmonic,
+            "candidates": cfg.matching.candidates,
+        },
+        "significance": s.significance,
+        "ransac": {"rounds": s.ransac_rounds, "consensus": s.ransac_consensus, "sample": s.ransac_sample},
+        "guided_rounds": s.guided_rounds,
+        "seed": cfg.fit.seed,
+        "caution": crate::report::CAUTION,
+    })
+}
+
+/// Writes `transform.json`.
+pub fn write_transform(result: &MatchResult, path: &Path) -> Result<(), EmitError> {
+    let text = serde_json::to_string_pretty(&transform_document(result)).expect("JSON values serialise");
+    std::fs::write(path, text + "\n").map_err(io_err(path))
+}

@@ -1,0 +1,174 @@
+//! Stage 6 — emit: write the control points, the transform and the report.
+//!
+//! **In:** a [`MatchResult`] and the report text.
+//! **Out:** in the output folder:
+//!
+//! - `control-points.csv` ([`csv`]): one row per control point —
+//!   `reference_id,target_id,reference_x,reference_y,target_x,target_y,residual_m,residual_dx_m,residual_dy_m`.
+//!   Reference coordinates are in the reference's own CRS, target coordinates in the target's
+//!   own CRS (or local grid), exactly as read; residuals are after the final fit, in metres,
+//!   `dx, dy` = reference − mapped target along the working CRS's axes. Example row:
+//!   `B-00017,S26-4821,455012.310,5210044.870,15.3812055,47.0412210,0.412,0.301,-0.281`
+//! - `control-points.gpkg` ([`gpkg`]): layer `control_points` (points at the reference
+//!   position, reference CRS, fields reference_id, target_id, residual_m) and layer
+//!   `displacements` (one line per control point from where the target puts the landmark to
+//!   where the reference has it, reference CRS, fields reference_id, target_id, length_m). For a
+//!   georeferenced target the line starts at the target's position as georeferenced (its
+//!   length is the drift between the surveys); for a local-grid target it starts at the fitted
+//!   position (its length is the residual).
+//! - `transform.json` ([`json`]): the similarity, its standard errors, RMSE, counts, CRSs,
+//!   thresholds, seed and version.
+//! - `report.txt`: the text summary, with the cautions.
+//!
+//! Nothing is written until everything is ready: the files are made in a hidden staging folder
+//! beside the output folder and moved into place at the end; on any error the staging folder is
+//! removed and the output folder is left as it was.
+
+pub mod csv;
+pub mod gpkg;
+pub mod json;
+
+use crate::ingest::LandmarkSet;
+use crate::pipeline::MatchResult;
+use std::path::{Path, PathBuf};
+
+/// Names of the files a match writes.
+pub const FILES: [&str; 4] = ["control-points.csv", "control-points.gpkg", "transform.json", "report.txt"];
+
+/// Writing failed.
+#[derive(Debug, thiserror::Error)]
+pub enum EmitError {
+    /// The output folder has files in it.
+    #[error("{0}: the output folder exists and is not empty; choose another --out, empty it, or pass --force to replace tiemark's files in it")]
+    NotEmpty(PathBuf),
+    /// The output path is a file.
+    #[error("{0}: exists and is not a folder; choose another --out")]
+    NotADirectory(PathBuf),
+    /// The output file exists.
+    #[error("{0}: exists; choose another output file or pass --force")]
+    FileExists(PathBuf),
+    /// File-system trouble.
+    #[error("{path}: {source}")]
+    Io {
+        /// Where.
+        path: PathBuf,
+        /// Cause.
+        source: std::io::Error,
+    },
+    /// GDAL trouble while writing.
+    #[error("{path}: writing failed: {detail}")]
+    Gdal {
+        /// Where.
+        path: PathBuf,
+        /// GDAL's words.
+        detail: String,
+    },
+    /// Unsupported output format.
+    #[error("{0}: unknown output format; use a .gpkg, .geojson, .fgb or .csv file name")]
+    UnknownFormat(PathBuf),
+    /// Coordinates could not be converted back to the reference CRS.
+    #[error("converting outputs to the reference CRS failed: {0}")]
+    Frame(String),
+}
+
+pub(crate) fn io_err(path: &Path) -> impl FnOnce(std::io::Error) -> EmitError + '_ {
+    move |source| EmitError::Io {
+        path: path.to_path_buf(),
+        source,
+    }
+}
+
+/// Refuses an output folder that exists with files in it (unless `force`), or is a file.
+/// Called before any work, so a long run cannot end in this error.
+pub fn check_output_dir(dir: &Path, force: bool) -> Result<(), EmitError> {
+    if !dir.exists() {
+        return Ok(());
+    }
+    if !dir.is_dir() {
+        return Err(EmitError::NotADirectory(dir.to_path_buf()));
+    }
+    let non_empty = std::fs::read_dir(dir).map_err(io_err(dir))?.next().is_some();
+    if non_empty && !force {
+        return Err(EmitError::NotEmpty(dir.to_path_buf()));
+    }
+    Ok(())
+}
+
+/// A hidden staging folder beside `target`, removed on drop unless committed.
+pub(crate) struct Staging {
+    pub(crate) path: PathBuf,
+    done: bool,
+}
+
+impl Staging {
+    pub(crate) fn beside(target: &Path) -> Result<Staging, EmitError> {
+        let parent = match target.parent() {
+            Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
+            _ => PathBuf::from("."),
+        };
+        std::fs::create_dir_all(&parent).map_err(io_err(&parent))?;
+        let name = target.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default();
+        let path = parent.join(format!(".{name}.tiemark-partial-{}", std::process::id()));
+        if path.exists() {
+            std::fs::remove_dir_all(&path).map_err(io_err(&path))?;
+        }
+        std::fs::create_dir(&path).map_err(io_err(&path))?;
+        Ok(Staging { path, done: false })
+    }
+}
+
+impl Drop for Staging {
+    fn drop(&mut self) {
+        if !self.done {
+            let _ = std::fs::remove_dir_all(&self.path);
+        }
+    }
+}
+
+/// Writes every output file of a match; returns their final paths.
+pub fn write_all(result: &MatchResult, report: &str) -> Result<Vec<PathBuf>, EmitError> {
+    let out = &result.config.output.dir;
+    check_output_dir(out, result.config.output.force)?;
+    let mut staging = Staging::beside(out)?;
+    csv::write_control_points(result, &staging.path.join(FILES[0]))?;
+    gpkg::write_control_points(result, &staging.path.join(FILES[1]))?;
+    json::write_transform(result, &staging.path.join(FILES[2]))?;
+    let report_path = staging.path.join(FILES[3]);
+    std::fs::write(&report_path, report).map_err(io_err(&report_path))?;
+    // Move into place.
+    let finals: Vec<PathBuf> = FILES.iter().map(|f| out.join(f)).collect();
+    if !out.exists() {
+        std::fs::rename(&staging.path, out).map_err(io_err(out))?;
+        staging.done = true;
+    } else {
+        for f in FILES {
+            let dst = out.join(f);
+            std::fs::rename(staging.path.join(f), &dst).map_err(io_err(&dst))?;
+        }
+    }
+    Ok(finals)
+}
+
+/// Writes a landmark set (id, x, y in its own CRS) to one file, format by extension.
+pub fn write_landmarks(set: &LandmarkSet, out: &Path, force: bool) -> Result<(), EmitError> {
+    if out.exists() && !force {
+        return Err(EmitError::FileExists(out.to_path_buf()));
+    }
+    if out.is_dir() {
+        return Err(EmitError::NotADirectory(out.to_path_buf()));
+    }
+    let ext = out
+        .extension()
+        .map(|e| e.to_string_lossy().to_ascii_lowercase())
+        .unwrap_or_default();
+    let staging = Staging::beside(out)?;
+    let name = out.file_name().expect("a file name");
+    let tmp = staging.path.join(name);
+    match ext.as_str() {
+        "csv" => csv::write_landmarks(set, &tmp)?,
+        "gpkg" | "geojson" | "json" | "fgb" => gpkg::write_landmarks(set, &tmp, &ext)?,
+        _ => return Err(EmitError::UnknownFormat(out.to_path_buf())),
+    }
+    std::fs::rename(&tmp, out).map_err(io_err(out))?;
+    Ok(())
+}

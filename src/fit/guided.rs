@@ -1,0 +1,172 @@
+//! Guided matching: given a transform, pair every target landmark with its mutual nearest
+//! reference landmark within the tolerance, refit, and repeat until the pairs stop changing.
+//!
+//! Mutual nearest neighbours are found with the two surveys' own k-d trees: the reference
+//! nearest to S(t), and the target nearest to S⁻¹(r). A similarity scales all distances alike,
+//! so the second query finds exactly the mapped target nearest to r.
+
+use super::similarity::{fit_similarity_indexed, Similarity, SimilarityFit};
+use crate::spatial::PointIndex;
+
+/// One control point: a reference and a target landmark paired by the final transform.
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
+pub struct Pair {
+    /// Reference landmark index.
+    pub reference: u32,
+    /// Target landmark index.
+    pub target: u32,
+    /// Distance between the mapped target and the reference landmark, reference units.
+    pub residual: f64,
+}
+
+/// The two surveys in the working frame with their indexes.
+pub struct Frames<'a> {
+    /// Reference landmark positions.
+    pub reference: &'a [[f64; 2]],
+    /// Target landmark positions.
+    pub target: &'a [[f64; 2]],
+    /// k-d tree of `reference`.
+    pub reference_index: &'a PointIndex,
+    /// k-d tree of `target`.
+    pub target_index: &'a PointIndex,
+}
+
+/// Mutual nearest pairs under `s` within `tolerance`, for the target landmarks `subset`
+/// (all when `None`), and the number of those landmarks whose nearest reference landmark lies
+/// within `coverage` (the trials of the significance test). Pairs come in `subset` order.
+pub fn mutual_pairs(
+    frames: &Frames,
+    s: &Similarity,
+    tolerance: f64,
+    coverage: f64,
+    subset: Option<&[u32]>,
+) -> (Vec<Pair>, usize) {
+    let inv = s.inverse();
+    let tol2 = tolerance * tolerance;
+    let cov2 = coverage * coverage;
+    let mut pairs = Vec::new();
+    let mut covered = 0;
+    let mut visit = |t: u32| {
+        let p = s.apply(frames.target[t as usize]);
+        let Some((r, d2)) = frames.reference_index.nearest(p) else {
+            return;
+        };
+        if d2 < cov2 {
+            covered += 1;
+        }
+        if d2 >= tol2 {
+            return;
+        }
+        let q = inv.apply(frames.reference[r as usize]);
+        if let Some((back, _)) = frames.target_index.nearest(q) {
+            if back == t {
+                pairs.push(Pair {
+                    reference: r,
+                    target: t,
+                    residual: d2.sqrt(),
+                });
+            }
+        }
+    };
+    match subset {
+        Some(ids) => ids.iter().for_each(|&t| visit(t)),
+        None => (0..frames.target.len() as u32).for_each(&mut visit),
+    }
+    (pairs, covered)
+}
+
+/// Least-squares similarity on pairs.
+pub fn refit(frames: &Frames, pairs: &[Pair]) -> Option<SimilarityFit> {
+    fit_similarity_indexed(pairs.len(), |i| {
+        (
+            frames.target[pairs[i].target as usize],
+            frames.reference[pairs[i].reference as usize],
+        )
+    })
+}
+
+/// Result of guided matching.
+#[derive(Debug, Clone)]
+pub struct Guided {
+    /// Final transform.
+    pub transform: Similarity,
+    /// Final pairs (under `transform`).
+    pub pairs: Vec<Pair>,
+    /// Trials: landmarks of the subset mapped into the reference's coverage.
+    pub covered: usize,
+    /// Refit rounds run.
+    pub rounds: usize,
+}
+
+/// Iterates pairing and refitting from `start` until the pair set is stable or `max_rounds`
+/// is reached. Pairs are recomputed under the final transform.
+pub fn guided(
+    frames: &Frames,
+    start: Similarity,
+    tolerance: f64,
+    coverage: f64,
+    subset: Option<&[u32]>,
+    max_rounds: usize,
+) -> Guided {
+    let mut s = start;
+    let (mut pairs, mut covered) = mutual_pairs(frames, &s, tolerance, coverage, subset);
+    let mut rounds = 0;
+    while rounds < max_rounds && pairs.len() >= 2 {
+        let Some(fit) = refit(frames, &pairs) else {
+            break;
+        };
+        if !fit.transform.is_valid() {
+            break;
+        }
+        rounds += 1;
+        let (next, next_covered) = mutual_pairs(frames, &fit.transform, tolerance, coverage, subset);
+        let same = next.len() == pairs.len()
+            && next
+                .iter()
+                .zip(&pairs)
+                .all(|(a, b)| a.reference == b.reference && a.target == b.target);
+        s = fit.transform;
+        pairs = next;
+        covered = next_covered;
+        if same {
+            break;
+        }
+    }
+    Guided {
+        transform: s,
+        pairs,
+        covered,
+        rounds,
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use rand::{Rng, SeedableRng};
+
+    #[test]
+    fn converges_from_a_rough_start() {
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(8);
+        let reference: Vec<[f64; 2]> = (0..2000)
+            .map(|_| [rng.gen_range(0.0..1000.0), rng.gen_range(0.0..1000.0)])
+            .collect();
+        let truth = Similarity::from_params(0.5, 1.0, 300.0, -40.0);
+        let inv = truth.inverse();
+        let target: Vec<[f64; 2]> = reference.iter().map(|&p| inv.apply(p)).collect();
+        let ri = PointIndex::new(&reference).unwrap();
+        let ti = PointIndex::new(&target).unwrap();
+        let frames = Frames {
+            reference: &reference,
+            target: &target,
+            reference_index: &ri,
+            target_index: &ti,
+        };
+        // Start a little off: 0.3 degrees and 2 units.
+        let rough = Similarity::from_params(0.5 * 1.002, 1.0 + 0.005, 302.0, -39.0);
+        let g = guided(&frames, rough, 8.0, 30.0, None, 20);
+        assert_eq!(g.pairs.len(), 2000);
+        assert!(g.pairs.iter().all(|p| p.reference == p.target));
+        assert!((g.transform.scale() - 0.5).abs() < 1e-9);
+    }
+}

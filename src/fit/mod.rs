@@ -1,0 +1,317 @@
+//! Stage 5 — robust fit: from candidate correspondences to a verified similarity and its
+//! control points.
+//!
+//! **In:** both surveys' landmarks in the working frame with their k-d trees, their signatures,
+//! the candidates of the matching stage, and [`FitParams`].
+//! **Out:** [`FitOutcome`]: either a [`Solution`] (transform, standard errors, control-point
+//! pairs with residuals, significance) or a [`Rejection`] saying why no consistent transform
+//! was accepted.
+//!
+//! Steps: [`ransac`] over 1-signature and 2-point hypotheses; [`guided`] matching from the best
+//! few (coarse on a spread subset, then on every landmark); the [`significance`] test against
+//! chance; the final closed-form least-squares fit ([`similarity`]) with standard errors.
+
+pub mod guided;
+pub mod ransac;
+pub mod sample_count;
+pub mod significance;
+pub mod similarity;
+
+pub use guided::Pair;
+pub use similarity::{Similarity, SimilarityFit};
+
+use crate::matching::Candidate;
+use crate::signatures::Signatures;
+use crate::spatial::{morton_order, PointIndex};
+use guided::{guided, Frames};
+use serde::{Deserialize, Serialize};
+use significance::Significance;
+
+/// Options of the robust fit.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct FitParams {
+    /// Inlier tolerance in metres; `None`: a quarter of the reference's median landmark
+    /// spacing.
+    pub tolerance_m: Option<f64>,
+    /// RANSAC confidence of drawing one all-inlier sample.
+    pub confidence: f64,
+    /// Upper bound on RANSAC rounds.
+    pub max_rounds: usize,
+    /// Seed of every random choice.
+    pub seed: u64,
+    /// Accept a transform when the expected number of chance detections is below this.
+    pub false_alarm_level: f64,
+    /// Fewest control points to accept a transform.
+    pub min_control_points: usize,
+}
+
+impl Default for FitParams {
+    fn default() -> Self {
+        FitParams {
+            tolerance_m: None,
+            confidence: 0.999,
+            max_rounds: 20_000,
+            seed: 20_261_201,
+            false_alarm_level: 0.01,
+            min_control_points: 5,
+        }
+    }
+}
+
+/// Why the options are unusable.
+#[derive(Debug, thiserror::Error, PartialEq)]
+pub enum FitError {
+    /// Tolerance not a positive number.
+    #[error("the tolerance must be a positive number of metres (got {0})")]
+    InvalidTolerance(f64),
+    /// Confidence outside (0, 1).
+    #[error("the confidence must be between 0 and 1, exclusive (got {0})")]
+    InvalidConfidence(f64),
+    /// False-alarm level outside (0, 1].
+    #[error("the false-alarm level must be in (0, 1] (got {0})")]
+    InvalidFalseAlarmLevel(f64),
+    /// Too few control points asked for.
+    #[error("at least 3 control points are needed for a checked similarity (got {0})")]
+    InvalidMinControlPoints(usize),
+}
+
+impl FitParams {
+    /// Checks the options alone.
+    pub fn validate(&self) -> Result<(), FitError> {
+        if let Some(t) = self.tolerance_m {
+            if !(t.is_finite() && t > 0.0) {
+                return Err(FitError::InvalidTolerance(t));
+            }
+        }
+        if !(self.confidence > 0.0 && self.confidence < 1.0) {
+            return Err(FitError::InvalidConfidence(self.confidence));
+        }
+        if !(self.false_alarm_level > 0.0 && self.false_alarm_level <= 1.0) {
+            return Err(FitError::InvalidFalseAlarmLevel(self.false_alarm_level));
+        }
+        if self.min_control_points < 3 {
+            return Err(FitError::InvalidMinControlPoints(self.min_control_points));
+        }
+        Ok(())
+    }
+}
+
+/// Everything the robust fit reads.
+pub struct FitInput<'a> {
+    /// Reference landmarks, working frame.
+    pub reference: &'a [[f64; 2]],
+    /// Target landmarks, working frame.
+    pub target: &'a [[f64; 2]],
+    /// k-d tree of `reference`.
+    pub reference_index: &'a PointIndex,
+    /// k-d tree of `target`.
+    pub target_index: &'a PointIndex,
+    /// Reference signatures.
+    pub reference_signatures: &'a Signatures,
+    /// Target signatures.
+    pub target_signatures: &'a Signatures,
+    /// Candidates, best first.
+    pub candidates: &'a [Candidate],
+    /// Metres per working-frame unit.
+    pub metres_per_unit: f64,
+    /// Median nearest-neighbour spacing of the reference, working units.
+    pub reference_spacing: f64,
+}
+
+/// An accepted transform and its control points.
+#[derive(Debug, Clone)]
+pub struct Solution {
+    /// Final least-squares fit on all control points.
+    pub fit: SimilarityFit,
+    /// Control points, residuals under `fit.transform` (working units).
+    pub pairs: Vec<Pair>,
+    /// Tolerance used, working units.
+    pub tolerance: f64,
+    /// The significance test.
+    pub significance: Significance,
+    /// RANSAC rounds and the consensus of the hypothesis that led here.
+    pub ransac_rounds: usize,
+    /// Consensus of the RANSAC hypothesis that led here (of the scoring sample).
+    pub ransac_consensus: usize,
+    /// Size of the RANSAC scoring sample.
+    pub ransac_sample: usize,
+    /// Guided-matching refit rounds.
+    pub guided_rounds: usize,
+}
+
+/// No transform was accepted.
+#[derive(Debug, Clone)]
+pub struct Rejection {
+    /// Why, in words for the user.
+    pub reason: String,
+    /// Tolerance used, working units.
+    pub tolerance: f64,
+    /// The best attempt's significance, if any attempt got that far.
+    pub significance: Option<Significance>,
+    /// RANSAC rounds run.
+    pub ransac_rounds: usize,
+}
+
+/// What the robust fit concluded.
+#[derive(Debug, Clone)]
+pub enum FitOutcome {
+    /// A transform was accepted.
+    Found(Box<Solution>),
+    /// None was.
+    NotFound(Rejection),
+}
+
+/// Landmark count above which guided matching first converges on a spread subset.
+const COARSE_ABOVE: usize = 40_000;
+/// Size of that subset, and of the subset on which decoys run.
+const COARSE_SIZE: usize = 20_000;
+/// Mirrored decoys run for the empirical chance rate.
+const DECOYS: usize = 6;
+
+/// Runs RANSAC, guided matching and the significance test.
+pub fn robust_fit(input: &FitInput, params: &FitParams, progress: &mut dyn FnMut(&str)) -> FitOutcome {
+    let tolerance = match params.tolerance_m {
+        Some(t) => t / input.metres_per_unit,
+        None => 0.25 * input.reference_spacing,
+    };
+    // Trials of the significance test: mapped targets whose nearest reference landmark is
+    // within three median spacings, i.e. inside the reference's coverage.
+    let coverage = 3.0 * input.reference_spacing;
+    let frames = Frames {
+        reference: input.reference,
+        target: input.target,
+        reference_index: input.reference_index,
+        target_index: input.target_index,
+    };
+    progress("searching for a consistent transform (RANSAC)");
+    let rin = ransac::RansacInput {
+        reference: input.reference,
+        target: input.target,
+        reference_signatures: input.reference_signatures,
+        target_signatures: input.target_signatures,
+        candidates: input.candidates,
+    };
+    let rparams = ransac::RansacParams {
+        tolerance,
+        confidence: params.confidence,
+        max_rounds: params.max_rounds,
+        seed: params.seed,
+        keep: 4,
+    };
+    let r = ransac::ransac(&rin, &rparams);
+    if r.best.is_empty() {
+        return FitOutcome::NotFound(Rejection {
+            reason: "no candidate correspondence produced a transform: the neighbourhoods of the two surveys never agreed".into(),
+            tolerance,
+            significance: None,
+            ransac_rounds: r.rounds,
+        });
+    }
+    progress("guided matching");
+    let coarse: Option<Vec<u32>> = (input.target.len() > COARSE_ABOVE).then(|| spread_subset(input.target, COARSE_SIZE));
+    let mut best: Option<(guided::Guided, &ransac::Hypothesis)> = None;
+    for h in &r.best {
+        let mut start = h.transform;
+        if let Some(sub) = &coarse {
+            start = guided(&frames, start, tolerance, coverage, Some(sub), 20).transform;
+        }
+        let g = guided(&frames, start, tolerance, coverage, None, 20);
+        if best.as_ref().is_none_or(|(b, _)| g.pairs.len() > b.pairs.len()) {
+            best = Some((g, h));
+        }
+    }
+    let (g, h) = best.expect("at least one hypothesis");
+    progress("testing significance against mirrored decoys");
+    let decoy_rate = decoy_chance_rate(&frames, &g.transform, tolerance, coverage, params.seed);
+    let poisson = significance::poisson_chance_rate(tolerance, input.reference_spacing);
+    // Hypotheses: RANSAC's, the guided starts, and the decoys.
+    let hypotheses = r.hypotheses + r.best.len() + DECOYS;
+    let sig = Significance::new(g.covered, g.pairs.len(), poisson, decoy_rate, hypotheses);
+    let reject = |reason: String| {
+        FitOutcome::NotFound(Rejection {
+            reason,
+            tolerance,
+            significance: Some(sig),
+            ransac_rounds: r.rounds,
+        })
+    };
+    if g.pairs.len() < params.min_control_points {
+        return reject(format!(
+            "the best transform pairs only {} landmarks (at least {} are required)",
+            g.pairs.len(),
+            params.min_control_points
+        ));
+    }
+    if !sig.is_significant(params.false_alarm_level) {
+        return reject(format!(
+            "the best transform pairs {} of {} landmarks, which chance alone explains (chance rate {:.1}%, expected false detections 10^{:.1} ≥ {})",
+            sig.inliers,
+            sig.trials,
+            100.0 * poisson.max(decoy_rate),
+            sig.log10_false_alarms,
+            params.false_alarm_level
+        ));
+    }
+    let Some(fit) = guided::refit(&frames, &g.pairs) else {
+        return reject("the control points are degenerate (all at one place)".into());
+    };
+    FitOutcome::Found(Box::new(Solution {
+        fit,
+        pairs: g.pairs,
+        tolerance,
+        significance: sig,
+        ransac_rounds: r.rounds,
+        ransac_consensus: h.consensus,
+        ransac_sample: r.sample_size,
+        guided_rounds: g.rounds,
+    }))
+}
+
+/// About `n` target landmarks spread evenly over the set (every m-th in Morton order).
+fn spread_subset(points: &[[f64; 2]], n: usize) -> Vec<u32> {
+    let order = morton_order(points);
+    let step = (points.len() / n.max(1)).max(1);
+    order.into_iter().step_by(step).collect()
+}
+
+/// The highest inlier rate guided matching reaches from mirror images of the target: a spread
+/// subset of at most 5000 target landmarks reflected about its centroid (along an axis at a seeded random angle), then placed by
+/// `s`. No similarity can align a mirror image of a real scene, so what it reaches is chance.
+fn decoy_chance_rate(frames: &Frames, s: &Similarity, tolerance: f64, coverage: f64, seed: u64) -> f64 {
+    use rand::{Rng, SeedableRng};
+    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed ^ 0x5eed_dec0);
+    let subset = spread_subset(frames.target, 5_000);
+    let n = subset.len() as f64;
+    let c = subset.iter().fold([0.0, 0.0], |a, &i| {
+        let p = frames.target[i as usize];
+        [a[0] + p[0] / n, a[1] + p[1] / n]
+    });
+    let mut worst: f64 = 0.0;
+    for d in 0..DECOYS {
+        let axis = std::f64::consts::PI * (d as f64 + rng.gen::<f64>()) / DECOYS as f64;
+        let (cos2, sin2) = ((2.0 * axis).cos(), (2.0 * axis).sin());
+        let mirrored: Vec<[f64; 2]> = subset
+            .iter()
+            .map(|&i| {
+                let p = frames.target[i as usize];
+                let (x, y) = (p[0] - c[0], p[1] - c[1]);
+                [c[0] + cos2 * x + sin2 * y, c[1] + sin2 * x - cos2 * y]
+            })
+            .collect();
+        let Some(index) = PointIndex::new(&mirrored) else {
+            continue;
+        };
+        let decoy = Frames {
+            reference: frames.reference,
+            target: &mirrored,
+            reference_index: frames.reference_index,
+            target_index: &index,
+        };
+        let g = guided(&decoy, *s, tolerance, coverage, None, 10);
+        if g.covered > 0 {
+            worst = worst.max(g.pairs.len() as f64 / g.covered as f64);
+        }
+    }
+    worst
+}

@@ -1,0 +1,245 @@
+//! The `tiemark` command: parses arguments, calls the library, turns the outcome into an exit
+//! code. Exit codes: 0 control points written, 1 no consistent transform (nothing written),
+//! 2 bad input or any other error.
+
+use clap::{Args, Parser, Subcommand, ValueEnum};
+use std::io::Write;
+use std::path::PathBuf;
+use std::process::ExitCode;
+use tiemark::fit::FitParams;
+use tiemark::ingest::IngestOptions;
+use tiemark::pipeline::config::{FrameSection, MatchingParams, OutputOptions, SurveyInput};
+use tiemark::pipeline::{self, MatchConfig, MatchOutcome};
+use tiemark::signatures::{SignatureParams, VertexOrder};
+
+const EXIT_HELP: &str = "Exit codes: 0 control points written; 1 no consistent transform found (nothing written); 2 bad input or error.
+
+Control points found automatically must be verified against independent checkpoints before use. Legal or engineering survey work defers to local regulations and licensed surveyors.";
+
+#[derive(Parser)]
+#[command(name = "tiemark", version, about = "Find the same landmarks in two georeferenced surveys and turn them into control points.", after_help = EXIT_HELP)]
+struct Cli {
+    #[command(subcommand)]
+    command: Command,
+    /// No progress bars.
+    #[arg(long, short, global = true)]
+    quiet: bool,
+}
+
+#[derive(Subcommand)]
+enum Command {
+    /// Match a target survey to a reference survey and write control points, transform and report.
+    #[command(after_help = EXIT_HELP)]
+    Match(MatchArgs),
+    /// Write the landmarks tiemark extracts from one dataset (to inspect them).
+    Landmarks(LandmarksArgs),
+    /// Run a pipeline file (TOML; see pipelines/ for examples).
+    #[command(after_help = EXIT_HELP)]
+    Run {
+        /// The pipeline file.
+        pipeline: PathBuf,
+    },
+}
+
+#[derive(Clone, Copy, ValueEnum)]
+enum OrderArg {
+    /// Nearest-neighbour walk from the landmark.
+    Walk,
+    /// Counter-clockwise around the landmark from its nearest neighbour.
+    Angular,
+}
+
+#[derive(Args)]
+struct MatchArgs {
+    /// The reference survey (older, trusted): any GDAL vector dataset.
+    reference: PathBuf,
+    /// The target survey (to bring onto the reference).
+    target: PathBuf,
+    /// Output folder (created; must be empty unless --force).
+    #[arg(long)]
+    out: PathBuf,
+    /// Replace tiemark's files in a non-empty output folder.
+    #[arg(long)]
+    force: bool,
+    /// Layer of the reference (default: the only or first layer).
+    #[arg(long)]
+    reference_layer: Option<String>,
+    /// Layer of the target.
+    #[arg(long)]
+    target_layer: Option<String>,
+    /// Attribute holding reference landmark ids (default: the feature id).
+    #[arg(long)]
+    reference_id: Option<String>,
+    /// Attribute holding target landmark ids.
+    #[arg(long)]
+    target_id: Option<String>,
+    /// CRS of the reference, overriding the file's (anything PROJ accepts, e.g. EPSG:32633).
+    #[arg(long)]
+    reference_crs: Option<String>,
+    /// CRS of the target, or "local" for an unreferenced local grid (the fit is then the site calibration).
+    #[arg(long)]
+    target_crs: Option<String>,
+    /// Projected CRS to work in (default: the reference's, or the UTM zone of a geographic reference).
+    #[arg(long)]
+    working_crs: Option<String>,
+    /// Inlier tolerance in metres (default: a quarter of the reference's median landmark spacing).
+    #[arg(long)]
+    tolerance: Option<f64>,
+    /// Neighbours per signature polygon.
+    #[arg(long, default_value_t = SignatureParams::default().neighbours)]
+    neighbours: usize,
+    /// Vertex order of the signature polygon.
+    #[arg(long, value_enum, default_value = "walk")]
+    order: OrderArg,
+    /// Fourier harmonic of the signature ratio.
+    #[arg(long, default_value_t = SignatureParams::default().harmonic)]
+    harmonic: usize,
+    /// Reference signatures proposed per target signature.
+    #[arg(long, default_value_t = MatchingParams::default().candidates)]
+    candidates: usize,
+    /// RANSAC confidence.
+    #[arg(long, default_value_t = FitParams::default().confidence)]
+    confidence: f64,
+    /// Upper bound on RANSAC rounds.
+    #[arg(long, default_value_t = FitParams::default().max_rounds)]
+    max_rounds: usize,
+    /// Seed of every random choice (results are reproducible for a given seed).
+    #[arg(long, default_value_t = FitParams::default().seed)]
+    seed: u64,
+    /// Accept a transform only if the expected number of chance detections is below this.
+    #[arg(long, default_value_t = FitParams::default().false_alarm_level)]
+    false_alarm_level: f64,
+    /// Fewest control points to accept a transform.
+    #[arg(long, default_value_t = FitParams::default().min_control_points)]
+    min_control_points: usize,
+}
+
+#[derive(Args)]
+struct LandmarksArgs {
+    /// The dataset.
+    file: PathBuf,
+    /// Output file (.gpkg, .geojson, .fgb or .csv).
+    #[arg(long)]
+    out: PathBuf,
+    /// Layer (default: the only or first layer).
+    #[arg(long)]
+    layer: Option<String>,
+    /// Attribute holding landmark ids (default: the feature id).
+    #[arg(long)]
+    id: Option<String>,
+    /// Replace an existing output file.
+    #[arg(long)]
+    force: bool,
+}
+
+impl MatchArgs {
+    fn into_config(self) -> MatchConfig {
+        MatchConfig {
+            reference: SurveyInput {
+                path: self.reference,
+                layer: self.reference_layer,
+                id: self.reference_id,
+                crs: self.reference_crs,
+            },
+            target: SurveyInput {
+                path: self.target,
+                layer: self.target_layer,
+                id: self.target_id,
+                crs: self.target_crs,
+            },
+            output: OutputOptions {
+                dir: self.out,
+                force: self.force,
+            },
+            frame: FrameSection {
+                working_crs: self.working_crs,
+            },
+            signatures: SignatureParams {
+                neighbours: self.neighbours,
+                order: match self.order {
+                    OrderArg::Walk => VertexOrder::Walk,
+                    OrderArg::Angular => VertexOrder::Angular,
+                },
+                harmonic: self.harmonic,
+            },
+            matching: MatchingParams {
+                candidates: self.candidates,
+            },
+            fit: FitParams {
+                tolerance_m: self.tolerance,
+                confidence: self.confidence,
+                max_rounds: self.max_rounds,
+                seed: self.seed,
+                false_alarm_level: self.false_alarm_level,
+                min_control_points: self.min_control_points,
+            },
+        }
+    }
+}
+
+/// Prints to stdout; a closed pipe is not an error.
+fn print(text: &str) {
+    let mut out = std::io::stdout().lock();
+    let _ = out.write_all(text.as_bytes()).and_then(|_| out.flush());
+}
+
+fn run_config(cfg: &MatchConfig, quiet: bool) -> ExitCode {
+    match pipeline::run_match(cfg, quiet) {
+        Ok(MatchOutcome::Written { summary, .. }) => {
+            print(&summary);
+            ExitCode::SUCCESS
+        }
+        Ok(MatchOutcome::NoTransform { summary, .. }) => {
+            print(&summary);
+            ExitCode::from(1)
+        }
+        Err(e) => fail(&e),
+    }
+}
+
+fn fail(e: &dyn std::fmt::Display) -> ExitCode {
+    eprintln!("tiemark: error: {e:#}");
+    ExitCode::from(2)
+}
+
+fn main() -> ExitCode {
+    let cli = match Cli::try_parse() {
+        Ok(c) => c,
+        Err(e) => {
+            let code = if e.use_stderr() { 2 } else { 0 };
+            let _ = e.print();
+            return ExitCode::from(code);
+        }
+    };
+    match cli.command {
+        Command::Match(args) => run_config(&args.into_config(), cli.quiet),
+        Command::Run { pipeline } => match MatchConfig::from_file(&pipeline) {
+            Ok(cfg) => run_config(&cfg, cli.quiet),
+            Err(e) => fail(&e),
+        },
+        Command::Landmarks(a) => {
+            let opts = IngestOptions {
+                layer: a.layer,
+                id_field: a.id,
+            };
+            match pipeline::extract_landmarks(&a.file, &opts, &a.out, a.force) {
+                Ok(set) => {
+                    print(&format!(
+                        "{} landmarks from {} (layer {}){} written to {}\n",
+                        set.points.len(),
+                        set.source.display(),
+                        set.layer,
+                        if set.skipped_without_geometry > 0 {
+                            format!("; {} features without geometry skipped", set.skipped_without_geometry)
+                        } else {
+                            String::new()
+                        },
+                        a.out.display()
+                    ));
+                    ExitCode::SUCCESS
+                }
+                Err(e) => fail(&e),
+            }
+        }
+    }
+}

@@ -1,0 +1,218 @@
+//! The configuration of one match, shared by the command line and pipeline files.
+//!
+//! A pipeline file is TOML with these tables (unknown keys are an error, with line and
+//! column); relative paths are taken from the pipeline file's folder:
+//!
+//! ```toml
+//! [reference]
+//! path = "../sample-data/town-footprints-2019.gpkg"
+//! layer = "buildings"        # optional: default the only/first layer
+//! id = "bldg_id"             # optional: default the feature id
+//! crs = "EPSG:32633"         # optional: default the file's CRS
+//!
+//! [target]
+//! path = "../sample-data/town-survey-2026.geojson"
+//! id = "uid"
+//! crs = "local"              # "local": an unreferenced local grid
+//!
+//! [output]
+//! dir = "../target/demo-output"
+//! force = false
+//!
+//! [frame]
+//! working_crs = "EPSG:32633" # optional
+//!
+//! [signatures]
+//! neighbours = 4
+//! order = "walk"             # or "angular"
+//! harmonic = 1
+//!
+//! [matching]
+//! candidates = 3
+//!
+//! [fit]
+//! tolerance_m = 2.0          # optional: default a quarter of the reference's spacing
+//! confidence = 0.999
+//! max_rounds = 20000
+//! seed = 20261201
+//! false_alarm_level = 0.01
+//! min_control_points = 5
+//! ```
+
+use crate::fit::FitParams;
+use crate::signatures::SignatureParams;
+use serde::{Deserialize, Serialize};
+use std::path::{Path, PathBuf};
+
+/// One input survey.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SurveyInput {
+    /// The dataset.
+    pub path: PathBuf,
+    /// Layer name.
+    #[serde(default)]
+    pub layer: Option<String>,
+    /// Id field.
+    #[serde(default)]
+    pub id: Option<String>,
+    /// CRS override, or "local" (target only).
+    #[serde(default)]
+    pub crs: Option<String>,
+}
+
+/// Where the outputs go.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct OutputOptions {
+    /// Output folder (created).
+    pub dir: PathBuf,
+    /// Replace the files of an existing non-empty folder.
+    #[serde(default)]
+    pub force: bool,
+}
+
+/// Working-frame options.
+#[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct FrameSection {
+    /// Working CRS instead of the automatic choice.
+    #[serde(default)]
+    pub working_crs: Option<String>,
+}
+
+/// Matching options.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct MatchingParams {
+    /// Reference signatures proposed per target signature.
+    pub candidates: usize,
+}
+
+impl Default for MatchingParams {
+    fn default() -> Self {
+        MatchingParams { candidates: 3 }
+    }
+}
+
+/// Everything one match needs.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct MatchConfig {
+    /// The older, trusted survey.
+    pub reference: SurveyInput,
+    /// The survey to bring onto the reference.
+    pub target: SurveyInput,
+    /// Outputs.
+    pub output: OutputOptions,
+    /// Working frame.
+    #[serde(default)]
+    pub frame: FrameSection,
+    /// Signature stage.
+    #[serde(default)]
+    pub signatures: SignatureParams,
+    /// Matching stage.
+    #[serde(default)]
+    pub matching: MatchingParams,
+    /// Robust fit.
+    #[serde(default)]
+    pub fit: FitParams,
+}
+
+/// A pipeline file could not be used.
+#[derive(Debug, thiserror::Error)]
+pub enum ConfigError {
+    /// Not readable.
+    #[error("{path}: cannot read the pipeline file: {source}")]
+    Read {
+        /// File.
+        path: PathBuf,
+        /// Cause.
+        source: std::io::Error,
+    },
+    /// Not valid.
+    #[error("{path}: {message}")]
+    Parse {
+        /// File.
+        path: PathBuf,
+        /// The parser's message, with line and column.
+        message: String,
+    },
+    /// Invalid candidate count.
+    #[error("candidates per query must be between 1 and 32 (got {0})")]
+    InvalidCandidates(usize),
+}
+
+impl MatchConfig {
+    /// Reads a pipeline file; relative paths are resolved against its folder.
+    pub fn from_file(path: &Path) -> Result<MatchConfig, ConfigError> {
+        let text = std::fs::read_to_string(path).map_err(|source| ConfigError::Read {
+            path: path.to_path_buf(),
+            source,
+        })?;
+        let mut cfg: MatchConfig = toml::from_str(&text).map_err(|e| ConfigError::Parse {
+            path: path.to_path_buf(),
+            message: describe_toml_error(&text, &e),
+        })?;
+        let base = path.parent().unwrap_or(Path::new("."));
+        for p in [&mut cfg.reference.path, &mut cfg.target.path, &mut cfg.output.dir] {
+            if p.is_relative() {
+                *p = base.join(&*p);
+            }
+        }
+        Ok(cfg)
+    }
+
+    /// Checks every option that needs no data.
+    pub fn validate(&self) -> Result<(), crate::pipeline::Error> {
+        self.signatures.validate()?;
+        self.fit.validate()?;
+        if !(1..=32).contains(&self.matching.candidates) {
+            return Err(ConfigError::InvalidCandidates(self.matching.candidates).into());
+        }
+        Ok(())
+    }
+}
+
+fn describe_toml_error(text: &str, e: &toml::de::Error) -> String {
+    let msg = e.message().trim().to_string();
+    match e.span() {
+        Some(span) => {
+            let before = &text[..span.start.min(text.len())];
+            let line = before.matches('\n').count() + 1;
+            let col = before.rsplit('\n').next().map(|l| l.chars().count()).unwrap_or(0) + 1;
+            format!("line {line}, column {col}: {msg}")
+        }
+        None => msg,
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn unknown_key_reports_line_and_column() {
+        let dir = tempfile::tempdir().unwrap();
+        let p = dir.path().join("p.toml");
+        std::fs::write(
+            &p,
+            "[reference]\npath = \"a.gpkg\"\n[target]\npath = \"b.gpkg\"\n[output]\ndir = \"o\"\n[fit]\ntolerence_m = 2\n",
+        )
+        .unwrap();
+        let e = MatchConfig::from_file(&p).unwrap_err().to_string();
+        assert!(e.contains("line 8, column 1"), "{e}");
+        assert!(e.contains("tolerence_m"), "{e}");
+    }
+
+    #[test]
+    fn relative_paths_follow_the_pipeline_file() {
+        let dir = tempfile::tempdir().unwrap();
+        let p = dir.path().join("p.toml");
+        std::fs::write(&p, "[reference]\npath = \"a.gpkg\"\n[target]\npath = \"/abs/b.gpkg\"\n[output]\ndir = \"o\"\n").unwrap();
+        let c = MatchConfig::from_file(&p).unwrap();
+        assert_eq!(c.reference.path, dir.path().join("a.gpkg"));
+        assert_eq!(c.target.path, PathBuf::from("/abs/b.gpkg"));
+        assert_eq!(c.signatures, SignatureParams::default());
+    }
+}

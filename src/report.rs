@@ -1,0 +1,118 @@
+//! Stage 6 (text) — the report: a plain-text summary for the terminal and `report.txt`.
+//!
+//! **In:** a [`MatchResult`] (or a rejection). **Out:** text: counts, the transform with its
+//! standard errors, RMSE, how well the control points cover the overlap, the significance, and
+//! the cautions.
+
+use crate::fit::Rejection;
+use crate::landmarks::WorkingFrame;
+use crate::pipeline::{MatchConfig, MatchResult};
+use std::fmt::Write;
+use std::path::PathBuf;
+
+/// The caution every report carries.
+pub const CAUTION: &str = "Control points found automatically must be verified against independent checkpoints before use. Legal or engineering survey work defers to local regulations and licensed surveyors.";
+
+/// Share of a 4 × 4 grid over the control points' reference extent that holds at least one
+/// control point, and the count in the emptiest quadrant: a rough measure of spread.
+pub fn coverage(points: &[[f64; 2]]) -> (f64, usize) {
+    if points.is_empty() {
+        return (0.0, 0);
+    }
+    let (mut lo, mut hi) = ([f64::INFINITY; 2], [f64::NEG_INFINITY; 2]);
+    for p in points {
+        for d in 0..2 {
+            lo[d] = lo[d].min(p[d]);
+            hi[d] = hi[d].max(p[d]);
+        }
+    }
+    let cell = |p: &[f64; 2], d: usize, n: f64| (((p[d] - lo[d]) / (hi[d] - lo[d]).max(1e-12)) * n).min(n - 1.0) as usize;
+    let mut grid = [false; 16];
+    let mut quads = [0usize; 4];
+    for p in points {
+        grid[cell(p, 0, 4.0) + 4 * cell(p, 1, 4.0)] = true;
+        quads[cell(p, 0, 2.0) + 2 * cell(p, 1, 2.0)] += 1;
+    }
+    (grid.iter().filter(|c| **c).count() as f64 / 16.0, *quads.iter().min().unwrap_or(&0))
+}
+
+/// The summary of an accepted match.
+pub fn summary(r: &MatchResult) -> String {
+    let s = &r.solution;
+    let f = &s.fit;
+    let t = f.transform;
+    let mpu = r.frame.metres_per_unit();
+    let mut o = String::new();
+    let _ = writeln!(o, "tiemark {} — control points found", env!("CARGO_PKG_VERSION"));
+    let _ = writeln!(o);
+    let _ = writeln!(o, "reference  {} (layer {}): {} landmarks, {}", r.reference.source.display(), r.reference.layer, r.reference.points.len(), r.frame.reference_crs.label());
+    let tcrs = r.frame.target_crs.as_ref().map(|c| c.label()).unwrap_or_else(|| "local grid (no CRS)".into());
+    let _ = writeln!(o, "target     {} (layer {}): {} landmarks, {}", r.target.source.display(), r.target.layer, r.target.points.len(), tcrs);
+    let _ = writeln!(o, "working    {} — {}", r.frame.crs.label(), r.frame.chosen_because);
+    let _ = writeln!(o);
+    let _ = writeln!(o, "control points   {}", s.pairs.len());
+    let _ = writeln!(o, "RMSE             {:.3} m   (sigma per coordinate {:.3} m)", f.rmse * mpu, f.sigma * mpu);
+    let mut res: Vec<f64> = s.pairs.iter().map(|p| p.residual * mpu).collect();
+    res.sort_by(f64::total_cmp);
+    if let (Some(max), false) = (res.last(), res.is_empty()) {
+        let _ = writeln!(o, "residuals        median {:.3} m, 95th percentile {:.3} m, max {:.3} m", res[res.len() / 2], res[(res.len() * 95 / 100).min(res.len() - 1)], max);
+    }
+    let _ = writeln!(o, "tolerance        {:.3} m{}", s.tolerance * mpu, if r.config.fit.tolerance_m.is_none() { " (a quarter of the reference's median spacing)" } else { "" });
+    let _ = writeln!(o);
+    let _ = writeln!(o, "transform (target working -> reference working; rotation counter-clockwise)");
+    let _ = writeln!(o, "  scale          {:.9} ± {:.9}", t.scale(), f.se_scale);
+    let _ = writeln!(o, "  rotation       {:.6}° ± {:.6}°", t.rotation().to_degrees(), f.se_rotation.to_degrees());
+    let _ = writeln!(o, "  translation x  {:.4} ± {:.4}", t.tx, f.se_tx);
+    let _ = writeln!(o, "  translation y  {:.4} ± {:.4}", t.ty, f.se_ty);
+    let refpts: Vec<[f64; 2]> = s.pairs.iter().map(|p| r.frame.reference[p.reference as usize]).collect();
+    let (cov, minq) = coverage(&refpts);
+    let _ = writeln!(o);
+    let _ = writeln!(o, "spread           {:.0}% of a 4x4 grid over the control points' extent; fewest in a quadrant: {}", cov * 100.0, minq);
+    let sig = &s.significance;
+    let _ = writeln!(o, "significance     {} of {} covered target landmarks paired; chance would pair {:.1}%; expected false detections < 10^{:.0}", sig.inliers, sig.trials, 100.0 * sig.chance_rate_poisson.max(sig.chance_rate_decoys), sig.log10_false_alarms.ceil());
+    let _ = writeln!(o, "signatures       {} reference, {} target; {} candidates; {} RANSAC rounds", r.counts.0, r.counts.1, r.counts.2, s.ransac_rounds);
+    let _ = writeln!(o);
+    let _ = writeln!(o, "CAUTION: {CAUTION}");
+    o
+}
+
+/// The summary with the list of files written.
+pub fn with_files(summary: &str, files: &[PathBuf]) -> String {
+    let mut o = summary.to_string();
+    let _ = writeln!(o);
+    let _ = writeln!(o, "written:");
+    for f in files {
+        let _ = writeln!(o, "  {}", f.display());
+    }
+    o
+}
+
+/// The summary of a run that found no consistent transform.
+pub fn rejection(cfg: &MatchConfig, frame: &WorkingFrame, r: &Rejection, spacing: f64, counts: (usize, usize, usize)) -> String {
+    let mpu = frame.metres_per_unit();
+    let mut o = String::new();
+    let _ = writeln!(o, "tiemark {} — no consistent transform", env!("CARGO_PKG_VERSION"));
+    let _ = writeln!(o);
+    let _ = writeln!(o, "reference  {}: {} landmarks", cfg.reference.path.display(), frame.reference.len());
+    let _ = writeln!(o, "target     {}: {} landmarks", cfg.target.path.display(), frame.target.len());
+    let _ = writeln!(o, "working    {}", frame.crs.label());
+    let _ = writeln!(o);
+    let _ = writeln!(o, "why: {}", r.reason);
+    let _ = writeln!(o, "tolerance {:.3} m; reference median spacing {:.3} m; {} reference and {} target signatures; {} candidates; {} RANSAC rounds", r.tolerance * mpu, spacing * mpu, counts.0, counts.1, counts.2, r.ransac_rounds);
+    let _ = writeln!(o);
+    let _ = writeln!(o, "No control points were written. If the surveys should match: check that they cover the same place (CRS of each file), that the landmarks are the same kind of feature, and try --tolerance with the expected disagreement in metres, or more --neighbours.");
+    o
+}
+
+#[cfg(test)]
+mod tests {
+    #[test]
+    fn coverage_of_a_spread_and_a_clustered_set() {
+        let spread: Vec<[f64; 2]> = (0..16).map(|i| [(i % 4) as f64, (i / 4) as f64]).collect();
+        assert_eq!(super::coverage(&spread).0, 1.0);
+        let mut clustered = vec![[0.0, 0.0]; 10];
+        clustered.push([1.0, 1.0]);
+        let (c, minq) = super::coverage(&clustered);
+        assert!(c < 0.2 && minq == 0);
+    }
+}

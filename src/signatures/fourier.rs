@@ -1,0 +1,190 @@
+//! Similarity-invariant Fourier ratio of a closed polygon.
+//!
+//! DFT convention (RustFFT's forward transform, unnormalised):
+//! Z_k = Σ_m z_m · exp(−2πi·m·k/n). Translation lives only in Z_0; a similarity z ↦ a·z + b
+//! multiplies every other Z_k by a (Jähne, *Digital Image Processing*, section on Fourier
+//! descriptors). Hence r_j = Z_j / Z_{−j} = Z_j / Z_{n−j} is unchanged by rotation, scale and
+//! translation. A cyclic shift of the start vertex by s multiplies r_j by exp(−4πi·j·s/n);
+//! reversing the vertex order gives 1/r_j; a mirror image gives 1/conj(r_j).
+
+use rustfft::num_complex::Complex64;
+use rustfft::{Fft, FftPlanner};
+use std::sync::Arc;
+
+/// A planned transform for polygons of one length: plan once, run on many.
+pub struct RatioPlan {
+    fft: Arc<dyn Fft<f64>>,
+    n: usize,
+    j: usize,
+    scratch: Vec<Complex64>,
+}
+
+impl RatioPlan {
+    /// Plans for polygons of `n` vertices and harmonic `j` (1 ≤ j < n/2 for a ratio that is
+    /// not identically one).
+    ///
+    /// # Panics
+    /// When `n < 3` or `j == 0` or `2j == n` (programmer error: the options are validated
+    /// before this is called).
+    pub fn new(n: usize, j: usize) -> Self {
+        assert!(n >= 3 && j >= 1 && 2 * j != n && j < n, "bad polygon length {n} or harmonic {j}");
+        let fft = FftPlanner::new().plan_fft_forward(n);
+        let scratch = vec![Complex64::new(0.0, 0.0); fft.get_inplace_scratch_len()];
+        RatioPlan { fft, n, j, scratch }
+    }
+
+    /// Polygon length this plan serves.
+    pub fn len(&self) -> usize {
+        self.n
+    }
+
+    /// Always false: a plan serves polygons of at least three vertices.
+    pub fn is_empty(&self) -> bool {
+        false
+    }
+
+    /// Transforms `polygons` (a whole number of polygons laid end to end, each `n` vertices)
+    /// in place and appends one ratio per polygon to `out`. Non-finite ratios (a polygon with
+    /// Z_{−j} = 0) are appended as they are; the caller decides what to do with them.
+    ///
+    /// # Panics
+    /// When `polygons.len()` is not a multiple of `n`.
+    pub fn ratios(&mut self, polygons: &mut [Complex64], out: &mut Vec<Complex64>) {
+        assert_eq!(polygons.len() % self.n, 0, "buffer is not whole polygons");
+        if polygons.is_empty() {
+            return;
+        }
+        self.fft.process_with_scratch(polygons, &mut self.scratch);
+        for z in polygons.chunks_exact(self.n) {
+            out.push(z[self.j] / z[self.n - self.j]);
+        }
+    }
+}
+
+/// Maps a ratio r from the whole complex plane into the open unit disc, r / (1 + |r|), so that
+/// signatures can be indexed by a 2-D k-d tree with bounded coordinates. Non-finite input maps
+/// to a point on the unit circle (or the origin for NaN), so it can never be near a finite one
+/// by accident.
+#[inline]
+pub fn bounded(r: Complex64) -> [f64; 2] {
+    if r.re.is_nan() || r.im.is_nan() {
+        return [f64::NAN, f64::NAN];
+    }
+    let m = r.norm();
+    if !m.is_finite() {
+        let a = r.im.atan2(r.re);
+        return [a.cos(), a.sin()];
+    }
+    [r.re / (1.0 + m), r.im / (1.0 + m)]
+}
+
+/// Direct O(n²) DFT coefficient Z_k, the oracle against which the planned FFT is checked.
+pub fn dft_coefficient(z: &[Complex64], k: usize) -> Complex64 {
+    let n = z.len() as f64;
+    z.iter()
+        .enumerate()
+        .map(|(m, v)| {
+            let ang = -std::f64::consts::TAU * (m as f64) * (k as f64) / n;
+            v * Complex64::new(ang.cos(), ang.sin())
+        })
+        .sum()
+}
+
+/// r_j of one polygon by the direct DFT (oracle).
+pub fn ratio_direct(z: &[Complex64], j: usize) -> Complex64 {
+    dft_coefficient(z, j) / dft_coefficient(z, z.len() - j)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use approx::assert_relative_eq;
+    use rand::{Rng, SeedableRng};
+    use std::f64::consts::TAU;
+
+    fn c(re: f64, im: f64) -> Complex64 {
+        Complex64::new(re, im)
+    }
+
+    #[test]
+    fn direct_dft_on_known_pairs() {
+        // A unit impulse transforms to all ones; a pure harmonic exp(2πi·m/n) to n at k = 1.
+        let n = 7;
+        let mut delta = vec![c(0.0, 0.0); n];
+        delta[0] = c(1.0, 0.0);
+        for k in 0..n {
+            assert_relative_eq!(dft_coefficient(&delta, k).re, 1.0, epsilon = 1e-12);
+            assert_relative_eq!(dft_coefficient(&delta, k).im, 0.0, epsilon = 1e-12);
+        }
+        let harmonic: Vec<Complex64> = (0..n)
+            .map(|m| c((TAU * m as f64 / n as f64).cos(), (TAU * m as f64 / n as f64).sin()))
+            .collect();
+        assert_relative_eq!(dft_coefficient(&harmonic, 1).re, n as f64, epsilon = 1e-9);
+        for k in [0, 2, 3, 6] {
+            assert!(dft_coefficient(&harmonic, k).norm() < 1e-9);
+        }
+    }
+
+    #[test]
+    fn planned_fft_agrees_with_direct_dft() {
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(3);
+        for n in [5usize, 7, 8, 9, 12] {
+            let polys: Vec<Vec<Complex64>> = (0..50)
+                .map(|_| {
+                    (0..n)
+                        .map(|_| c(rng.gen_range(-1.0..1.0), rng.gen_range(-1.0..1.0)))
+                        .collect()
+                })
+                .collect();
+            let mut buf: Vec<Complex64> = polys.iter().flatten().copied().collect();
+            let mut plan = RatioPlan::new(n, 1);
+            let mut out = Vec::new();
+            plan.ratios(&mut buf, &mut out);
+            for (p, r) in polys.iter().zip(&out) {
+                let d = ratio_direct(p, 1);
+                assert!((d - r).norm() < 1e-9 * (1.0 + d.norm()), "n={n}");
+            }
+        }
+    }
+
+    fn random_polygon(rng: &mut impl Rng, n: usize) -> Vec<Complex64> {
+        (0..n)
+            .map(|_| c(rng.gen_range(-10.0..10.0), rng.gen_range(-10.0..10.0)))
+            .collect()
+    }
+
+    #[test]
+    fn start_shift_direction_and_mirror_behave_as_stated() {
+        // Check values computed from the DFT shift theorem (Jähne, Fourier descriptors).
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(11);
+        let n = 7;
+        let j = 1;
+        let z = random_polygon(&mut rng, n);
+        let r = ratio_direct(&z, j);
+        for s in 1..n {
+            // Starting the walk s vertices later, z'_m = z_{m+s}, gives Z'_k = Z_k·exp(+2πi·k·s/n),
+            // so r_j turns by exp(+4πi·j·s/n); starting s vertices earlier turns it by
+            // exp(−4πi·j·s/n), the form in which the shift theorem is usually stated.
+            let later: Vec<Complex64> = (0..n).map(|m| z[(m + s) % n]).collect();
+            let earlier: Vec<Complex64> = (0..n).map(|m| z[(m + n - s) % n]).collect();
+            let ang = 2.0 * TAU * (j * s) as f64 / n as f64;
+            let turn = Complex64::new(ang.cos(), ang.sin());
+            assert!((ratio_direct(&later, j) - r * turn).norm() < 1e-9);
+            assert!((ratio_direct(&earlier, j) - r / turn).norm() < 1e-9);
+        }
+        let reversed: Vec<Complex64> = (0..n).map(|m| z[(n - m) % n]).collect();
+        let rr = ratio_direct(&reversed, j);
+        assert!((rr - 1.0 / r).norm() < 1e-9);
+        let mirrored: Vec<Complex64> = z.iter().map(|v| c(v.im, v.re)).collect();
+        let rm = ratio_direct(&mirrored, j);
+        assert!((rm - 1.0 / r.conj()).norm() < 1e-9);
+    }
+
+    #[test]
+    fn bounded_form_stays_in_the_unit_disc() {
+        for r in [c(0.0, 0.0), c(1e9, -1e9), c(-0.3, 0.2), c(f64::INFINITY, 0.0)] {
+            let b = bounded(r);
+            assert!(b[0].hypot(b[1]) <= 1.0);
+        }
+    }
+}

@@ -1,0 +1,109 @@
+//! Invariance and oracle tests of the signature stage.
+
+use super::*;
+use crate::fit::similarity::Similarity;
+use proptest::prelude::*;
+use rand::{Rng, SeedableRng};
+
+fn random_points(seed: u64, n: usize) -> Vec<[f64; 2]> {
+    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
+    (0..n)
+        .map(|_| [rng.gen_range(0.0..1000.0), rng.gen_range(0.0..1000.0)])
+        .collect()
+}
+
+fn sigs_of(points: &[[f64; 2]], params: &SignatureParams) -> Signatures {
+    let index = PointIndex::new(points).unwrap();
+    compute("test", points, &index, params, &mut |_| {}).unwrap()
+}
+
+/// Key of each landmark, indexed by landmark.
+fn key_by_landmark(s: &Signatures, n: usize) -> Vec<Option<[f64; 2]>> {
+    let mut out = vec![None; n];
+    for i in 0..s.len() {
+        out[s.landmark(i) as usize] = Some(s.keys[i]);
+    }
+    out
+}
+
+proptest! {
+    #![proptest_config(ProptestConfig::with_cases(24))]
+    #[test]
+    fn keys_are_unchanged_by_any_similarity(
+        seed in 0u64..1000,
+        scale in 0.05f64..20.0,
+        angle in -3.2f64..3.2,
+        tx in -1e6f64..1e6,
+        ty in -1e6f64..1e6,
+        angular in any::<bool>(),
+    ) {
+        let pts = random_points(seed, 300);
+        let s = Similarity::from_params(scale, angle, tx, ty);
+        let moved: Vec<[f64; 2]> = pts.iter().map(|&p| s.apply(p)).collect();
+        let params = SignatureParams {
+            order: if angular { VertexOrder::Angular } else { VertexOrder::Walk },
+            ..SignatureParams::default()
+        };
+        let a = key_by_landmark(&sigs_of(&pts, &params), pts.len());
+        let b = key_by_landmark(&sigs_of(&moved, &params), pts.len());
+        for (ka, kb) in a.iter().zip(&b) {
+            let (ka, kb) = (ka.unwrap(), kb.unwrap());
+            prop_assert!((ka[0] - kb[0]).abs() < 1e-7 && (ka[1] - kb[1]).abs() < 1e-7);
+        }
+    }
+}
+
+#[test]
+fn planned_keys_agree_with_direct_dft() {
+    let pts = random_points(9, 500);
+    let params = SignatureParams::default();
+    let s = sigs_of(&pts, &params);
+    assert_eq!(s.len(), pts.len());
+    for i in (0..s.len()).step_by(17) {
+        let z: Vec<Complex64> = s
+            .polygon(i)
+            .iter()
+            .map(|&v| Complex64::new(pts[v as usize][0], pts[v as usize][1]))
+            .collect();
+        let want = fourier::bounded(fourier::ratio_direct(&z, params.harmonic));
+        assert!((want[0] - s.keys[i][0]).abs() < 1e-9 && (want[1] - s.keys[i][1]).abs() < 1e-9);
+    }
+}
+
+#[test]
+fn mirror_maps_key_to_inverse_conjugate_for_the_walk() {
+    // Swapping the axes (the classic lat/lon mix-up) keeps distances, so the walk visits the
+    // same vertices, and the ratio becomes 1/conj(r).
+    let pts = random_points(4, 200);
+    let swapped: Vec<[f64; 2]> = pts.iter().map(|p| [p[1], p[0]]).collect();
+    let params = SignatureParams::default();
+    let a = sigs_of(&pts, &params);
+    let b = sigs_of(&swapped, &params);
+    let kb = key_by_landmark(&b, pts.len());
+    for i in 0..a.len() {
+        let k = a.keys[i];
+        // Invert the bounded map: r = key / (1 − |key|).
+        let m = k[0].hypot(k[1]);
+        let r = Complex64::new(k[0], k[1]) / (1.0 - m);
+        let want = fourier::bounded(1.0 / r.conj());
+        let got = kb[a.landmark(i) as usize].unwrap();
+        assert!((want[0] - got[0]).abs() < 1e-6 && (want[1] - got[1]).abs() < 1e-6);
+    }
+}
+
+#[test]
+fn too_few_landmarks_is_an_error() {
+    let pts = random_points(1, 4);
+    let index = PointIndex::new(&pts).unwrap();
+    let err = compute("reference", &pts, &index, &SignatureParams::default(), &mut |_| {});
+    assert!(matches!(err, Err(SignatureError::TooFewLandmarks { found: 4, needed: 5, .. })));
+}
+
+#[test]
+fn options_are_validated() {
+    let bad = SignatureParams { neighbours: 2, ..Default::default() };
+    assert!(bad.validate().is_err());
+    let bad = SignatureParams { neighbours: 5, harmonic: 3, ..Default::default() };
+    assert!(bad.validate().is_err());
+    assert!(SignatureParams::default().validate().is_ok());
+}
