@@ -57,7 +57,11 @@ pub fn summary(r: &MatchResult) -> String {
     if let (Some(max), false) = (res.last(), res.is_empty()) {
         let _ = writeln!(o, "residuals        median {:.3} m, 95th percentile {:.3} m, max {:.3} m", res[res.len() / 2], res[(res.len() * 95 / 100).min(res.len() - 1)], max);
     }
-    let _ = writeln!(o, "tolerance        {:.3} m{}", s.tolerance * mpu, if r.config.fit.tolerance_m.is_none() { " (a quarter of the reference's median spacing)" } else { "" });
+    if r.config.fit.tolerance_m.is_none() {
+        let _ = writeln!(o, "tolerance        search {:.3} m (a quarter of the reference's median spacing); inliers {:.3} m (99.9% of the residual spread)", s.search_tolerance * mpu, s.tolerance * mpu);
+    } else {
+        let _ = writeln!(o, "tolerance        {:.3} m (as given)", s.tolerance * mpu);
+    }
     let _ = writeln!(o);
     let _ = writeln!(o, "transform (target working -> reference working; rotation counter-clockwise)");
     let _ = writeln!(o, "  scale          {:.9} ± {:.9}", t.scale(), f.se_scale);

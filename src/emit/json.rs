@@ -66,6 +66,7 @@ pub fn transform_document(result: &MatchResult) -> serde_json::Value {
         },
         "thresholds": {
             "tolerance_m": s.tolerance * mpu,
+            "search_tolerance_m": s.search_tolerance * mpu,
             "tolerance_default": cfg.fit.tolerance_m.is_none(),
             "reference_spacing_m": result.reference_spacing * mpu,
             "confidence": cfg.fit.confidence,

@@ -126,8 +126,10 @@ pub struct Solution {
     pub fit: SimilarityFit,
     /// Control points, residuals under `fit.transform` (working units).
     pub pairs: Vec<Pair>,
-    /// Tolerance used, working units.
+    /// Inlier tolerance of the final control points, working units.
     pub tolerance: f64,
+    /// Tolerance of the search (RANSAC, guided matching, significance), working units.
+    pub search_tolerance: f64,
     /// The significance test.
     pub significance: Significance,
     /// RANSAC rounds and the consensus of the hypothesis that led here.
@@ -166,6 +168,8 @@ pub enum FitOutcome {
 const COARSE_ABOVE: usize = 40_000;
 /// Size of that subset, and of the subset on which decoys run.
 const COARSE_SIZE: usize = 20_000;
+/// 99.9% point of the Rayleigh distribution in units of σ: √(−2 ln 0.001).
+const RAYLEIGH_999: f64 = 3.716_922;
 /// Mirrored decoys run for the empirical chance rate.
 const DECOYS: usize = 6;
 
@@ -253,13 +257,34 @@ pub fn robust_fit(input: &FitInput, params: &FitParams, progress: &mut dyn FnMut
             params.false_alarm_level
         ));
     }
+    // With the default tolerance, tighten the inlier test to what the residuals show: 3.717 σ̂
+    // is the 99.9% point of the Rayleigh law of a 2-D residual with σ per coordinate, and σ̂
+    // comes from the median residual (Rayleigh median = σ·√(2 ln 2)), robust to the outliers
+    // still inside the search tolerance.
+    let mut g = g;
+    let mut inlier_tolerance = tolerance;
+    if params.tolerance_m.is_none() {
+        let mut res: Vec<f64> = g.pairs.iter().map(|p| p.residual).collect();
+        let mid = res.len() / 2;
+        res.select_nth_unstable_by(mid, f64::total_cmp);
+        let sigma = res[mid] / (2.0 * std::f64::consts::LN_2).sqrt();
+        let tightened = (RAYLEIGH_999 * sigma).clamp(0.02 * tolerance, tolerance);
+        if tightened < tolerance {
+            let g2 = guided(&frames, g.transform, tightened, coverage, None, 10);
+            if g2.pairs.len() >= params.min_control_points {
+                g = g2;
+                inlier_tolerance = tightened;
+            }
+        }
+    }
     let Some(fit) = guided::refit(&frames, &g.pairs) else {
         return reject("the control points are degenerate (all at one place)".into());
     };
     FitOutcome::Found(Box::new(Solution {
         fit,
         pairs: g.pairs,
-        tolerance,
+        tolerance: inlier_tolerance,
+        search_tolerance: tolerance,
         significance: sig,
         ransac_rounds: r.rounds,
         ransac_consensus: h.consensus,
