@@ -30,7 +30,7 @@ struct Cli {
 enum Command {
     /// Match a target survey to a reference survey and write control points, transform and report.
     #[command(after_help = EXIT_HELP)]
-    Match(MatchArgs),
+    Match(Box<MatchArgs>),
     /// Write the landmarks tiemark extracts from one dataset (to inspect them).
     Landmarks(LandmarksArgs),
     /// Run a pipeline file (TOML; see pipelines/ for examples).
@@ -230,7 +230,10 @@ fn main() -> ExitCode {
                         set.source.display(),
                         set.layer,
                         if set.skipped_without_geometry > 0 {
-                            format!("; {} features without geometry skipped", set.skipped_without_geometry)
+                            format!(
+                                "; {} features without geometry skipped",
+                                set.skipped_without_geometry
+                            )
                         } else {
                             String::new()
                         },

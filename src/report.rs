@@ -26,14 +26,19 @@ pub fn coverage(points: &[[f64; 2]]) -> (f64, usize) {
             hi[d] = hi[d].max(p[d]);
         }
     }
-    let cell = |p: &[f64; 2], d: usize, n: f64| (((p[d] - lo[d]) / (hi[d] - lo[d]).max(1e-12)) * n).min(n - 1.0) as usize;
+    let cell = |p: &[f64; 2], d: usize, n: f64| {
+        (((p[d] - lo[d]) / (hi[d] - lo[d]).max(1e-12)) * n).min(n - 1.0) as usize
+    };
     let mut grid = [false; 16];
     let mut quads = [0usize; 4];
     for p in points {
         grid[cell(p, 0, 4.0) + 4 * cell(p, 1, 4.0)] = true;
         quads[cell(p, 0, 2.0) + 2 * cell(p, 1, 2.0)] += 1;
     }
-    (grid.iter().filter(|c| **c).count() as f64 / 16.0, *quads.iter().min().unwrap_or(&0))
+    (
+        grid.iter().filter(|c| **c).count() as f64 / 16.0,
+        *quads.iter().min().unwrap_or(&0),
+    )
 }
 
 /// The summary of an accepted match.
@@ -43,19 +48,58 @@ pub fn summary(r: &MatchResult) -> String {
     let t = f.transform;
     let mpu = r.frame.metres_per_unit();
     let mut o = String::new();
-    let _ = writeln!(o, "tiemark {} — control points found", env!("CARGO_PKG_VERSION"));
+    let _ = writeln!(
+        o,
+        "tiemark {} — control points found",
+        env!("CARGO_PKG_VERSION")
+    );
     let _ = writeln!(o);
-    let _ = writeln!(o, "reference  {} (layer {}): {} landmarks, {}", r.reference.source.display(), r.reference.layer, r.reference.points.len(), r.frame.reference_crs.label());
-    let tcrs = r.frame.target_crs.as_ref().map(|c| c.label()).unwrap_or_else(|| "local grid (no CRS)".into());
-    let _ = writeln!(o, "target     {} (layer {}): {} landmarks, {}", r.target.source.display(), r.target.layer, r.target.points.len(), tcrs);
-    let _ = writeln!(o, "working    {} — {}", r.frame.crs.label(), r.frame.chosen_because);
+    let _ = writeln!(
+        o,
+        "reference  {} (layer {}): {} landmarks, {}",
+        r.reference.source.display(),
+        r.reference.layer,
+        r.reference.points.len(),
+        r.frame.reference_crs.label()
+    );
+    let tcrs = r
+        .frame
+        .target_crs
+        .as_ref()
+        .map(|c| c.label())
+        .unwrap_or_else(|| "local grid (no CRS)".into());
+    let _ = writeln!(
+        o,
+        "target     {} (layer {}): {} landmarks, {}",
+        r.target.source.display(),
+        r.target.layer,
+        r.target.points.len(),
+        tcrs
+    );
+    let _ = writeln!(
+        o,
+        "working    {} — {}",
+        r.frame.crs.label(),
+        r.frame.chosen_because
+    );
     let _ = writeln!(o);
     let _ = writeln!(o, "control points   {}", s.pairs.len());
-    let _ = writeln!(o, "RMSE             {:.3} m   (sigma per coordinate {:.3} m)", f.rmse * mpu, f.sigma * mpu);
+    let _ = writeln!(
+        o,
+        "RMSE             {:.3} m   (sigma per coordinate {:.3} m)",
+        f.rmse * mpu,
+        f.sigma * mpu
+    );
     let mut res: Vec<f64> = s.pairs.iter().map(|p| p.residual * mpu).collect();
     res.sort_by(f64::total_cmp);
     if let (Some(max), false) = (res.last(), res.is_empty()) {
-        let _ = writeln!(o, "residuals        median {:.3} m, 95th percentile {:.3} m, max {:.3} m", res[res.len() / 2], res[(res.len() * 95 / 100).min(res.len() - 1)], max);
+        let _ = writeln!(
+            o,
+            "residuals        median {:.3} m, 95th percentile {:.3} m, max {:.3} m",
+            res[res.len() / 2],
+            res[(res.len() * 95 / 100).min(res.len() - 1)],
+            max
+        );
     }
     if r.config.fit.tolerance_m.is_none() {
         let _ = writeln!(o, "tolerance        search {:.3} m (a quarter of the reference's median spacing); inliers {:.3} m (99.9% of the residual spread)", s.search_tolerance * mpu, s.tolerance * mpu);
@@ -63,18 +107,34 @@ pub fn summary(r: &MatchResult) -> String {
         let _ = writeln!(o, "tolerance        {:.3} m (as given)", s.tolerance * mpu);
     }
     let _ = writeln!(o);
-    let _ = writeln!(o, "transform (target working -> reference working; rotation counter-clockwise)");
+    let _ = writeln!(
+        o,
+        "transform (target working -> reference working; rotation counter-clockwise)"
+    );
     let _ = writeln!(o, "  scale          {:.9} ± {:.9}", t.scale(), f.se_scale);
-    let _ = writeln!(o, "  rotation       {:.6}° ± {:.6}°", t.rotation().to_degrees(), f.se_rotation.to_degrees());
+    let _ = writeln!(
+        o,
+        "  rotation       {:.6}° ± {:.6}°",
+        t.rotation().to_degrees(),
+        f.se_rotation.to_degrees()
+    );
     let _ = writeln!(o, "  translation x  {:.4} ± {:.4}", t.tx, f.se_tx);
     let _ = writeln!(o, "  translation y  {:.4} ± {:.4}", t.ty, f.se_ty);
-    let refpts: Vec<[f64; 2]> = s.pairs.iter().map(|p| r.frame.reference[p.reference as usize]).collect();
+    let refpts: Vec<[f64; 2]> = s
+        .pairs
+        .iter()
+        .map(|p| r.frame.reference[p.reference as usize])
+        .collect();
     let (cov, minq) = coverage(&refpts);
     let _ = writeln!(o);
     let _ = writeln!(o, "spread           {:.0}% of a 4x4 grid over the control points' extent; fewest in a quadrant: {}", cov * 100.0, minq);
     let sig = &s.significance;
     let _ = writeln!(o, "significance     {} of {} covered target landmarks paired; chance would pair {:.1}%; expected false detections < 10^{:.0}", sig.inliers, sig.trials, 100.0 * sig.chance_rate_poisson.max(sig.chance_rate_decoys), sig.log10_false_alarms.ceil());
-    let _ = writeln!(o, "signatures       {} reference, {} target; {} candidates; {} RANSAC rounds", r.counts.0, r.counts.1, r.counts.2, s.ransac_rounds);
+    let _ = writeln!(
+        o,
+        "signatures       {} reference, {} target; {} candidates; {} RANSAC rounds",
+        r.counts.0, r.counts.1, r.counts.2, s.ransac_rounds
+    );
     let _ = writeln!(o);
     let _ = writeln!(o, "CAUTION: {CAUTION}");
     o
@@ -92,13 +152,33 @@ pub fn with_files(summary: &str, files: &[PathBuf]) -> String {
 }
 
 /// The summary of a run that found no consistent transform.
-pub fn rejection(cfg: &MatchConfig, frame: &WorkingFrame, r: &Rejection, spacing: f64, counts: (usize, usize, usize)) -> String {
+pub fn rejection(
+    cfg: &MatchConfig,
+    frame: &WorkingFrame,
+    r: &Rejection,
+    spacing: f64,
+    counts: (usize, usize, usize),
+) -> String {
     let mpu = frame.metres_per_unit();
     let mut o = String::new();
-    let _ = writeln!(o, "tiemark {} — no consistent transform", env!("CARGO_PKG_VERSION"));
+    let _ = writeln!(
+        o,
+        "tiemark {} — no consistent transform",
+        env!("CARGO_PKG_VERSION")
+    );
     let _ = writeln!(o);
-    let _ = writeln!(o, "reference  {}: {} landmarks", cfg.reference.path.display(), frame.reference.len());
-    let _ = writeln!(o, "target     {}: {} landmarks", cfg.target.path.display(), frame.target.len());
+    let _ = writeln!(
+        o,
+        "reference  {}: {} landmarks",
+        cfg.reference.path.display(),
+        frame.reference.len()
+    );
+    let _ = writeln!(
+        o,
+        "target     {}: {} landmarks",
+        cfg.target.path.display(),
+        frame.target.len()
+    );
     let _ = writeln!(o, "working    {}", frame.crs.label());
     let _ = writeln!(o);
     let _ = writeln!(o, "why: {}", r.reason);

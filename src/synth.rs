@@ -79,7 +79,10 @@ pub fn make_pair(p: &SynthParams) -> SynthPair {
             reference.push(*b);
         }
         if in_tgt {
-            let noisy = [b[0] + normal.sample(&mut rng), b[1] + normal.sample(&mut rng)];
+            let noisy = [
+                b[0] + normal.sample(&mut rng),
+                b[1] + normal.sample(&mut rng),
+            ];
             target.push(to_target.apply(noisy));
         }
         if in_ref && in_tgt {
@@ -119,7 +122,9 @@ mod tests {
         let f = s.pairs.len() as f64 / 2000.0;
         assert!((f - 0.5625).abs() < 0.05, "{f}");
         for &(r, t) in &s.pairs {
-            let d = crate::spatial::dist2(truth.apply(s.target[t as usize]), s.reference[r as usize]).sqrt();
+            let d =
+                crate::spatial::dist2(truth.apply(s.target[t as usize]), s.reference[r as usize])
+                    .sqrt();
             assert!(d < 6.0 * 0.01 * s.spacing);
         }
     }

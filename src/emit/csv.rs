@@ -36,10 +36,18 @@ pub fn write_control_points(result: &MatchResult, path: &Path) -> Result<(), Emi
     let t = s.fit.transform;
     let mpu = result.frame.metres_per_unit();
     let rd = coordinate_decimals(result.frame.reference_crs.geographic);
-    let td = coordinate_decimals(result.frame.target_crs.as_ref().is_some_and(|c| c.geographic));
+    let td = coordinate_decimals(
+        result
+            .frame
+            .target_crs
+            .as_ref()
+            .is_some_and(|c| c.geographic),
+    );
     writeln!(w, "{HEADER}").map_err(io_err(path))?;
     let mut pairs = s.pairs.clone();
-    pairs.sort_by(|a, b| result.reference.ids[a.reference as usize].cmp(&result.reference.ids[b.reference as usize]));
+    pairs.sort_by(|a, b| {
+        result.reference.ids[a.reference as usize].cmp(&result.reference.ids[b.reference as usize])
+    });
     for p in &pairs {
         let (ri, ti) = (p.reference as usize, p.target as usize);
         let r = result.reference.points[ri];

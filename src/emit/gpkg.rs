@@ -8,7 +8,9 @@ use super::EmitError;
 use crate::ingest::LandmarkSet;
 use crate::pipeline::MatchResult;
 use gdal::spatial_ref::{AxisMappingStrategy, SpatialRef};
-use gdal::vector::{Feature, FieldDefn, Geometry, LayerAccess, LayerOptions, OGRFieldType, OGRwkbGeometryType};
+use gdal::vector::{
+    Feature, FieldDefn, Geometry, LayerAccess, LayerOptions, OGRFieldType, OGRwkbGeometryType,
+};
 use gdal::{Dataset, DriverManager};
 use std::path::Path;
 
@@ -25,7 +27,11 @@ fn srs_from_wkt(wkt: &str, path: &Path) -> Result<SpatialRef, EmitError> {
     Ok(srs)
 }
 
-fn add_fields<L: LayerAccess>(layer: &L, fields: &[(&str, OGRFieldType::Type)], path: &Path) -> Result<(), EmitError> {
+fn add_fields<L: LayerAccess>(
+    layer: &L,
+    fields: &[(&str, OGRFieldType::Type)],
+    path: &Path,
+) -> Result<(), EmitError> {
     for (name, ty) in fields {
         FieldDefn::new(name, *ty)
             .and_then(|d| d.add_to_layer(layer))
@@ -95,8 +101,10 @@ pub fn write_control_points(result: &MatchResult, path: &Path) -> Result<(), Emi
             )?;
             for p in &s.pairs {
                 let mut f = Feature::new(layer.defn()).map_err(&e)?;
-                f.set_field_string(0, &result.reference.ids[p.reference as usize]).map_err(&e)?;
-                f.set_field_string(1, &result.target.ids[p.target as usize]).map_err(&e)?;
+                f.set_field_string(0, &result.reference.ids[p.reference as usize])
+                    .map_err(&e)?;
+                f.set_field_string(1, &result.target.ids[p.target as usize])
+                    .map_err(&e)?;
                 f.set_field_double(2, p.residual * mpu).map_err(&e)?;
                 f.set_geometry(point(result.reference.points[p.reference as usize]).map_err(&e)?)
                     .map_err(&e)?;
@@ -125,11 +133,15 @@ pub fn write_control_points(result: &MatchResult, path: &Path) -> Result<(), Emi
                 let end_w = result.frame.reference[p.reference as usize];
                 let len = crate::spatial::dist2(*start_w, end_w).sqrt() * mpu;
                 let mut f = Feature::new(layer.defn()).map_err(&e)?;
-                f.set_field_string(0, &result.reference.ids[p.reference as usize]).map_err(&e)?;
-                f.set_field_string(1, &result.target.ids[p.target as usize]).map_err(&e)?;
-                f.set_field_double(2, len).map_err(&e)?;
-                f.set_geometry(line(*start, result.reference.points[p.reference as usize]).map_err(&e)?)
+                f.set_field_string(0, &result.reference.ids[p.reference as usize])
                     .map_err(&e)?;
+                f.set_field_string(1, &result.target.ids[p.target as usize])
+                    .map_err(&e)?;
+                f.set_field_double(2, len).map_err(&e)?;
+                f.set_geometry(
+                    line(*start, result.reference.points[p.reference as usize]).map_err(&e)?,
+                )
+                .map_err(&e)?;
                 f.create(&layer).map_err(&e)?;
             }
         }
@@ -164,7 +176,12 @@ pub fn write_landmarks(set: &LandmarkSet, path: &Path, ext: &str) -> Result<(), 
     Ok(())
 }
 
-fn fill_landmarks(ds: &mut Dataset, set: &LandmarkSet, srs: Option<&SpatialRef>, path: &Path) -> Result<(), EmitError> {
+fn fill_landmarks(
+    ds: &mut Dataset,
+    set: &LandmarkSet,
+    srs: Option<&SpatialRef>,
+    path: &Path,
+) -> Result<(), EmitError> {
     let e = gdal_err(path);
     let layer = ds
         .create_layer(LayerOptions {

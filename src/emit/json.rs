@@ -26,9 +26,7 @@ pub fn transform_document(result: &MatchResult) -> serde_json::Value {
         let q = result.frame.target[p.target as usize];
         [a[0] + q[0] / n, a[1] + q[1] / n]
     });
-    let crs_doc = |c: &crate::landmarks::crs::Crs| {
-        json!({"authority": c.authority, "name": c.name, "wkt": c.wkt})
-    };
+    let crs_doc = |c: &crate::landmarks::crs::Crs| json!({"authority": c.authority, "name": c.name, "wkt": c.wkt});
     json!({
         "tool": "tiemark",
         "version": env!("CARGO_PKG_VERSION"),
@@ -88,6 +86,7 @@ pub fn transform_document(result: &MatchResult) -> serde_json::Value {
 
 /// Writes `transform.json`.
 pub fn write_transform(result: &MatchResult, path: &Path) -> Result<(), EmitError> {
-    let text = serde_json::to_string_pretty(&transform_document(result)).expect("JSON values serialise");
+    let text =
+        serde_json::to_string_pretty(&transform_document(result)).expect("JSON values serialise");
     std::fs::write(path, text + "\n").map_err(io_err(path))
 }

@@ -33,7 +33,12 @@ use crate::pipeline::MatchResult;
 use std::path::{Path, PathBuf};
 
 /// Names of the files a match writes.
-pub const FILES: [&str; 4] = ["control-points.csv", "control-points.gpkg", "transform.json", "report.txt"];
+pub const FILES: [&str; 4] = [
+    "control-points.csv",
+    "control-points.gpkg",
+    "transform.json",
+    "report.txt",
+];
 
 /// Writing failed.
 #[derive(Debug, thiserror::Error)]
@@ -87,7 +92,10 @@ pub fn check_output_dir(dir: &Path, force: bool) -> Result<(), EmitError> {
     if !dir.is_dir() {
         return Err(EmitError::NotADirectory(dir.to_path_buf()));
     }
-    let non_empty = std::fs::read_dir(dir).map_err(io_err(dir))?.next().is_some();
+    let non_empty = std::fs::read_dir(dir)
+        .map_err(io_err(dir))?
+        .next()
+        .is_some();
     if non_empty && !force {
         return Err(EmitError::NotEmpty(dir.to_path_buf()));
     }
@@ -107,7 +115,10 @@ impl Staging {
             _ => PathBuf::from("."),
         };
         std::fs::create_dir_all(&parent).map_err(io_err(&parent))?;
-        let name = target.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default();
+        let name = target
+            .file_name()
+            .map(|n| n.to_string_lossy().to_string())
+            .unwrap_or_default();
         let path = parent.join(format!(".{name}.tiemark-partial-{}", std::process::id()));
         if path.exists() {
             std::fs::remove_dir_all(&path).map_err(io_err(&path))?;

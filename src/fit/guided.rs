@@ -119,7 +119,8 @@ pub fn guided(
             break;
         }
         rounds += 1;
-        let (next, next_covered) = mutual_pairs(frames, &fit.transform, tolerance, coverage, subset);
+        let (next, next_covered) =
+            mutual_pairs(frames, &fit.transform, tolerance, coverage, subset);
         let same = next.len() == pairs.len()
             && next
                 .iter()

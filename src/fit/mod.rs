@@ -174,7 +174,11 @@ const RAYLEIGH_999: f64 = 3.716_922;
 const DECOYS: usize = 6;
 
 /// Runs RANSAC, guided matching and the significance test.
-pub fn robust_fit(input: &FitInput, params: &FitParams, progress: &mut dyn FnMut(&str)) -> FitOutcome {
+pub fn robust_fit(
+    input: &FitInput,
+    params: &FitParams,
+    progress: &mut dyn FnMut(&str),
+) -> FitOutcome {
     let tolerance = match params.tolerance_m {
         Some(t) => t / input.metres_per_unit,
         None => 0.25 * input.reference_spacing,
@@ -213,7 +217,8 @@ pub fn robust_fit(input: &FitInput, params: &FitParams, progress: &mut dyn FnMut
         });
     }
     progress("guided matching");
-    let coarse: Option<Vec<u32>> = (input.target.len() > COARSE_ABOVE).then(|| spread_subset(input.target, COARSE_SIZE));
+    let coarse: Option<Vec<u32>> =
+        (input.target.len() > COARSE_ABOVE).then(|| spread_subset(input.target, COARSE_SIZE));
     let mut best: Option<(guided::Guided, &ransac::Hypothesis)> = None;
     for h in &r.best {
         let mut start = h.transform;
@@ -221,7 +226,10 @@ pub fn robust_fit(input: &FitInput, params: &FitParams, progress: &mut dyn FnMut
             start = guided(&frames, start, tolerance, coverage, Some(sub), 20).transform;
         }
         let g = guided(&frames, start, tolerance, coverage, None, 20);
-        if best.as_ref().is_none_or(|(b, _)| g.pairs.len() > b.pairs.len()) {
+        if best
+            .as_ref()
+            .is_none_or(|(b, _)| g.pairs.len() > b.pairs.len())
+        {
             best = Some((g, h));
         }
     }
@@ -303,7 +311,13 @@ fn spread_subset(points: &[[f64; 2]], n: usize) -> Vec<u32> {
 /// The highest inlier rate guided matching reaches from mirror images of the target: a spread
 /// subset of at most 5000 target landmarks reflected about its centroid (along an axis at a seeded random angle), then placed by
 /// `s`. No similarity can align a mirror image of a real scene, so what it reaches is chance.
-fn decoy_chance_rate(frames: &Frames, s: &Similarity, tolerance: f64, coverage: f64, seed: u64) -> f64 {
+fn decoy_chance_rate(
+    frames: &Frames,
+    s: &Similarity,
+    tolerance: f64,
+    coverage: f64,
+    seed: u64,
+) -> f64 {
     use rand::{Rng, SeedableRng};
     let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed ^ 0x5eed_dec0);
     let subset = spread_subset(frames.target, 5_000);

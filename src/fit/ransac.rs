@@ -110,11 +110,18 @@ impl Scorer<'_> {
 
 /// The similarity that maps candidate `c`'s target polygon onto its reference polygon, if they
 /// agree within `tolerance` (RMS over the vertices).
-pub fn polygon_hypothesis(input: &RansacInput, c: &Candidate, tolerance: f64) -> Option<Similarity> {
+pub fn polygon_hypothesis(
+    input: &RansacInput,
+    c: &Candidate,
+    tolerance: f64,
+) -> Option<Similarity> {
     let tp = input.target_signatures.polygon(c.target as usize);
     let rp = input.reference_signatures.polygon(c.reference as usize);
     let fit = fit_similarity_indexed(tp.len(), |i| {
-        (input.target[tp[i] as usize], input.reference[rp[i] as usize])
+        (
+            input.target[tp[i] as usize],
+            input.reference[rp[i] as usize],
+        )
     })?;
     (fit.transform.is_valid() && fit.rmse <= tolerance).then_some(fit.transform)
 }
@@ -190,7 +197,15 @@ pub fn ransac(input: &RansacInput, params: &RansacParams) -> RansacOutcome {
                     None => break,
                 }
             }
-            keep_best(&mut out.best, Hypothesis { transform: h, consensus: score }, params, &probe);
+            keep_best(
+                &mut out.best,
+                Hypothesis {
+                    transform: h,
+                    consensus: score,
+                },
+                params,
+                &probe,
+            );
             if score > best_consensus {
                 best_consensus = score;
                 needed = sample_count(params.confidence, best_consensus as f64 / sample, 1)
@@ -204,11 +219,16 @@ pub fn ransac(input: &RansacInput, params: &RansacParams) -> RansacOutcome {
 }
 
 /// Keeps the `keep` best hypotheses that map the target's extent to clearly different places.
-fn keep_best(best: &mut Vec<Hypothesis>, h: Hypothesis, params: &RansacParams, probe: &[[f64; 2]; 4]) {
+fn keep_best(
+    best: &mut Vec<Hypothesis>,
+    h: Hypothesis,
+    params: &RansacParams,
+    probe: &[[f64; 2]; 4],
+) {
     let same = |a: &Similarity, b: &Similarity| {
-        probe
-            .iter()
-            .all(|&p| crate::spatial::dist2(a.apply(p), b.apply(p)) < 4.0 * params.tolerance.powi(2))
+        probe.iter().all(|&p| {
+            crate::spatial::dist2(a.apply(p), b.apply(p)) < 4.0 * params.tolerance.powi(2)
+        })
     };
     if let Some(pos) = best.iter().position(|b| same(&b.transform, &h.transform)) {
         if best[pos].consensus >= h.consensus {
@@ -231,5 +251,10 @@ fn extent_probe(points: &[[f64; 2]]) -> [[f64; 2]; 4] {
             hi[d] = hi[d].max(p[d]);
         }
     }
-    [[lo[0], lo[1]], [hi[0], lo[1]], [hi[0], hi[1]], [lo[0], hi[1]]]
+    [
+        [lo[0], lo[1]],
+        [hi[0], lo[1]],
+        [hi[0], hi[1]],
+        [lo[0], hi[1]],
+    ]
 }

@@ -67,7 +67,13 @@ pub struct Significance {
 
 impl Significance {
     /// Computes the test.
-    pub fn new(trials: usize, inliers: usize, poisson: f64, decoys: f64, hypotheses: usize) -> Self {
+    pub fn new(
+        trials: usize,
+        inliers: usize,
+        poisson: f64,
+        decoys: f64,
+        hypotheses: usize,
+    ) -> Self {
         let p0 = poisson.max(decoys).min(0.999_999);
         let log10_false_alarms =
             (hypotheses.max(1) as f64).log10() + log10_tail_bound(inliers, trials, p0);
@@ -110,7 +116,10 @@ mod tests {
             for k in 0..=n {
                 let exact = exact_tail(k, n, p);
                 let bound = 10f64.powf(log10_tail_bound(k, n, p));
-                assert!(bound >= exact * (1.0 - 1e-9), "n={n} p={p} k={k}: {bound} < {exact}");
+                assert!(
+                    bound >= exact * (1.0 - 1e-9),
+                    "n={n} p={p} k={k}: {bound} < {exact}"
+                );
             }
         }
     }

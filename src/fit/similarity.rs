@@ -276,7 +276,10 @@ mod tests {
                 .iter()
                 .map(|&p| {
                     let q = truth.apply(p);
-                    [q[0] + sigma * normal.sample(&mut rng), q[1] + sigma * normal.sample(&mut rng)]
+                    [
+                        q[0] + sigma * normal.sample(&mut rng),
+                        q[1] + sigma * normal.sample(&mut rng),
+                    ]
                 })
                 .collect();
             let fit = fit_similarity(&from, &to).unwrap();
@@ -287,6 +290,9 @@ mod tests {
         let sd = (scales.iter().map(|s| (s - mean).powi(2)).sum::<f64>()
             / (scales.len() - 1) as f64)
             .sqrt();
-        assert!((sd / predicted - 1.0).abs() < 0.1, "sd {sd} predicted {predicted}");
+        assert!(
+            (sd / predicted - 1.0).abs() < 0.1,
+            "sd {sd} predicted {predicted}"
+        );
     }
 }

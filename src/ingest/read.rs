@@ -40,11 +40,13 @@ pub fn read_landmarks(path: &Path, options: &IngestOptions) -> Result<LandmarkSe
         });
     }
     let mut layer = match &options.layer {
-        Some(name) => ds.layer_by_name(name).map_err(|_| IngestError::UnknownLayer {
-            path: path.to_path_buf(),
-            layer: name.clone(),
-            available: ds.layers().map(|l| l.name()).collect::<Vec<_>>().join(", "),
-        })?,
+        Some(name) => ds
+            .layer_by_name(name)
+            .map_err(|_| IngestError::UnknownLayer {
+                path: path.to_path_buf(),
+                layer: name.clone(),
+                available: ds.layers().map(|l| l.name()).collect::<Vec<_>>().join(", "),
+            })?,
         None => ds.layer(0).map_err(|e| IngestError::Gdal {
             path: path.to_path_buf(),
             detail: e.to_string(),

@@ -119,7 +119,10 @@ fn proj_definition(definition: &str, authority: &Option<String>, wkt: &str) -> S
 
 fn shorten(s: &str) -> String {
     if s.len() > 80 {
-        format!("{}…", &s[..s.char_indices().nth(77).map(|c| c.0).unwrap_or(s.len())])
+        format!(
+            "{}…",
+            &s[..s.char_indices().nth(77).map(|c| c.0).unwrap_or(s.len())]
+        )
     } else {
         s.to_string()
     }
@@ -135,13 +138,14 @@ pub struct Converter {
 impl Converter {
     /// Prepares a conversion.
     pub fn new(from: &Crs, to: &Crs) -> Result<Converter, CrsError> {
-        let proj = Proj::new_known_crs(&from.proj_string(), &to.proj_string(), None).map_err(|e| {
-            CrsError::NoConversion {
-                from: from.label(),
-                to: to.label(),
-                detail: e.to_string(),
-            }
-        })?;
+        let proj =
+            Proj::new_known_crs(&from.proj_string(), &to.proj_string(), None).map_err(|e| {
+                CrsError::NoConversion {
+                    from: from.label(),
+                    to: to.label(),
+                    detail: e.to_string(),
+                }
+            })?;
         Ok(Converter {
             proj,
             from: from.label(),
@@ -211,8 +215,14 @@ mod tests {
             "test",
         )
         .unwrap();
-        let p = Converter::new(&from, &to).unwrap().convert([-73.5, 40.5]).unwrap();
-        assert!((p[0] - 127106.5).abs() < 0.1 && (p[1] - 4484124.4).abs() < 0.1, "{p:?}");
+        let p = Converter::new(&from, &to)
+            .unwrap()
+            .convert([-73.5, 40.5])
+            .unwrap();
+        assert!(
+            (p[0] - 127106.5).abs() < 0.1 && (p[1] - 4484124.4).abs() < 0.1,
+            "{p:?}"
+        );
     }
 
     #[test]

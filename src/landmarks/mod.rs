@@ -151,8 +151,17 @@ impl WorkingFrame {
     }
 }
 
-fn crs_of(set: &LandmarkSet, given: &Option<String>, option: &str, is_target: bool) -> Result<Option<Crs>, FrameError> {
-    let what = format!("{} ({})", if is_target { "target" } else { "reference" }, set.source.display());
+fn crs_of(
+    set: &LandmarkSet,
+    given: &Option<String>,
+    option: &str,
+    is_target: bool,
+) -> Result<Option<Crs>, FrameError> {
+    let what = format!(
+        "{} ({})",
+        if is_target { "target" } else { "reference" },
+        set.source.display()
+    );
     match given.as_deref() {
         Some(s) if s.eq_ignore_ascii_case(LOCAL) => {
             if is_target {
@@ -220,8 +229,20 @@ fn convert_all(set: &LandmarkSet, from: &Crs, to: &Crs) -> Result<Vec<[f64; 2]>,
 
 fn extent(pts: &[[f64; 2]]) -> [f64; 4] {
     pts.iter().fold(
-        [f64::INFINITY, f64::NEG_INFINITY, f64::INFINITY, f64::NEG_INFINITY],
-        |e, p| [e[0].min(p[0]), e[1].max(p[0]), e[2].min(p[1]), e[3].max(p[1])],
+        [
+            f64::INFINITY,
+            f64::NEG_INFINITY,
+            f64::INFINITY,
+            f64::NEG_INFINITY,
+        ],
+        |e, p| {
+            [
+                e[0].min(p[0]),
+                e[1].max(p[0]),
+                e[2].min(p[1]),
+                e[3].max(p[1]),
+            ]
+        },
     )
 }
 
@@ -240,7 +261,9 @@ pub fn working_frame(
     }
     let (crs, chosen_because) = match &options.working_crs {
         Some(w) => (Crs::parse(w, "working CRS")?, "asked for".to_string()),
-        None if !reference_crs.geographic => (reference_crs.clone(), "the reference's CRS".to_string()),
+        None if !reference_crs.geographic => {
+            (reference_crs.clone(), "the reference's CRS".to_string())
+        }
         None => {
             let e = extent(&reference.points);
             let (lon, lat) = ((e[0] + e[1]) / 2.0, (e[2] + e[3]) / 2.0);

@@ -155,7 +155,11 @@ impl MatchConfig {
             message: describe_toml_error(&text, &e),
         })?;
         let base = path.parent().unwrap_or(Path::new("."));
-        for p in [&mut cfg.reference.path, &mut cfg.target.path, &mut cfg.output.dir] {
+        for p in [
+            &mut cfg.reference.path,
+            &mut cfg.target.path,
+            &mut cfg.output.dir,
+        ] {
             if p.is_relative() {
                 *p = base.join(&*p);
             }
@@ -180,7 +184,12 @@ fn describe_toml_error(text: &str, e: &toml::de::Error) -> String {
         Some(span) => {
             let before = &text[..span.start.min(text.len())];
             let line = before.matches('\n').count() + 1;
-            let col = before.rsplit('\n').next().map(|l| l.chars().count()).unwrap_or(0) + 1;
+            let col = before
+                .rsplit('\n')
+                .next()
+                .map(|l| l.chars().count())
+                .unwrap_or(0)
+                + 1;
             format!("line {line}, column {col}: {msg}")
         }
         None => msg,

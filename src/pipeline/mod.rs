@@ -102,7 +102,8 @@ pub fn run_match(config: &MatchConfig, quiet: bool) -> Result<MatchOutcome, Erro
     let progress = Progress::new(quiet);
 
     let spin = progress.spinner("reading surveys");
-    let reference = ingest::read_landmarks(&config.reference.path, &ingest_options(&config.reference))?;
+    let reference =
+        ingest::read_landmarks(&config.reference.path, &ingest_options(&config.reference))?;
     let target = ingest::read_landmarks(&config.target.path, &ingest_options(&config.target))?;
     spin.finish_and_clear();
     let frame = landmarks::working_frame(
@@ -116,7 +117,11 @@ pub fn run_match(config: &MatchConfig, quiet: bool) -> Result<MatchOutcome, Erro
     )?;
     let solved = solve(config, &frame, &progress, &reference.source, &target.source)?;
     match solved {
-        Solved::Found { solution, spacing, counts } => {
+        Solved::Found {
+            solution,
+            spacing,
+            counts,
+        } => {
             let result = MatchResult {
                 config: config.clone(),
                 reference,
@@ -135,7 +140,11 @@ pub fn run_match(config: &MatchConfig, quiet: bool) -> Result<MatchOutcome, Erro
                 summary,
             })
         }
-        Solved::NotFound { rejection, spacing, counts } => {
+        Solved::NotFound {
+            rejection,
+            spacing,
+            counts,
+        } => {
             let summary = crate::report::rejection(config, &frame, &rejection, spacing, counts);
             Ok(MatchOutcome::NoTransform { rejection, summary })
         }
@@ -179,7 +188,15 @@ pub fn solve(
     let ti = PointIndex::new(&frame.target).ok_or_else(|| Error::Degenerate {
         path: target_path.to_path_buf(),
     })?;
-    solve_points(config, &frame.reference, &frame.target, &ri, &ti, frame.metres_per_unit(), progress)
+    solve_points(
+        config,
+        &frame.reference,
+        &frame.target,
+        &ri,
+        &ti,
+        frame.metres_per_unit(),
+        progress,
+    )
 }
 
 /// As [`solve`], on plain point arrays with their indexes.
@@ -192,15 +209,23 @@ pub fn solve_points(
     metres_per_unit: f64,
     progress: &Progress,
 ) -> Result<Solved, Error> {
-    let spacing = median_spacing(reference, ri, 10_000).unwrap_or(1.0).max(f64::MIN_POSITIVE);
+    let spacing = median_spacing(reference, ri, 10_000)
+        .unwrap_or(1.0)
+        .max(f64::MIN_POSITIVE);
     let bar = progress.bar(reference.len() as u64, "reference signatures");
-    let rs = signatures::compute("reference", reference, ri, &config.signatures, &mut |n| bar.set_position(n as u64))?;
+    let rs = signatures::compute("reference", reference, ri, &config.signatures, &mut |n| {
+        bar.set_position(n as u64)
+    })?;
     bar.finish_and_clear();
     let bar = progress.bar(target.len() as u64, "target signatures");
-    let ts = signatures::compute("target", target, ti, &config.signatures, &mut |n| bar.set_position(n as u64))?;
+    let ts = signatures::compute("target", target, ti, &config.signatures, &mut |n| {
+        bar.set_position(n as u64)
+    })?;
     bar.finish_and_clear();
     let bar = progress.bar(ts.len() as u64, "matching signatures");
-    let cands = matching::candidates(&rs, &ts, config.matching.candidates, &mut |n| bar.set_position(n as u64));
+    let cands = matching::candidates(&rs, &ts, config.matching.candidates, &mut |n| {
+        bar.set_position(n as u64)
+    });
     bar.finish_and_clear();
     let counts = (rs.len(), ts.len(), cands.len());
     let spin = progress.spinner("robust fit");
@@ -215,11 +240,21 @@ pub fn solve_points(
         metres_per_unit,
         reference_spacing: spacing,
     };
-    let outcome = fit::robust_fit(&input, &config.fit, &mut |m| spin.set_message(m.to_string()));
+    let outcome = fit::robust_fit(&input, &config.fit, &mut |m| {
+        spin.set_message(m.to_string())
+    });
     spin.finish_and_clear();
     Ok(match outcome {
-        FitOutcome::Found(solution) => Solved::Found { solution, spacing, counts },
-        FitOutcome::NotFound(rejection) => Solved::NotFound { rejection, spacing, counts },
+        FitOutcome::Found(solution) => Solved::Found {
+            solution,
+            spacing,
+            counts,
+        },
+        FitOutcome::NotFound(rejection) => Solved::NotFound {
+            rejection,
+            spacing,
+            counts,
+        },
     })
 }
 

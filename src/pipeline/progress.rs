@@ -40,7 +40,9 @@ impl Progress {
             ProgressDrawTarget::stderr()
         };
         let bar = ProgressBar::with_draw_target(None, target);
-        bar.set_style(ProgressStyle::with_template("{spinner} {msg} ({elapsed})").expect("static template"));
+        bar.set_style(
+            ProgressStyle::with_template("{spinner} {msg} ({elapsed})").expect("static template"),
+        );
         bar.set_message(stage.to_string());
         bar.enable_steady_tick(std::time::Duration::from_millis(120));
         bar

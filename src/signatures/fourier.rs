@@ -27,7 +27,10 @@ impl RatioPlan {
     /// When `n < 3` or `j == 0` or `2j == n` (programmer error: the options are validated
     /// before this is called).
     pub fn new(n: usize, j: usize) -> Self {
-        assert!(n >= 3 && j >= 1 && 2 * j != n && j < n, "bad polygon length {n} or harmonic {j}");
+        assert!(
+            n >= 3 && j >= 1 && 2 * j != n && j < n,
+            "bad polygon length {n} or harmonic {j}"
+        );
         let fft = FftPlanner::new().plan_fft_forward(n);
         let scratch = vec![Complex64::new(0.0, 0.0); fft.get_inplace_scratch_len()];
         RatioPlan { fft, n, j, scratch }
@@ -117,7 +120,12 @@ mod tests {
             assert_relative_eq!(dft_coefficient(&delta, k).im, 0.0, epsilon = 1e-12);
         }
         let harmonic: Vec<Complex64> = (0..n)
-            .map(|m| c((TAU * m as f64 / n as f64).cos(), (TAU * m as f64 / n as f64).sin()))
+            .map(|m| {
+                c(
+                    (TAU * m as f64 / n as f64).cos(),
+                    (TAU * m as f64 / n as f64).sin(),
+                )
+            })
             .collect();
         assert_relative_eq!(dft_coefficient(&harmonic, 1).re, n as f64, epsilon = 1e-9);
         for k in [0, 2, 3, 6] {
@@ -182,7 +190,12 @@ mod tests {
 
     #[test]
     fn bounded_form_stays_in_the_unit_disc() {
-        for r in [c(0.0, 0.0), c(1e9, -1e9), c(-0.3, 0.2), c(f64::INFINITY, 0.0)] {
+        for r in [
+            c(0.0, 0.0),
+            c(1e9, -1e9),
+            c(-0.3, 0.2),
+            c(f64::INFINITY, 0.0),
+        ] {
             let b = bounded(r);
             assert!(b[0].hypot(b[1]) <= 1.0);
         }

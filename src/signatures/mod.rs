@@ -166,10 +166,9 @@ pub fn compute(
             }
             neighbourhood::order_polygon(params.order, points, c, &nbrs, &mut poly);
             let o = points[c as usize];
-            buffer.extend(
-                poly.iter()
-                    .map(|&v| Complex64::new(points[v as usize][0] - o[0], points[v as usize][1] - o[1])),
-            );
+            buffer.extend(poly.iter().map(|&v| {
+                Complex64::new(points[v as usize][0] - o[0], points[v as usize][1] - o[1])
+            }));
             chunk_polys.extend_from_slice(&poly);
         }
         plan.ratios(&mut buffer, &mut ratios);
@@ -177,7 +176,8 @@ pub fn compute(
             let key = fourier::bounded(*r);
             if key[0].is_finite() && key[1].is_finite() {
                 sigs.keys.push(key);
-                sigs.polygons.extend_from_slice(&chunk_polys[i * n..(i + 1) * n]);
+                sigs.polygons
+                    .extend_from_slice(&chunk_polys[i * n..(i + 1) * n]);
             }
         }
         progress(((done + 1) * CHUNK).min(points.len()));

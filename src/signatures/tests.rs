@@ -95,15 +95,35 @@ fn mirror_maps_key_to_inverse_conjugate_for_the_walk() {
 fn too_few_landmarks_is_an_error() {
     let pts = random_points(1, 4);
     let index = PointIndex::new(&pts).unwrap();
-    let err = compute("reference", &pts, &index, &SignatureParams::default(), &mut |_| {});
-    assert!(matches!(err, Err(SignatureError::TooFewLandmarks { found: 4, needed: 5, .. })));
+    let err = compute(
+        "reference",
+        &pts,
+        &index,
+        &SignatureParams::default(),
+        &mut |_| {},
+    );
+    assert!(matches!(
+        err,
+        Err(SignatureError::TooFewLandmarks {
+            found: 4,
+            needed: 5,
+            ..
+        })
+    ));
 }
 
 #[test]
 fn options_are_validated() {
-    let bad = SignatureParams { neighbours: 2, ..Default::default() };
+    let bad = SignatureParams {
+        neighbours: 2,
+        ..Default::default()
+    };
     assert!(bad.validate().is_err());
-    let bad = SignatureParams { neighbours: 5, harmonic: 3, ..Default::default() };
+    let bad = SignatureParams {
+        neighbours: 5,
+        harmonic: 3,
+        ..Default::default()
+    };
     assert!(bad.validate().is_err());
     assert!(SignatureParams::default().validate().is_ok());
 }
