@@ -196,6 +196,8 @@ pub fn robust_fit(
     let rin = ransac::RansacInput {
         reference: input.reference,
         target: input.target,
+        reference_index: input.reference_index,
+        target_index: input.target_index,
         reference_signatures: input.reference_signatures,
         target_signatures: input.target_signatures,
         candidates: input.candidates,

@@ -3,25 +3,36 @@
 //! Each round draws two hypotheses (Fischler & Bolles, CACM 24(6), 1981):
 //! - a **1-signature hypothesis**: one candidate's two polygons give k + 1 point pairs, fitted in
 //!   closed form; it is kept only if the polygons agree within the tolerance (a wrong key match
-//!   almost never does);
+//!   rarely does);
 //! - a **2-point hypothesis**: the exact similarity through the landmarks of two candidates.
 //!
-//! A hypothesis is scored by its consensus: the candidates (from a fixed, seeded sample of at
-//! most [`SCORE_SAMPLE`]) whose target landmark it maps within the tolerance of their reference
-//! landmark. When a hypothesis beats the best so far it is refitted on its consensus, twice
-//! (the local optimisation of LO-RANSAC, Chum, Matas & Kittler, DAGM 2003). Rounds stop when
-//! the standard sample count for the confidence and the best inlier ratio so far (with s = 1,
-//! since every round includes a 1-signature hypothesis) is reached, or at `max_rounds`.
+//! A hypothesis first has to pass a cheap local pre-test (in the spirit of the T(d,d) test of
+//! Matas & Chum, BMVC 2002): of the [`LOCAL_RING`] target landmarks just beyond the polygon,
+//! at least [`LOCAL_HITS`] must land within the tolerance of a reference landmark. Only then is
+//! its consensus counted: the landmarks of a fixed, spread sample of at most [`SCORE_SAMPLE`]
+//! target landmarks that it maps within the tolerance of a reference landmark. A new best is
+//! refitted on its consensus (the local optimisation of LO-RANSAC, Chum, Matas & Kittler,
+//! DAGM 2003).
+//!
+//! Stopping: the inlier ratio w of the sample-count formula is the share of candidates drawn so
+//! far whose landmarks the best hypothesis maps onto each other; rounds stop once the standard
+//! count for the confidence (with s = 1, since every round has a 1-signature hypothesis) is
+//! reached, or at `max_rounds`. The first rounds take candidates in order of key distance (the
+//! ordered sampling of PROSAC, Chum & Matas, CVPR 2005), later ones at random.
 
 use super::sample_count::sample_count;
 use super::similarity::{fit_similarity_indexed, similarity_from_two, Similarity};
 use crate::matching::Candidate;
 use crate::signatures::Signatures;
-use rand::seq::SliceRandom;
+use crate::spatial::{dist2, morton_order, PointIndex};
 use rand::{Rng, SeedableRng};
 
-/// Most candidates used to score one hypothesis.
-pub const SCORE_SAMPLE: usize = 20_000;
+/// Target landmarks scored per hypothesis (a spread sample).
+pub const SCORE_SAMPLE: usize = 2_000;
+/// Landmarks beyond the polygon looked at by the local pre-test.
+pub const LOCAL_RING: usize = 8;
+/// Of those, how many must land on a reference landmark.
+pub const LOCAL_HITS: usize = 4;
 
 /// What RANSAC needs to see.
 pub struct RansacInput<'a> {
@@ -29,6 +40,10 @@ pub struct RansacInput<'a> {
     pub reference: &'a [[f64; 2]],
     /// Target landmarks (working frame).
     pub target: &'a [[f64; 2]],
+    /// k-d tree of `reference`.
+    pub reference_index: &'a PointIndex,
+    /// k-d tree of `target`.
+    pub target_index: &'a PointIndex,
     /// Reference signatures.
     pub reference_signatures: &'a Signatures,
     /// Target signatures.
@@ -75,34 +90,72 @@ pub struct RansacOutcome {
 }
 
 struct Scorer<'a> {
-    pairs: Vec<([f64; 2], [f64; 2])>,
     input: &'a RansacInput<'a>,
+    sample: Vec<u32>,
     tol2: f64,
+    scratch: Vec<(u32, f64)>,
 }
 
 impl Scorer<'_> {
-    fn consensus(&self, s: &Similarity) -> usize {
-        self.pairs
-            .iter()
-            .filter(|(t, r)| crate::spatial::dist2(s.apply(*t), *r) < self.tol2)
-            .count()
+    /// True when `t` lands within the tolerance of some reference landmark under `s`.
+    #[inline]
+    fn hits(&self, s: &Similarity, t: u32) -> bool {
+        self.input
+            .reference_index
+            .nearest(s.apply(self.input.target[t as usize]))
+            .is_some_and(|(_, d2)| d2 < self.tol2)
     }
 
+    /// The local pre-test around target landmark `t0`, skipping the first `skip` neighbours.
+    fn local_test(&mut self, s: &Similarity, t0: u32, skip: usize) -> bool {
+        let p = self.input.target[t0 as usize];
+        let mut ring = std::mem::take(&mut self.scratch);
+        self.input.target_index.nearest_n(p, skip + LOCAL_RING, &mut ring);
+        let mut hits = 0;
+        let mut misses = 0;
+        for &(t, _) in ring.iter().skip(skip) {
+            if self.hits(s, t) {
+                hits += 1;
+                if hits >= LOCAL_HITS {
+                    break;
+                }
+            } else {
+                misses += 1;
+                if misses > LOCAL_RING - LOCAL_HITS {
+                    break;
+                }
+            }
+        }
+        self.scratch = ring;
+        hits >= LOCAL_HITS
+    }
+
+    fn consensus(&self, s: &Similarity) -> usize {
+        self.sample.iter().filter(|&&t| self.hits(s, t)).count()
+    }
+
+    /// Least-squares refit on the sample landmarks `s` maps onto a reference landmark.
     fn refit_on_consensus(&self, s: &Similarity) -> Option<Similarity> {
-        let inl: Vec<&([f64; 2], [f64; 2])> = self
-            .pairs
+        let pairs: Vec<([f64; 2], [f64; 2])> = self
+            .sample
             .iter()
-            .filter(|(t, r)| crate::spatial::dist2(s.apply(*t), *r) < self.tol2)
+            .filter_map(|&t| {
+                let q = self.input.target[t as usize];
+                let (r, d2) = self.input.reference_index.nearest(s.apply(q))?;
+                (d2 < self.tol2).then(|| (q, self.input.reference[r as usize]))
+            })
             .collect();
-        fit_similarity_indexed(inl.len(), |i| (inl[i].0, inl[i].1))
+        fit_similarity_indexed(pairs.len(), |i| pairs[i])
             .map(|f| f.transform)
             .filter(|t| t.is_valid())
     }
 
-    fn centres(&self, c: &Candidate) -> ([f64; 2], [f64; 2]) {
+    fn centres(&self, c: &Candidate) -> (u32, [f64; 2], [f64; 2]) {
         let i = self.input;
+        let t = i.target_signatures.landmark(c.target as usize);
         (
-            i.target[i.target_signatures.landmark(c.target as usize) as usize],
+            t,
+            i.target[t as usize],
             i.reference[i.reference_signatures.landmark(c.reference as usize) as usize],
         )
     }
@@ -110,18 +163,11 @@ impl Scorer<'_> {
 
 /// The similarity that maps candidate `c`'s target polygon onto its reference polygon, if they
 /// agree within `tolerance` (RMS over the vertices).
-pub fn polygon_hypothesis(
-    input: &RansacInput,
-    c: &Candidate,
-    tolerance: f64,
-) -> Option<Similarity> {
+pub fn polygon_hypothesis(input: &RansacInput, c: &Candidate, tolerance: f64) -> Option<Similarity> {
     let tp = input.target_signatures.polygon(c.target as usize);
     let rp = input.reference_signatures.polygon(c.reference as usize);
     let fit = fit_similarity_indexed(tp.len(), |i| {
-        (
-            input.target[tp[i] as usize],
-            input.reference[rp[i] as usize],
-        )
+        (input.target[tp[i] as usize], input.reference[rp[i] as usize])
     })?;
     (fit.transform.is_valid() && fit.rmse <= tolerance).then_some(fit.transform)
 }
@@ -139,24 +185,25 @@ pub fn ransac(input: &RansacInput, params: &RansacParams) -> RansacOutcome {
     if cands.is_empty() {
         return out;
     }
-    let mut order: Vec<usize> = (0..cands.len()).collect();
-    order.shuffle(&mut rng);
-    order.truncate(SCORE_SAMPLE);
+    let order = morton_order(input.target);
+    let step = (order.len() / SCORE_SAMPLE).max(1);
     let mut scorer = Scorer {
-        pairs: Vec::new(),
         input,
+        sample: order.into_iter().step_by(step).collect(),
         tol2: params.tolerance * params.tolerance,
+        scratch: Vec::new(),
     };
-    scorer.pairs = order.iter().map(|&i| scorer.centres(&cands[i])).collect();
-    out.sample_size = scorer.pairs.len();
-    let sample = scorer.pairs.len() as f64;
+    out.sample_size = scorer.sample.len();
+    let k = input.target_signatures.vertices_per_polygon;
     let probe = extent_probe(input.target);
     let mut needed = params.max_rounds as u64;
     let mut best_consensus = 0usize;
-    let mut round = 0usize;
-    // The first rounds walk the best-ranked candidates in order (ordered sampling, in the
-    // spirit of PROSAC, Chum & Matas, CVPR 2005); later ones draw at random.
+    // Candidates drawn so far, and the (target, reference) landmarks of each 1-signature draw,
+    // to estimate the inlier ratio against the current best.
+    let mut drawn: Vec<([f64; 2], [f64; 2])> = Vec::new();
+    let mut agreeing = 0usize;
     let ordered = cands.len().min(params.max_rounds / 4);
+    let mut round = 0usize;
     while (round as u64) < needed && round < params.max_rounds {
         let c1 = if round < ordered {
             &cands[round]
@@ -165,53 +212,55 @@ pub fn ransac(input: &RansacInput, params: &RansacParams) -> RansacOutcome {
         };
         let c2 = &cands[rng.gen_range(0..cands.len())];
         round += 1;
-        let mut hyps: [Option<Similarity>; 2] = [None, None];
-        hyps[0] = polygon_hypothesis(input, c1, params.tolerance);
-        let (t1, r1) = scorer.centres(c1);
-        let (t2, r2) = scorer.centres(c2);
-        if t1 != t2 && r1 != r2 {
-            hyps[1] = similarity_from_two([t1, t2], [r1, r2]);
+        let (t1, p1, r1) = scorer.centres(c1);
+        let (_, p2, r2) = scorer.centres(c2);
+        drawn.push((p1, r1));
+        if let Some(b) = out.best.first() {
+            if dist2(b.transform.apply(p1), r1) < scorer.tol2 {
+                agreeing += 1;
+            }
         }
-        for h in hyps.into_iter().flatten() {
+        let hyps = [
+            polygon_hypothesis(input, c1, params.tolerance).map(|h| (h, k)),
+            if p1 != p2 && r1 != r2 {
+                similarity_from_two([p1, p2], [r1, r2]).map(|h| (h, 1))
+            } else {
+                None
+            },
+        ];
+        let mut improved = false;
+        for (h, skip) in hyps.into_iter().flatten() {
             out.hypotheses += 1;
-            let mut h = h;
-            let mut score = scorer.consensus(&h);
-            if score == 0 {
+            if !scorer.local_test(&h, t1, skip) {
                 continue;
             }
-            // Local optimisation: refit on the consensus while it grows.
+            let mut h = h;
+            let mut score = scorer.consensus(&h);
             for _ in 0..2 {
-                if score < 3 {
+                let Some(better) = scorer.refit_on_consensus(&h) else {
+                    break;
+                };
+                let s2 = scorer.consensus(&better);
+                if s2 < score {
                     break;
                 }
-                match scorer.refit_on_consensus(&h) {
-                    Some(better) => {
-                        let s2 = scorer.consensus(&better);
-                        if s2 >= score {
-                            h = better;
-                            score = s2;
-                        } else {
-                            break;
-                        }
-                    }
-                    None => break,
-                }
+                h = better;
+                score = s2;
             }
-            keep_best(
-                &mut out.best,
-                Hypothesis {
-                    transform: h,
-                    consensus: score,
-                },
-                params,
-                &probe,
-            );
+            keep_best(&mut out.best, Hypothesis { transform: h, consensus: score }, params, &probe);
             if score > best_consensus {
                 best_consensus = score;
-                needed = sample_count(params.confidence, best_consensus as f64 / sample, 1)
-                    .max(32)
-                    .min(params.max_rounds as u64);
+                improved = true;
             }
+        }
+        if improved {
+            // Recount the draws that agree with the new best.
+            let b = out.best[0].transform;
+            agreeing = drawn.iter().filter(|(p, r)| dist2(b.apply(*p), *r) < scorer.tol2).count();
+        }
+        if best_consensus > 0 {
+            let w = agreeing.max(1) as f64 / drawn.len() as f64;
+            needed = sample_count(params.confidence, w, 1).clamp(64, params.max_rounds as u64);
         }
     }
     out.rounds = round;

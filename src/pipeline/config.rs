@@ -161,7 +161,7 @@ impl MatchConfig {
             &mut cfg.output.dir,
         ] {
             if p.is_relative() {
-                *p = base.join(&*p);
+                *p = lexical_clean(&base.join(&*p));
             }
         }
         Ok(cfg)
@@ -175,6 +175,26 @@ impl MatchConfig {
             return Err(ConfigError::InvalidCandidates(self.matching.candidates).into());
         }
         Ok(())
+    }
+}
+
+/// Removes `.` and `dir/..` from a path without touching the file system.
+fn lexical_clean(p: &Path) -> PathBuf {
+    use std::path::Component;
+    let mut out: Vec<Component> = Vec::new();
+    for c in p.components() {
+        match c {
+            Component::CurDir => {}
+            Component::ParentDir if matches!(out.last(), Some(Component::Normal(_))) => {
+                out.pop();
+            }
+            other => out.push(other),
+        }
+    }
+    if out.is_empty() {
+        PathBuf::from(".")
+    } else {
+        out.iter().collect()
     }
 }
 
