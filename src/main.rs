@@ -83,7 +83,7 @@ struct MatchArgs {
     #[arg(long)]
     working_crs: Option<String>,
     /// Inlier tolerance in metres (default: a quarter of the reference's median landmark spacing).
-    #[arg(long)]
+    #[arg(long, allow_negative_numbers = true)]
     tolerance: Option<f64>,
     /// Neighbours per signature polygon.
     #[arg(long, default_value_t = SignatureParams::default().neighbours)]
@@ -98,7 +98,7 @@ struct MatchArgs {
     #[arg(long, default_value_t = MatchingParams::default().candidates)]
     candidates: usize,
     /// RANSAC confidence.
-    #[arg(long, default_value_t = FitParams::default().confidence)]
+    #[arg(long, allow_negative_numbers = true, default_value_t = FitParams::default().confidence)]
     confidence: f64,
     /// Upper bound on RANSAC rounds.
     #[arg(long, default_value_t = FitParams::default().max_rounds)]
@@ -107,7 +107,7 @@ struct MatchArgs {
     #[arg(long, default_value_t = FitParams::default().seed)]
     seed: u64,
     /// Accept a transform only if the expected number of chance detections is below this.
-    #[arg(long, default_value_t = FitParams::default().false_alarm_level)]
+    #[arg(long, allow_negative_numbers = true, default_value_t = FitParams::default().false_alarm_level)]
     false_alarm_level: f64,
     /// Fewest control points to accept a transform.
     #[arg(long, default_value_t = FitParams::default().min_control_points)]

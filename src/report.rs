@@ -118,9 +118,17 @@ pub fn summary(r: &MatchResult) -> String {
         t.rotation().to_degrees(),
         f.se_rotation.to_degrees()
     );
-    let _ = writeln!(o, "  translation x  {:.4} ± {:.4} (standard error at the working origin)", t.tx, f.se_tx);
+    let _ = writeln!(
+        o,
+        "  translation x  {:.4} ± {:.4} (standard error at the working origin)",
+        t.tx, f.se_tx
+    );
     let _ = writeln!(o, "  translation y  {:.4} ± {:.4}", t.ty, f.se_ty);
-    let _ = writeln!(o, "  position       ± {:.4} m per coordinate at the control points' centroid", f.sigma * mpu / (s.pairs.len() as f64).sqrt());
+    let _ = writeln!(
+        o,
+        "  position       ± {:.4} m per coordinate at the control points' centroid",
+        f.sigma * mpu / (s.pairs.len() as f64).sqrt()
+    );
     let refpts: Vec<[f64; 2]> = s
         .pairs
         .iter()

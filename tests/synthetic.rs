@@ -10,6 +10,10 @@ use tiemark::pipeline::{solve_points, Solved};
 use tiemark::spatial::PointIndex;
 use tiemark::synth::{make_pair, SynthParams};
 
+fn labels() -> [String; 2] {
+    ["reference".into(), "target".into()]
+}
+
 fn config() -> MatchConfig {
     let s = |p: &str| SurveyInput {
         path: p.into(),
@@ -52,6 +56,7 @@ fn run(seed: u64, scale: f64, angle: f64, missing: f64, n: usize) -> Option<(f64
         &ti,
         1.0,
         &Progress::new(true),
+        &labels(),
     )
     .unwrap();
     let Solved::Found { solution, .. } = out else {
@@ -113,7 +118,17 @@ fn unrelated_surveys_give_no_transform() {
         };
         let (a, b) = (mk(100 + seed), mk(200 + seed));
         let (ai, bi) = (PointIndex::new(&a).unwrap(), PointIndex::new(&b).unwrap());
-        let out = solve_points(&config(), &a, &b, &ai, &bi, 1.0, &Progress::new(true)).unwrap();
+        let out = solve_points(
+            &config(),
+            &a,
+            &b,
+            &ai,
+            &bi,
+            1.0,
+            &Progress::new(true),
+            &labels(),
+        )
+        .unwrap();
         match out {
             Solved::NotFound { rejection, .. } => eprintln!("seed {seed}: {}", rejection.reason),
             Solved::Found { solution, .. } => panic!(

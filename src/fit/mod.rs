@@ -51,7 +51,7 @@ impl Default for FitParams {
         FitParams {
             tolerance_m: None,
             confidence: 0.999,
-            max_rounds: 20_000,
+            max_rounds: 1_000_000,
             seed: 20_261_201,
             false_alarm_level: 0.01,
             min_control_points: 5,
@@ -63,16 +63,20 @@ impl Default for FitParams {
 #[derive(Debug, thiserror::Error, PartialEq)]
 pub enum FitError {
     /// Tolerance not a positive number.
-    #[error("the tolerance must be a positive number of metres (got {0})")]
+    #[error("--tolerance (tolerance_m in a pipeline file) must be a positive number of metres (got {0})")]
     InvalidTolerance(f64),
     /// Confidence outside (0, 1).
-    #[error("the confidence must be between 0 and 1, exclusive (got {0})")]
+    #[error(
+        "--confidence (confidence in a pipeline file) must be between 0 and 1, exclusive (got {0})"
+    )]
     InvalidConfidence(f64),
     /// False-alarm level outside (0, 1].
-    #[error("the false-alarm level must be in (0, 1] (got {0})")]
+    #[error(
+        "--false-alarm-level (false_alarm_level in a pipeline file) must be in (0, 1] (got {0})"
+    )]
     InvalidFalseAlarmLevel(f64),
     /// Too few control points asked for.
-    #[error("at least 3 control points are needed for a checked similarity (got {0})")]
+    #[error("--min-control-points (min_control_points in a pipeline file) must be at least 3: fewer leave a similarity unchecked (got {0})")]
     InvalidMinControlPoints(usize),
 }
 
@@ -219,14 +223,30 @@ pub fn robust_fit(
         });
     }
     progress("guided matching");
+    // Each kept hypothesis is first refined on a spread subset; only the best of those, and only
+    // if it stands out from chance there, is refined on every landmark. This keeps a wrong
+    // hypothesis from costing full passes over a large survey.
     let coarse: Option<Vec<u32>> =
         (input.target.len() > COARSE_ABOVE).then(|| spread_subset(input.target, COARSE_SIZE));
-    let mut best: Option<(guided::Guided, &ransac::Hypothesis)> = None;
+    let poisson = significance::poisson_chance_rate(tolerance, input.reference_spacing);
+    let mut ranked: Vec<(usize, Similarity, &ransac::Hypothesis)> = Vec::new();
     for h in &r.best {
-        let mut start = h.transform;
-        if let Some(sub) = &coarse {
-            start = guided(&frames, start, tolerance, coverage, Some(sub), 20).transform;
+        match &coarse {
+            Some(sub) => {
+                let g = guided(&frames, h.transform, tolerance, coverage, Some(sub), 20);
+                let quick =
+                    Significance::new(g.covered, g.pairs.len(), poisson, 0.0, r.hypotheses.max(1));
+                if quick.is_significant(params.false_alarm_level) {
+                    ranked.push((g.pairs.len(), g.transform, h));
+                }
+            }
+            None => ranked.push((h.consensus, h.transform, h)),
         }
+    }
+    ranked.sort_by_key(|r| std::cmp::Reverse(r.0));
+    let mut best: Option<(guided::Guided, &ransac::Hypothesis)> = None;
+    let full_runs = if coarse.is_some() { 1 } else { ranked.len() };
+    for (_, start, h) in ranked.into_iter().take(full_runs) {
         let g = guided(&frames, start, tolerance, coverage, None, 20);
         if best
             .as_ref()
@@ -235,10 +255,25 @@ pub fn robust_fit(
             best = Some((g, h));
         }
     }
-    let (g, h) = best.expect("at least one hypothesis");
+    let Some((g, h)) = best else {
+        let h = &r.best[0];
+        let sub = coarse.as_deref();
+        let g = guided(&frames, h.transform, tolerance, coverage, sub, 20);
+        let sig = Significance::new(g.covered, g.pairs.len(), poisson, 0.0, r.hypotheses.max(1));
+        return FitOutcome::NotFound(Rejection {
+            reason: format!(
+                "the best transform pairs {} of {} sampled landmarks, which chance alone explains (chance rate {:.1}%)",
+                g.pairs.len(),
+                g.covered,
+                100.0 * poisson
+            ),
+            tolerance,
+            significance: Some(sig),
+            ransac_rounds: r.rounds,
+        });
+    };
     progress("testing significance against mirrored decoys");
     let decoy_rate = decoy_chance_rate(&frames, &g.transform, tolerance, coverage, params.seed);
-    let poisson = significance::poisson_chance_rate(tolerance, input.reference_spacing);
     // Hypotheses: RANSAC's, the guided starts, and the decoys.
     let hypotheses = r.hypotheses + r.best.len() + DECOYS;
     let sig = Significance::new(g.covered, g.pairs.len(), poisson, decoy_rate, hypotheses);

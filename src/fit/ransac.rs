@@ -110,7 +110,9 @@ impl Scorer<'_> {
     fn local_test(&mut self, s: &Similarity, t0: u32, skip: usize) -> bool {
         let p = self.input.target[t0 as usize];
         let mut ring = std::mem::take(&mut self.scratch);
-        self.input.target_index.nearest_n(p, skip + LOCAL_RING, &mut ring);
+        self.input
+            .target_index
+            .nearest_n(p, skip + LOCAL_RING, &mut ring);
         let mut hits = 0;
         let mut misses = 0;
         for &(t, _) in ring.iter().skip(skip) {
@@ -163,11 +165,18 @@ impl Scorer<'_> {
 
 /// The similarity that maps candidate `c`'s target polygon onto its reference polygon, if they
 /// agree within `tolerance` (RMS over the vertices).
-pub fn polygon_hypothesis(input: &RansacInput, c: &Candidate, tolerance: f64) -> Option<Similarity> {
+pub fn polygon_hypothesis(
+    input: &RansacInput,
+    c: &Candidate,
+    tolerance: f64,
+) -> Option<Similarity> {
     let tp = input.target_signatures.polygon(c.target as usize);
     let rp = input.reference_signatures.polygon(c.reference as usize);
     let fit = fit_similarity_indexed(tp.len(), |i| {
-        (input.target[tp[i] as usize], input.reference[rp[i] as usize])
+        (
+            input.target[tp[i] as usize],
+            input.reference[rp[i] as usize],
+        )
     })?;
     (fit.transform.is_valid() && fit.rmse <= tolerance).then_some(fit.transform)
 }
@@ -247,7 +256,15 @@ pub fn ransac(input: &RansacInput, params: &RansacParams) -> RansacOutcome {
                 h = better;
                 score = s2;
             }
-            keep_best(&mut out.best, Hypothesis { transform: h, consensus: score }, params, &probe);
+            keep_best(
+                &mut out.best,
+                Hypothesis {
+                    transform: h,
+                    consensus: score,
+                },
+                params,
+                &probe,
+            );
             if score > best_consensus {
                 best_consensus = score;
                 improved = true;
@@ -256,7 +273,10 @@ pub fn ransac(input: &RansacInput, params: &RansacParams) -> RansacOutcome {
         if improved {
             // Recount the draws that agree with the new best.
             let b = out.best[0].transform;
-            agreeing = drawn.iter().filter(|(p, r)| dist2(b.apply(*p), *r) < scorer.tol2).count();
+            agreeing = drawn
+                .iter()
+                .filter(|(p, r)| dist2(b.apply(*p), *r) < scorer.tol2)
+                .count();
         }
         if best_consensus > 0 {
             let w = agreeing.max(1) as f64 / drawn.len() as f64;

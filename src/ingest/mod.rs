@@ -10,6 +10,10 @@
 //! no geometry, or an empty one, are skipped and counted. The input is opened read-only and is
 //! never modified.
 //!
+//! A CSV file's x is its column named x, lon, long, longitude, easting, east or e (the first of
+//! these names present, any case), its y the column named y, lat, latitude, northing, north or
+//! n; a row whose coordinate text is not a finite number is an error, not a skipped feature.
+//!
 //! Checks that make the rest of the pipeline meaningful happen here, with the file named in
 //! the error: non-finite coordinates, duplicate positions, and a set that is all on one line.
 
@@ -129,8 +133,33 @@ pub enum IngestError {
         /// y read.
         y: f64,
     },
+    /// A CSV row has text in its coordinate columns that is not a finite number (GDAL gives such
+    /// a row no geometry).
+    #[error("{path}, layer '{layer}': landmark '{id}' has a non-finite or unreadable coordinate ({cells}); fix or remove that row")]
+    UnreadableCoordinate {
+        /// Path given.
+        path: PathBuf,
+        /// Layer read.
+        layer: String,
+        /// Landmark id.
+        id: String,
+        /// The coordinate cells as read, e.g. `x 'nan', y '5210044.87'`.
+        cells: String,
+    },
+    /// Two CSV columns could both hold the same coordinate.
+    #[error("{path}: the columns '{first}' and '{second}' could both hold the {axis} coordinate; rename or remove one of them")]
+    AmbiguousColumns {
+        /// Path given.
+        path: PathBuf,
+        /// "x" or "y".
+        axis: String,
+        /// One column.
+        first: String,
+        /// The other.
+        second: String,
+    },
     /// Two landmarks share a position.
-    #[error("{path}, layer '{layer}': {count} landmarks share a position with another, e.g. '{first}' and '{second}' at ({x}, {y}); remove or merge duplicated features and run again")]
+    #[error("{path}, layer '{layer}': {count} duplicated positions, e.g. '{first}' and '{second}' at ({x}, {y}); remove or merge duplicated features and run again")]
     DuplicatePositions {
         /// Path given.
         path: PathBuf,

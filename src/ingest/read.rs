@@ -1,19 +1,124 @@
 //! Reading a GDAL vector layer into a [`LandmarkSet`].
 
 use super::{IngestError, IngestOptions, LandmarkSet};
+use gdal::errors::GdalError;
 use gdal::vector::{Geometry, LayerAccess};
 use gdal::{Dataset, DatasetOptions, GdalOpenFlags};
 use geo::Centroid;
+use std::collections::HashSet;
 use std::path::Path;
 
-/// CSV columns GDAL should take as x and y (case-insensitive), and the other open options that
-/// make a CSV read as points (see GDAL's CSV driver documentation).
-const CSV_OPEN_OPTIONS: &[&str] = &[
-    "X_POSSIBLE_NAMES=x,lon,long,longitude,easting,east,e",
-    "Y_POSSIBLE_NAMES=y,lat,latitude,northing,north,n",
-    "AUTODETECT_TYPE=YES",
-    "KEEP_GEOM_COLUMNS=NO",
-];
+/// Names of the CSV columns that hold x and y, in order of preference (matched
+/// case-insensitively, as GDAL does). One column per axis is chosen here and handed to GDAL:
+/// GDAL 3.6 crashes when two columns match its X_POSSIBLE_NAMES (or Y_POSSIBLE_NAMES) and the
+/// second comes before the other axis's column, and it takes the first match in column order
+/// (an attribute `n` before `y` would become the northing).
+const CSV_X_NAMES: &[&str] = &["x", "lon", "long", "longitude", "easting", "east", "e"];
+const CSV_Y_NAMES: &[&str] = &["y", "lat", "latitude", "northing", "north", "n"];
+
+/// The other open options that make a CSV read as points (see GDAL's CSV driver documentation).
+const CSV_OPEN_OPTIONS: &[&str] = &["AUTODETECT_TYPE=YES", "KEEP_GEOM_COLUMNS=NO"];
+
+fn open(path: &Path, open_options: Option<&[&str]>) -> Result<Dataset, IngestError> {
+    let open = DatasetOptions {
+        open_flags: GdalOpenFlags::GDAL_OF_VECTOR | GdalOpenFlags::GDAL_OF_READONLY,
+        open_options,
+        ..Default::default()
+    };
+    Dataset::open_ex(path, open).map_err(|e| IngestError::Unreadable {
+        path: path.to_path_buf(),
+        detail: match e {
+            GdalError::NullPointer { msg, .. } if msg.trim().is_empty() => {
+                "no GDAL driver recognises it".to_string()
+            }
+            GdalError::NullPointer { msg, .. } => msg.trim().to_string(),
+            other => other.to_string(),
+        },
+    })
+}
+
+/// The x and y columns of a CSV file: for each axis the column whose name comes first in
+/// [`CSV_X_NAMES`] / [`CSV_Y_NAMES`]; `None` when an axis has none (GDAL may still find a WKT
+/// geometry column).
+fn csv_coordinate_columns(path: &Path) -> Result<Option<(String, String)>, IngestError> {
+    let ds = open(path, None)?;
+    let Ok(layer) = ds.layer(0) else {
+        return Ok(None);
+    };
+    let columns: Vec<String> = layer.defn().fields().map(|f| f.name()).collect();
+    let pick = |names: &[&str], axis: &str| -> Result<Option<String>, IngestError> {
+        for name in names {
+            let found: Vec<&String> = columns
+                .iter()
+                .filter(|c| c.eq_ignore_ascii_case(name))
+                .collect();
+            match found.as_slice() {
+                [] => continue,
+                [one] => return Ok(Some((*one).clone())),
+                [a, b, ..] => {
+                    return Err(IngestError::AmbiguousColumns {
+                        path: path.to_path_buf(),
+                        axis: axis.to_string(),
+                        first: (*a).clone(),
+                        second: (*b).clone(),
+                    })
+                }
+            }
+        }
+        Ok(None)
+    };
+    Ok(pick(CSV_X_NAMES, "x")?.zip(pick(CSV_Y_NAMES, "y")?))
+}
+
+/// GDAL's CSV driver gives a row whose x or y is not a number (`nan`, `inf`, `-inf`, text) no
+/// geometry at all, which would make it a silently skipped feature. Re-reads the rows that had
+/// no geometry as text and rejects the first one with anything in its coordinate columns.
+fn check_csv_rows_without_geometry(
+    path: &Path,
+    layer_name: &str,
+    (x_column, y_column): &(String, String),
+    id_field: Option<&str>,
+    without_geometry: &HashSet<u64>,
+) -> Result<(), IngestError> {
+    let ds = open(path, None)?;
+    let gdal_err = |e: GdalError| IngestError::Gdal {
+        path: path.to_path_buf(),
+        detail: e.to_string(),
+    };
+    let mut layer = ds.layer(0).map_err(gdal_err)?;
+    let names: Vec<String> = layer.defn().fields().map(|f| f.name()).collect();
+    let index = |name: &str| names.iter().position(|n| n == name);
+    let (Some(xi), Some(yi)) = (index(x_column), index(y_column)) else {
+        return Ok(());
+    };
+    let id_index = id_field.and_then(index);
+    for feature in layer.features() {
+        let Some(fid) = feature.fid() else { continue };
+        if !without_geometry.contains(&fid) {
+            continue;
+        }
+        let text = |i: usize| {
+            feature
+                .field_as_string(i)
+                .ok()
+                .flatten()
+                .unwrap_or_default()
+        };
+        let (x, y) = (text(xi), text(yi));
+        if x.trim().is_empty() && y.trim().is_empty() {
+            continue;
+        }
+        return Err(IngestError::UnreadableCoordinate {
+            path: path.to_path_buf(),
+            layer: layer_name.to_string(),
+            id: id_index
+                .and_then(|i| field_text(&feature, i))
+                .unwrap_or_else(|| fid.to_string()),
+            cells: format!("{x_column} '{x}', {y_column} '{y}'"),
+        });
+    }
+    Ok(())
+}
 
 /// Reads the landmarks of one layer. The file is opened read-only.
 pub fn read_landmarks(path: &Path, options: &IngestOptions) -> Result<LandmarkSet, IngestError> {
@@ -25,15 +130,23 @@ pub fn read_landmarks(path: &Path, options: &IngestOptions) -> Result<LandmarkSe
     let is_csv = path
         .extension()
         .is_some_and(|e| e.eq_ignore_ascii_case("csv"));
-    let open = DatasetOptions {
-        open_flags: GdalOpenFlags::GDAL_OF_VECTOR | GdalOpenFlags::GDAL_OF_READONLY,
-        open_options: is_csv.then_some(CSV_OPEN_OPTIONS),
-        ..Default::default()
+    let csv_columns = if is_csv {
+        csv_coordinate_columns(path)?
+    } else {
+        None
     };
-    let ds = Dataset::open_ex(path, open).map_err(|e| IngestError::Unreadable {
-        path: path.to_path_buf(),
-        detail: e.to_string(),
-    })?;
+    let csv_options: Vec<String> = csv_columns
+        .iter()
+        .flat_map(|(x, y)| {
+            [
+                format!("X_POSSIBLE_NAMES={x}"),
+                format!("Y_POSSIBLE_NAMES={y}"),
+            ]
+        })
+        .chain(CSV_OPEN_OPTIONS.iter().map(|o| o.to_string()))
+        .collect();
+    let csv_options: Vec<&str> = csv_options.iter().map(String::as_str).collect();
+    let ds = open(path, is_csv.then_some(csv_options.as_slice()))?;
     if ds.layer_count() == 0 {
         return Err(IngestError::NoLayers {
             path: path.to_path_buf(),
@@ -77,6 +190,8 @@ pub fn read_landmarks(path: &Path, options: &IngestOptions) -> Result<LandmarkSe
     let mut ids = Vec::new();
     let mut points = Vec::new();
     let mut skipped = 0usize;
+    // Feature ids of CSV rows without geometry, to look at their text afterwards.
+    let mut csv_without_geometry = HashSet::new();
     for (n, feature) in layer.features().enumerate() {
         let fid = feature
             .fid()
@@ -84,6 +199,9 @@ pub fn read_landmarks(path: &Path, options: &IngestOptions) -> Result<LandmarkSe
             .unwrap_or_else(|| n.to_string());
         let Some(p) = feature.geometry().and_then(position) else {
             skipped += 1;
+            if let (Some(_), Some(fid)) = (&csv_columns, feature.fid()) {
+                csv_without_geometry.insert(fid);
+            }
             continue;
         };
         let id = match id_index {
@@ -106,6 +224,18 @@ pub fn read_landmarks(path: &Path, options: &IngestOptions) -> Result<LandmarkSe
         }
         ids.push(id);
         points.push(p);
+    }
+    if let Some(columns) = &csv_columns {
+        if !csv_without_geometry.is_empty() {
+            let id_field = id_index.map(|i| field_names[i].as_str());
+            check_csv_rows_without_geometry(
+                path,
+                &layer_name,
+                columns,
+                id_field,
+                &csv_without_geometry,
+            )?;
+        }
     }
     if points.is_empty() {
         return Err(IngestError::Empty {
@@ -194,31 +324,50 @@ fn check_duplicates(set: &LandmarkSet) -> Result<(), IngestError> {
     Ok(())
 }
 
-/// Rejects a set whose points lie on one line: the smaller principal axis of the point cloud
-/// is below 1e-9 of the larger.
+/// Rejects a set whose points lie on one line: their spread across the principal axis of the
+/// point cloud is at most 1e-9 of their spread along it. The spread is measured on the points
+/// themselves (from a local origin): the covariance's smaller eigenvalue is no test, as rounding
+/// leaves it near 1e-16 of the larger even for points exactly on a line at an angle.
 fn check_spread(set: &LandmarkSet) -> Result<(), IngestError> {
-    let n = set.points.len() as f64;
-    let (mx, my) = set
+    let collinear = || IngestError::Collinear {
+        path: set.source.clone(),
+        layer: set.layer.clone(),
+        count: set.points.len(),
+    };
+    if set.points.len() < 3 {
+        return Err(collinear());
+    }
+    let origin = set.points[0];
+    let local: Vec<[f64; 2]> = set
         .points
+        .iter()
+        .map(|p| [p[0] - origin[0], p[1] - origin[1]])
+        .collect();
+    let n = local.len() as f64;
+    let (mx, my) = local
         .iter()
         .fold((0.0, 0.0), |a, p| (a.0 + p[0] / n, a.1 + p[1] / n));
     let (mut sxx, mut syy, mut sxy) = (0.0, 0.0, 0.0);
-    for p in &set.points {
+    for p in &local {
         let (dx, dy) = (p[0] - mx, p[1] - my);
         sxx += dx * dx;
         syy += dy * dy;
         sxy += dx * dy;
     }
-    let tr = sxx + syy;
-    let det = sxx * syy - sxy * sxy;
-    let disc = (tr * tr / 4.0 - det).max(0.0).sqrt();
-    let (big, small) = (tr / 2.0 + disc, tr / 2.0 - disc);
-    if set.points.len() < 3 || small <= 1e-18 * big.max(f64::MIN_POSITIVE) {
-        return Err(IngestError::Collinear {
-            path: set.source.clone(),
-            layer: set.layer.clone(),
-            count: set.points.len(),
-        });
+    let (sin, cos) = (0.5 * (2.0 * sxy).atan2(sxx - syy)).sin_cos();
+    let range = |f: &dyn Fn(&[f64; 2]) -> f64| {
+        let (lo, hi) = local
+            .iter()
+            .map(f)
+            .fold((f64::INFINITY, f64::NEG_INFINITY), |a, v| {
+                (a.0.min(v), a.1.max(v))
+            });
+        hi - lo
+    };
+    let along = range(&|p| cos * p[0] + sin * p[1]);
+    let across = range(&|p| cos * p[1] - sin * p[0]);
+    if across <= 1e-9 * along {
+        return Err(collinear());
     }
     Ok(())
 }

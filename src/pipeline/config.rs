@@ -33,7 +33,7 @@
 //! [fit]
 //! tolerance_m = 2.0          # optional: default a quarter of the reference's spacing
 //! confidence = 0.999
-//! max_rounds = 20000
+//! max_rounds = 1000000
 //! seed = 20261201
 //! false_alarm_level = 0.01
 //! min_control_points = 5

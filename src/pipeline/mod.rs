@@ -188,6 +188,10 @@ pub fn solve(
     let ti = PointIndex::new(&frame.target).ok_or_else(|| Error::Degenerate {
         path: target_path.to_path_buf(),
     })?;
+    let labels = [
+        format!("the reference ({})", reference_path.display()),
+        format!("the target ({})", target_path.display()),
+    ];
     solve_points(
         config,
         &frame.reference,
@@ -196,10 +200,12 @@ pub fn solve(
         &ti,
         frame.metres_per_unit(),
         progress,
+        &labels,
     )
 }
 
-/// As [`solve`], on plain point arrays with their indexes.
+/// As [`solve`], on plain point arrays with their indexes; `labels` name the two surveys in
+/// errors.
 pub fn solve_points(
     config: &MatchConfig,
     reference: &[[f64; 2]],
@@ -208,17 +214,18 @@ pub fn solve_points(
     ti: &PointIndex,
     metres_per_unit: f64,
     progress: &Progress,
+    labels: &[String; 2],
 ) -> Result<Solved, Error> {
     let spacing = median_spacing(reference, ri, 10_000)
         .unwrap_or(1.0)
         .max(f64::MIN_POSITIVE);
     let bar = progress.bar(reference.len() as u64, "reference signatures");
-    let rs = signatures::compute("reference", reference, ri, &config.signatures, &mut |n| {
+    let rs = signatures::compute(&labels[0], reference, ri, &config.signatures, &mut |n| {
         bar.set_position(n as u64)
     })?;
     bar.finish_and_clear();
     let bar = progress.bar(target.len() as u64, "target signatures");
-    let ts = signatures::compute("target", target, ti, &config.signatures, &mut |n| {
+    let ts = signatures::compute(&labels[1], target, ti, &config.signatures, &mut |n| {
         bar.set_position(n as u64)
     })?;
     bar.finish_and_clear();

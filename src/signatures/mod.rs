@@ -46,7 +46,7 @@ impl Default for SignatureParams {
 #[derive(Debug, thiserror::Error, PartialEq)]
 pub enum SignatureError {
     /// k is outside the supported range.
-    #[error("--neighbours must be between 3 and 16 (got {0})")]
+    #[error("--neighbours (neighbours in a pipeline file) must be between 3 and 16 (got {0})")]
     InvalidNeighbours(usize),
     /// The harmonic does not give an informative ratio for this polygon length.
     #[error("--harmonic must be at least 1 and less than half of neighbours + 1 (got {harmonic} for {vertices}-vertex polygons)")]

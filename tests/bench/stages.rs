@@ -18,9 +18,11 @@ fn peak_rss_mb() -> f64 {
     std::fs::read_to_string("/proc/self/status")
         .ok()
         .and_then(|s| {
-            s.lines()
-                .find(|l| l.starts_with("VmHWM:"))
-                .and_then(|l| l.split_whitespace().nth(1).and_then(|v| v.parse::<f64>().ok()))
+            s.lines().find(|l| l.starts_with("VmHWM:")).and_then(|l| {
+                l.split_whitespace()
+                    .nth(1)
+                    .and_then(|v| v.parse::<f64>().ok())
+            })
         })
         .map(|kb| kb / 1024.0)
         .unwrap_or(f64::NAN)
@@ -28,7 +30,10 @@ fn peak_rss_mb() -> f64 {
 
 fn main() {
     let sizes: Vec<usize> = {
-        let args: Vec<usize> = std::env::args().skip(1).filter_map(|a| a.parse().ok()).collect();
+        let args: Vec<usize> = std::env::args()
+            .skip(1)
+            .filter_map(|a| a.parse().ok())
+            .collect();
         if args.is_empty() {
             vec![10_000, 100_000, 1_000_000]
         } else {
@@ -39,17 +44,27 @@ fn main() {
     println!("|---:|---:|---:|---:|---:|---:|---:|---:|");
     for n in sizes {
         let truth = Similarity::from_params(2.7, 37f64.to_radians(), 5000.0, -300.0);
-        let p = make_pair(&SynthParams { landmarks: n, missing: 0.28, extra: 0.25, noise: 0.01, truth, seed: 7 });
+        let p = make_pair(&SynthParams {
+            landmarks: n,
+            missing: 0.28,
+            extra: 0.25,
+            noise: 0.01,
+            truth,
+            seed: 7,
+        });
         let t0 = Instant::now();
         let ri = PointIndex::new(&p.reference).expect("tree");
         let ti = PointIndex::new(&p.target).expect("tree");
         let spacing = median_spacing(&p.reference, &ri, 10_000).expect("spacing");
         let t1 = Instant::now();
         let params = SignatureParams::default();
-        let rs = signatures::compute("reference", &p.reference, &ri, &params, &mut |_| {}).expect("signatures");
-        let ts = signatures::compute("target", &p.target, &ti, &params, &mut |_| {}).expect("signatures");
+        let rs = signatures::compute("reference", &p.reference, &ri, &params, &mut |_| {})
+            .expect("signatures");
+        let ts = signatures::compute("target", &p.target, &ti, &params, &mut |_| {})
+            .expect("signatures");
         let t2 = Instant::now();
-        let cands = matching::candidates(&rs, &ts, MatchingParams::default().candidates, &mut |_| {});
+        let cands =
+            matching::candidates(&rs, &ts, MatchingParams::default().candidates, &mut |_| {});
         let t3 = Instant::now();
         let input = fit::FitInput {
             reference: &p.reference,
