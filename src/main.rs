@@ -91,9 +91,9 @@ struct MatchArgs {
     /// Vertex order of the signature polygon.
     #[arg(long, value_enum, default_value = "walk")]
     order: OrderArg,
-    /// Fourier harmonic of the signature ratio.
-    #[arg(long, default_value_t = SignatureParams::default().harmonic)]
-    harmonic: usize,
+    /// Fourier harmonics of the signature ratios, comma-separated: one gives a 2-D key, two a 4-D key.
+    #[arg(long, value_delimiter = ',', default_value = "1,2")]
+    harmonics: Vec<usize>,
     /// Reference signatures proposed per target signature.
     #[arg(long, default_value_t = MatchingParams::default().candidates)]
     candidates: usize,
@@ -160,7 +160,7 @@ impl MatchArgs {
                     OrderArg::Walk => VertexOrder::Walk,
                     OrderArg::Angular => VertexOrder::Angular,
                 },
-                harmonic: self.harmonic,
+                harmonics: self.harmonics,
             },
             matching: MatchingParams {
                 candidates: self.candidates,

@@ -73,7 +73,7 @@ pub fn transform_document(result: &MatchResult) -> serde_json::Value {
             "min_control_points": cfg.fit.min_control_points,
             "neighbours": cfg.signatures.neighbours,
             "order": cfg.signatures.order.to_string(),
-            "harmonic": cfg.signatures.harmonic,
+            "harmonics": cfg.signatures.harmonics,
             "candidates": cfg.matching.candidates,
         },
         "significance": s.significance,

@@ -3,11 +3,14 @@
 //! **In:** reference and target [`Signatures`] and the number of candidates per query.
 //! **Out:** [`Candidate`]s: (target signature, reference signature, key distance), best first.
 //!
-//! The reference keys go into a 2-D kiddo k-d tree; every target key asks for its nearest few.
-//! Queries run in Morton order of the keys so that consecutive queries touch nearby leaves.
+//! The reference keys go into a kiddo k-d tree of the keys' dimension (2 for one harmonic, 4
+//! for two); every target key asks for its nearest few. Queries run in Morton order of the
+//! keys' first two coordinates, so that consecutive queries touch nearby leaves.
 
 use crate::signatures::Signatures;
-use crate::spatial::{morton_order, PointIndex};
+use crate::spatial::morton_order;
+use kiddo::{ImmutableKdTree, SquaredEuclidean};
+use std::num::NonZero;
 
 /// One candidate correspondence between a target and a reference signature.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -22,30 +25,64 @@ pub struct Candidate {
 
 /// Finds, for every target signature, its `per_query` nearest reference signatures.
 /// The result is sorted by key distance, best first.
+///
+/// # Panics
+/// When the two signature sets have different key dimensions, or a dimension other than 2 or
+/// 4 (programmer error: both come from one validated [`crate::signatures::SignatureParams`]).
 pub fn candidates(
     reference: &Signatures,
     target: &Signatures,
     per_query: usize,
     progress: &mut dyn FnMut(usize),
 ) -> Vec<Candidate> {
-    let Some(index) = PointIndex::new(&reference.keys) else {
+    assert_eq!(reference.key_dims, target.key_dims, "key dimensions differ");
+    let mut out = match reference.key_dims {
+        2 => candidates_k::<2>(reference, target, per_query, progress),
+        4 => candidates_k::<4>(reference, target, per_query, progress),
+        d => panic!("unsupported key dimension {d}"),
+    };
+    out.sort_by(|a, b| a.distance.total_cmp(&b.distance));
+    out
+}
+
+fn as_points<const K: usize>(s: &Signatures) -> Vec<[f64; K]> {
+    s.keys
+        .chunks_exact(K)
+        .map(|c| std::array::from_fn(|d| c[d]))
+        .collect()
+}
+
+fn candidates_k<const K: usize>(
+    reference: &Signatures,
+    target: &Signatures,
+    per_query: usize,
+    progress: &mut dyn FnMut(usize),
+) -> Vec<Candidate> {
+    let (Some(n), false) = (NonZero::new(per_query), reference.is_empty()) else {
         return Vec::new();
     };
+    let rkeys = as_points::<K>(reference);
+    let Ok(tree) = ImmutableKdTree::<f64, K>::new_from_slice(&rkeys) else {
+        return Vec::new();
+    };
+    let tkeys = as_points::<K>(target);
+    let first_two: Vec<[f64; 2]> = tkeys.iter().map(|k| [k[0], k[1]]).collect();
     let mut out = Vec::with_capacity(target.len() * per_query);
-    let mut found = Vec::with_capacity(per_query);
-    for (i, &t) in morton_order(&target.keys).iter().enumerate() {
-        index.nearest_n(target.keys[t as usize], per_query, &mut found);
-        out.extend(found.iter().map(|&(r, d2)| Candidate {
+    for (i, &t) in morton_order(&first_two).iter().enumerate() {
+        let found = tree
+            .query(&tkeys[t as usize])
+            .nearest_n::<SquaredEuclidean<f64>>(n)
+            .execute();
+        out.extend(found.into_iter().map(|r| Candidate {
             target: t,
-            reference: r,
-            distance: d2.sqrt(),
+            reference: r.item,
+            distance: r.distance.sqrt(),
         }));
         if i % 65536 == 65535 {
             progress(i + 1);
         }
     }
     progress(target.len());
-    out.sort_by(|a, b| a.distance.total_cmp(&b.distance));
     out
 }
 
@@ -54,33 +91,37 @@ mod tests {
     use super::*;
     use rand::{Rng, SeedableRng};
 
+    fn random_sigs(rng: &mut rand_chacha::ChaCha8Rng, n: usize, dims: usize) -> Signatures {
+        Signatures {
+            vertices_per_polygon: 1,
+            polygons: (0..n as u32).collect(),
+            key_dims: dims,
+            keys: (0..n * dims).map(|_| rng.gen_range(-1.0..1.0)).collect(),
+        }
+    }
+
     #[test]
     fn candidates_agree_with_brute_force() {
         let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(2);
-        let mk = |rng: &mut rand_chacha::ChaCha8Rng, n: usize| Signatures {
-            vertices_per_polygon: 1,
-            polygons: (0..n as u32).collect(),
-            keys: (0..n)
-                .map(|_| [rng.gen_range(-1.0..1.0), rng.gen_range(-1.0..1.0)])
-                .collect(),
-        };
-        let r = mk(&mut rng, 2000);
-        let t = mk(&mut rng, 300);
-        let c = candidates(&r, &t, 3, &mut |_| {});
-        assert_eq!(c.len(), 900);
-        assert!(c.windows(2).all(|w| w[0].distance <= w[1].distance));
-        for ti in 0..t.len() {
-            let mut brute: Vec<(usize, f64)> = r
-                .keys
-                .iter()
-                .enumerate()
-                .map(|(i, k)| (i, crate::spatial::dist2(*k, t.keys[ti]).sqrt()))
-                .collect();
-            brute.sort_by(|a, b| a.1.total_cmp(&b.1));
-            let mut got: Vec<&Candidate> = c.iter().filter(|x| x.target as usize == ti).collect();
-            got.sort_by(|a, b| a.distance.total_cmp(&b.distance));
-            for (g, b) in got.iter().zip(&brute) {
-                assert_eq!(g.reference as usize, b.0);
+        for dims in [2, 4] {
+            let r = random_sigs(&mut rng, 2000, dims);
+            let t = random_sigs(&mut rng, 300, dims);
+            let c = candidates(&r, &t, 3, &mut |_| {});
+            assert_eq!(c.len(), 900);
+            assert!(c.windows(2).all(|w| w[0].distance <= w[1].distance));
+            for ti in 0..t.len() {
+                let mut brute: Vec<(usize, f64)> = (0..r.len())
+                    .map(|i| {
+                        let d2: f64 = r.key(i).iter().zip(t.key(ti)).map(|(a, b)| (a - b).powi(2)).sum();
+                        (i, d2.sqrt())
+                    })
+                    .collect();
+                brute.sort_by(|a, b| a.1.total_cmp(&b.1));
+                let mut got: Vec<&Candidate> = c.iter().filter(|x| x.target as usize == ti).collect();
+                got.sort_by(|a, b| a.distance.total_cmp(&b.distance));
+                for (g, b) in got.iter().zip(&brute) {
+                    assert_eq!(g.reference as usize, b.0, "dims {dims}");
+                }
             }
         }
     }

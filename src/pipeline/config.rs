@@ -25,7 +25,7 @@
 //! [signatures]
 //! neighbours = 4
 //! order = "walk"             # or "angular"
-//! harmonic = 1
+//! harmonics = [1, 2]       # one harmonic: 2-D keys; two: 4-D keys
 //!
 //! [matching]
 //! candidates = 3

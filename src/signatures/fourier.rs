@@ -11,29 +11,35 @@ use rustfft::num_complex::Complex64;
 use rustfft::{Fft, FftPlanner};
 use std::sync::Arc;
 
-/// A planned transform for polygons of one length: plan once, run on many.
+/// A planned transform for polygons of one length and a set of harmonics: plan once, run on
+/// many.
 pub struct RatioPlan {
     fft: Arc<dyn Fft<f64>>,
     n: usize,
-    j: usize,
+    js: Vec<usize>,
     scratch: Vec<Complex64>,
 }
 
 impl RatioPlan {
-    /// Plans for polygons of `n` vertices and harmonic `j` (1 ≤ j < n/2 for a ratio that is
-    /// not identically one).
+    /// Plans for polygons of `n` vertices and harmonics `js` (each 1 ≤ j < n/2, for a ratio
+    /// that is not identically one).
     ///
     /// # Panics
-    /// When `n < 3` or `j == 0` or `2j == n` (programmer error: the options are validated
-    /// before this is called).
-    pub fn new(n: usize, j: usize) -> Self {
+    /// When `n < 3`, `js` is empty, or a harmonic is out of range (programmer error: the
+    /// options are validated before this is called).
+    pub fn new(n: usize, js: &[usize]) -> Self {
         assert!(
-            n >= 3 && j >= 1 && 2 * j != n && j < n,
-            "bad polygon length {n} or harmonic {j}"
+            n >= 3 && !js.is_empty() && js.iter().all(|&j| j >= 1 && 2 * j < n),
+            "bad polygon length {n} or harmonics {js:?}"
         );
         let fft = FftPlanner::new().plan_fft_forward(n);
         let scratch = vec![Complex64::new(0.0, 0.0); fft.get_inplace_scratch_len()];
-        RatioPlan { fft, n, j, scratch }
+        RatioPlan {
+            fft,
+            n,
+            js: js.to_vec(),
+            scratch,
+        }
     }
 
     /// Polygon length this plan serves.
@@ -47,8 +53,8 @@ impl RatioPlan {
     }
 
     /// Transforms `polygons` (a whole number of polygons laid end to end, each `n` vertices)
-    /// in place and appends one ratio per polygon to `out`. Non-finite ratios (a polygon with
-    /// Z_{−j} = 0) are appended as they are; the caller decides what to do with them.
+    /// in place and appends, per polygon, one ratio per harmonic to `out`. Non-finite ratios (a
+    /// polygon with Z_{−j} = 0) are appended as they are; the caller decides what to do.
     ///
     /// # Panics
     /// When `polygons.len()` is not a multiple of `n`.
@@ -59,7 +65,9 @@ impl RatioPlan {
         }
         self.fft.process_with_scratch(polygons, &mut self.scratch);
         for z in polygons.chunks_exact(self.n) {
-            out.push(z[self.j] / z[self.n - self.j]);
+            for &j in &self.js {
+                out.push(z[j] / z[self.n - j]);
+            }
         }
     }
 }
@@ -145,7 +153,7 @@ mod tests {
                 })
                 .collect();
             let mut buf: Vec<Complex64> = polys.iter().flatten().copied().collect();
-            let mut plan = RatioPlan::new(n, 1);
+            let mut plan = RatioPlan::new(n, &[1]);
             let mut out = Vec::new();
             plan.ratios(&mut buf, &mut out);
             for (p, r) in polys.iter().zip(&out) {

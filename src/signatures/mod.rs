@@ -21,15 +21,16 @@ use rustfft::num_complex::Complex64;
 use serde::{Deserialize, Serialize};
 
 /// Options of the signature stage.
-#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields, default)]
 pub struct SignatureParams {
     /// Neighbours per polygon (k); the polygon has k + 1 vertices.
     pub neighbours: usize,
     /// Vertex order of the polygon.
     pub order: VertexOrder,
-    /// Fourier harmonic j of the ratio Z_j / Z_{−j}.
-    pub harmonic: usize,
+    /// Fourier harmonics j of the ratios Z_j / Z_{−j}; each gives two key dimensions (one
+    /// harmonic: a 2-D key; two: a 4-D key).
+    pub harmonics: Vec<usize>,
 }
 
 impl Default for SignatureParams {
@@ -37,7 +38,7 @@ impl Default for SignatureParams {
         SignatureParams {
             neighbours: 4,
             order: VertexOrder::Walk,
-            harmonic: 1,
+            harmonics: vec![1, 2],
         }
     }
 }
@@ -48,11 +49,11 @@ pub enum SignatureError {
     /// k is outside the supported range.
     #[error("--neighbours (neighbours in a pipeline file) must be between 3 and 16 (got {0})")]
     InvalidNeighbours(usize),
-    /// The harmonic does not give an informative ratio for this polygon length.
-    #[error("--harmonic must be at least 1 and less than half of neighbours + 1 (got {harmonic} for {vertices}-vertex polygons)")]
+    /// A harmonic does not give an informative ratio for this polygon length.
+    #[error("--harmonics (harmonics in a pipeline file): each must be at least 1 and less than half of neighbours + 1, one or two of them, no repeats (got {harmonics:?} for {vertices}-vertex polygons)")]
     InvalidHarmonic {
-        /// Harmonic asked for.
-        harmonic: usize,
+        /// Harmonics asked for.
+        harmonics: Vec<usize>,
         /// Polygon length.
         vertices: usize,
     },
@@ -75,14 +76,22 @@ pub struct Signatures {
     pub vertices_per_polygon: usize,
     /// Polygon vertices, `vertices_per_polygon` per signature, landmark first.
     pub polygons: Vec<u32>,
-    /// Key of each signature: r_j mapped into the unit disc.
-    pub keys: Vec<[f64; 2]>,
+    /// Dimensions of a key: two per harmonic.
+    pub key_dims: usize,
+    /// Keys laid end to end, `key_dims` values each: per harmonic, r_j mapped into the unit
+    /// disc.
+    pub keys: Vec<f64>,
 }
 
 impl Signatures {
     /// Number of signatures.
     pub fn len(&self) -> usize {
-        self.keys.len()
+        self.keys.len().checked_div(self.key_dims).unwrap_or(0)
+    }
+
+    /// Key of signature `i`.
+    pub fn key(&self, i: usize) -> &[f64] {
+        &self.keys[i * self.key_dims..(i + 1) * self.key_dims]
     }
 
     /// True when there are none.
@@ -109,9 +118,11 @@ impl SignatureParams {
             return Err(SignatureError::InvalidNeighbours(self.neighbours));
         }
         let n = self.neighbours + 1;
-        if self.harmonic == 0 || 2 * self.harmonic >= n {
+        let h = &self.harmonics;
+        let repeated = h.len() == 2 && h[0] == h[1];
+        if h.is_empty() || h.len() > 2 || repeated || h.iter().any(|&j| j == 0 || 2 * j >= n) {
             return Err(SignatureError::InvalidHarmonic {
-                harmonic: self.harmonic,
+                harmonics: self.harmonics.clone(),
                 vertices: n,
             });
         }
@@ -139,14 +150,17 @@ pub fn compute(
             needed: n,
         });
     }
-    let mut plan = fourier::RatioPlan::new(n, params.harmonic);
+    let mut plan = fourier::RatioPlan::new(n, &params.harmonics);
+    let per = params.harmonics.len();
     let order = morton_order(points);
     const CHUNK: usize = 1 << 14;
     let mut sigs = Signatures {
         vertices_per_polygon: n,
         polygons: Vec::with_capacity(points.len() * n),
-        keys: Vec::with_capacity(points.len()),
+        key_dims: 2 * per,
+        keys: Vec::with_capacity(points.len() * 2 * per),
     };
+    let mut key = Vec::with_capacity(2 * per);
     let mut found = Vec::with_capacity(n + 1);
     let mut nbrs = Vec::with_capacity(n);
     let mut poly = Vec::with_capacity(n);
@@ -172,10 +186,11 @@ pub fn compute(
             chunk_polys.extend_from_slice(&poly);
         }
         plan.ratios(&mut buffer, &mut ratios);
-        for (i, r) in ratios.iter().enumerate() {
-            let key = fourier::bounded(*r);
-            if key[0].is_finite() && key[1].is_finite() {
-                sigs.keys.push(key);
+        for (i, rs) in ratios.chunks_exact(per).enumerate() {
+            key.clear();
+            key.extend(rs.iter().flat_map(|r| fourier::bounded(*r)));
+            if key.iter().all(|v| v.is_finite()) {
+                sigs.keys.extend_from_slice(&key);
                 sigs.polygons
                     .extend_from_slice(&chunk_polys[i * n..(i + 1) * n]);
             }

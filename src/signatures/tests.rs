@@ -18,10 +18,10 @@ fn sigs_of(points: &[[f64; 2]], params: &SignatureParams) -> Signatures {
 }
 
 /// Key of each landmark, indexed by landmark.
-fn key_by_landmark(s: &Signatures, n: usize) -> Vec<Option<[f64; 2]>> {
+fn key_by_landmark(s: &Signatures, n: usize) -> Vec<Option<Vec<f64>>> {
     let mut out = vec![None; n];
     for i in 0..s.len() {
-        out[s.landmark(i) as usize] = Some(s.keys[i]);
+        out[s.landmark(i) as usize] = Some(s.key(i).to_vec());
     }
     out
 }
@@ -47,8 +47,11 @@ proptest! {
         let a = key_by_landmark(&sigs_of(&pts, &params), pts.len());
         let b = key_by_landmark(&sigs_of(&moved, &params), pts.len());
         for (ka, kb) in a.iter().zip(&b) {
-            let (ka, kb) = (ka.unwrap(), kb.unwrap());
-            prop_assert!((ka[0] - kb[0]).abs() < 1e-7 && (ka[1] - kb[1]).abs() < 1e-7);
+            let (ka, kb) = (ka.as_ref().unwrap(), kb.as_ref().unwrap());
+            prop_assert_eq!(ka.len(), 4);
+            for (a, b) in ka.iter().zip(kb) {
+                prop_assert!((a - b).abs() < 1e-7);
+            }
         }
     }
 }
@@ -65,8 +68,11 @@ fn planned_keys_agree_with_direct_dft() {
             .iter()
             .map(|&v| Complex64::new(pts[v as usize][0], pts[v as usize][1]))
             .collect();
-        let want = fourier::bounded(fourier::ratio_direct(&z, params.harmonic));
-        assert!((want[0] - s.keys[i][0]).abs() < 1e-9 && (want[1] - s.keys[i][1]).abs() < 1e-9);
+        for (h, &j) in params.harmonics.iter().enumerate() {
+            let want = fourier::bounded(fourier::ratio_direct(&z, j));
+            let got = &s.key(i)[2 * h..2 * h + 2];
+            assert!((want[0] - got[0]).abs() < 1e-9 && (want[1] - got[1]).abs() < 1e-9);
+        }
     }
 }
 
@@ -81,13 +87,16 @@ fn mirror_maps_key_to_inverse_conjugate_for_the_walk() {
     let b = sigs_of(&swapped, &params);
     let kb = key_by_landmark(&b, pts.len());
     for i in 0..a.len() {
-        let k = a.keys[i];
-        // Invert the bounded map: r = key / (1 − |key|).
-        let m = k[0].hypot(k[1]);
-        let r = Complex64::new(k[0], k[1]) / (1.0 - m);
-        let want = fourier::bounded(1.0 / r.conj());
-        let got = kb[a.landmark(i) as usize].unwrap();
-        assert!((want[0] - got[0]).abs() < 1e-6 && (want[1] - got[1]).abs() < 1e-6);
+        let got = kb[a.landmark(i) as usize].as_ref().unwrap();
+        for h in 0..params.harmonics.len() {
+            let k = &a.key(i)[2 * h..2 * h + 2];
+            // Invert the bounded map: r = key / (1 − |key|).
+            let m = k[0].hypot(k[1]);
+            let r = Complex64::new(k[0], k[1]) / (1.0 - m);
+            let want = fourier::bounded(1.0 / r.conj());
+            let g = &got[2 * h..2 * h + 2];
+            assert!((want[0] - g[0]).abs() < 1e-6 && (want[1] - g[1]).abs() < 1e-6);
+        }
     }
 }
 
@@ -119,11 +128,15 @@ fn options_are_validated() {
         ..Default::default()
     };
     assert!(bad.validate().is_err());
-    let bad = SignatureParams {
-        neighbours: 5,
-        harmonic: 3,
+    let with = |neighbours: usize, harmonics: Vec<usize>| SignatureParams {
+        neighbours,
+        harmonics,
         ..Default::default()
     };
-    assert!(bad.validate().is_err());
+    assert!(with(5, vec![3]).validate().is_err());
+    assert!(with(5, vec![1, 1]).validate().is_err());
+    assert!(with(3, vec![1, 2]).validate().is_err());
+    assert!(with(5, vec![1, 2, 3]).validate().is_err());
+    assert!(with(3, vec![1]).validate().is_ok());
     assert!(SignatureParams::default().validate().is_ok());
 }
