@@ -98,8 +98,9 @@ pub struct Guided {
     pub rounds: usize,
 }
 
-/// Iterates pairing and refitting from `start` until the pair set is stable or `max_rounds`
-/// is reached. Pairs are recomputed under the final transform.
+/// Iterates pairing and refitting from `start` until the pairs are stable, or the transform
+/// moves less than a thousandth of the tolerance anywhere over the target's extent, or
+/// `max_rounds` is reached. Pairs are those under the final transform.
 pub fn guided(
     frames: &Frames,
     start: Similarity,
@@ -108,6 +109,12 @@ pub fn guided(
     subset: Option<&[u32]>,
     max_rounds: usize,
 ) -> Guided {
+    let probe = extent_corners(frames.target);
+    let settled = |a: &Similarity, b: &Similarity| {
+        probe
+            .iter()
+            .all(|&p| crate::spatial::dist2(a.apply(p), b.apply(p)) < (1e-3 * tolerance).powi(2))
+    };
     let mut s = start;
     let (mut pairs, mut covered) = mutual_pairs(frames, &s, tolerance, coverage, subset);
     let mut rounds = 0;
@@ -119,6 +126,7 @@ pub fn guided(
             break;
         }
         rounds += 1;
+        let still = settled(&s, &fit.transform);
         let (next, next_covered) =
             mutual_pairs(frames, &fit.transform, tolerance, coverage, subset);
         let same = next.len() == pairs.len()
@@ -129,7 +137,7 @@ pub fn guided(
         s = fit.transform;
         pairs = next;
         covered = next_covered;
-        if same {
+        if same || still {
             break;
         }
     }
@@ -139,6 +147,23 @@ pub fn guided(
         covered,
         rounds,
     }
+}
+
+/// Corners of the bounding box of `points` (from a strided pass).
+pub fn extent_corners(points: &[[f64; 2]]) -> [[f64; 2]; 4] {
+    let (mut lo, mut hi) = ([f64::INFINITY; 2], [f64::NEG_INFINITY; 2]);
+    for p in points.iter().step_by((points.len() / 1000).max(1)) {
+        for d in 0..2 {
+            lo[d] = lo[d].min(p[d]);
+            hi[d] = hi[d].max(p[d]);
+        }
+    }
+    [
+        [lo[0], lo[1]],
+        [hi[0], lo[1]],
+        [hi[0], hi[1]],
+        [lo[0], hi[1]],
+    ]
 }
 
 #[cfg(test)]

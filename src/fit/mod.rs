@@ -246,8 +246,12 @@ pub fn robust_fit(
     ranked.sort_by_key(|r| std::cmp::Reverse(r.0));
     let mut best: Option<(guided::Guided, &ransac::Hypothesis)> = None;
     let full_runs = if coarse.is_some() { 1 } else { ranked.len() };
+    progress("guided matching on every landmark");
+    // Every landmark, visited in Morton order: k-d tree queries in spatial order are several
+    // times faster than in file order.
+    let everyone = morton_order(input.target);
     for (_, start, h) in ranked.into_iter().take(full_runs) {
-        let g = guided(&frames, start, tolerance, coverage, None, 20);
+        let g = guided(&frames, start, tolerance, coverage, Some(&everyone), 20);
         if best
             .as_ref()
             .is_none_or(|(b, _)| g.pairs.len() > b.pairs.len())
@@ -315,7 +319,15 @@ pub fn robust_fit(
         let sigma = res[mid] / (2.0 * std::f64::consts::LN_2).sqrt();
         let tightened = (RAYLEIGH_999 * sigma).clamp(0.02 * tolerance, tolerance);
         if tightened < tolerance {
-            let g2 = guided(&frames, g.transform, tightened, coverage, None, 10);
+            progress("tightening the inlier tolerance");
+            let g2 = guided(
+                &frames,
+                g.transform,
+                tightened,
+                coverage,
+                Some(&everyone),
+                10,
+            );
             if g2.pairs.len() >= params.min_control_points {
                 g = g2;
                 inlier_tolerance = tightened;

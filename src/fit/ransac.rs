@@ -204,7 +204,7 @@ pub fn ransac(input: &RansacInput, params: &RansacParams) -> RansacOutcome {
     };
     out.sample_size = scorer.sample.len();
     let k = input.target_signatures.vertices_per_polygon;
-    let probe = extent_probe(input.target);
+    let probe = super::guided::extent_corners(input.target);
     let mut needed = params.max_rounds as u64;
     let mut best_consensus = 0usize;
     // Candidates drawn so far, and the (target, reference) landmarks of each 1-signature draw,
@@ -308,22 +308,4 @@ fn keep_best(
     let at = best.partition_point(|b| b.consensus >= h.consensus);
     best.insert(at, h);
     best.truncate(params.keep);
-}
-
-/// Four probe points near the corners of the target's extent.
-fn extent_probe(points: &[[f64; 2]]) -> [[f64; 2]; 4] {
-    let (mut lo, mut hi) = ([f64::INFINITY; 2], [f64::NEG_INFINITY; 2]);
-    // A strided pass is enough to place the probes.
-    for p in points.iter().step_by((points.len() / 1000).max(1)) {
-        for d in 0..2 {
-            lo[d] = lo[d].min(p[d]);
-            hi[d] = hi[d].max(p[d]);
-        }
-    }
-    [
-        [lo[0], lo[1]],
-        [hi[0], lo[1]],
-        [hi[0], hi[1]],
-        [lo[0], hi[1]],
-    ]
 }

@@ -112,12 +112,18 @@ mod tests {
             for ti in 0..t.len() {
                 let mut brute: Vec<(usize, f64)> = (0..r.len())
                     .map(|i| {
-                        let d2: f64 = r.key(i).iter().zip(t.key(ti)).map(|(a, b)| (a - b).powi(2)).sum();
+                        let d2: f64 = r
+                            .key(i)
+                            .iter()
+                            .zip(t.key(ti))
+                            .map(|(a, b)| (a - b).powi(2))
+                            .sum();
                         (i, d2.sqrt())
                     })
                     .collect();
                 brute.sort_by(|a, b| a.1.total_cmp(&b.1));
-                let mut got: Vec<&Candidate> = c.iter().filter(|x| x.target as usize == ti).collect();
+                let mut got: Vec<&Candidate> =
+                    c.iter().filter(|x| x.target as usize == ti).collect();
                 got.sort_by(|a, b| a.distance.total_cmp(&b.distance));
                 for (g, b) in got.iter().zip(&brute) {
                     assert_eq!(g.reference as usize, b.0, "dims {dims}");

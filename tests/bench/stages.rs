@@ -77,7 +77,13 @@ fn main() {
             metres_per_unit: 1.0,
             reference_spacing: spacing,
         };
-        let out = fit::robust_fit(&input, &fit::FitParams::default(), &mut |_| {});
+        let clock = Instant::now();
+        let verbose = std::env::var_os("TIEMARK_BENCH_VERBOSE").is_some();
+        let out = fit::robust_fit(&input, &fit::FitParams::default(), &mut |m| {
+            if verbose {
+                eprintln!("  {:>7.2} s  {m}", clock.elapsed().as_secs_f64());
+            }
+        });
         let t4 = Instant::now();
         let cps = match out {
             fit::FitOutcome::Found(s) => s.pairs.len().to_string(),
