@@ -36,7 +36,7 @@ pub struct SignatureParams {
 impl Default for SignatureParams {
     fn default() -> Self {
         SignatureParams {
-            neighbours: 4,
+            neighbours: 5,
             order: VertexOrder::Walk,
             harmonics: vec![1, 2],
         }

@@ -102,7 +102,7 @@ fn mirror_maps_key_to_inverse_conjugate_for_the_walk() {
 
 #[test]
 fn too_few_landmarks_is_an_error() {
-    let pts = random_points(1, 4);
+    let pts = random_points(1, 5);
     let index = PointIndex::new(&pts).unwrap();
     let err = compute(
         "reference",
@@ -114,8 +114,8 @@ fn too_few_landmarks_is_an_error() {
     assert!(matches!(
         err,
         Err(SignatureError::TooFewLandmarks {
-            found: 4,
-            needed: 5,
+            found: 5,
+            needed: 6,
             ..
         })
     ));

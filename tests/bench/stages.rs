@@ -4,7 +4,8 @@
 //! `cargo bench --bench stages -- 100000` for chosen sizes. Prints one Markdown table row per
 //! size: seconds per stage, end to end, and the process's peak resident memory so far.
 //! Surveys: jittered grid, 28% missing on each side, 25% new, noise 1% of the spacing, rotation
-//! 37°, scale 2.7.
+//! 37°, scale 2.7. `TIEMARK_K=5` changes the neighbours per signature;
+//! `TIEMARK_BENCH_VERBOSE=1` prints the robust fit's steps with their times.
 
 use std::time::Instant;
 use tiemark::fit::{self, Similarity};
@@ -57,7 +58,10 @@ fn main() {
         let ti = PointIndex::new(&p.target).expect("tree");
         let spacing = median_spacing(&p.reference, &ri, 10_000).expect("spacing");
         let t1 = Instant::now();
-        let params = SignatureParams::default();
+        let mut params = SignatureParams::default();
+        if let Some(k) = std::env::var("TIEMARK_K").ok().and_then(|v| v.parse().ok()) {
+            params.neighbours = k;
+        }
         let rs = signatures::compute("reference", &p.reference, &ri, &params, &mut |_| {})
             .expect("signatures");
         let ts = signatures::compute("target", &p.target, &ti, &params, &mut |_| {})
