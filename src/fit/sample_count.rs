@@ -7,6 +7,11 @@
 /// Number of samples of size `s` needed to draw at least one all-inlier sample with
 /// probability `confidence`, when a fraction `inlier_ratio` of the data are inliers.
 /// Saturates at `u64::MAX` when the ratio is zero.
+///
+/// ```
+/// // Hartley & Zisserman, Table 4.3: two-point samples, 50% outliers, p = 0.99.
+/// assert_eq!(tiemark::fit::sample_count::sample_count(0.99, 0.5, 2), 17);
+/// ```
 pub fn sample_count(confidence: f64, inlier_ratio: f64, s: u32) -> u64 {
     let w = inlier_ratio.clamp(0.0, 1.0);
     if w >= 1.0 {

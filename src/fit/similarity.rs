@@ -122,6 +122,17 @@ pub struct SimilarityFit {
 /// Closed-form least-squares similarity mapping `from[i]` onto `to[i]`.
 ///
 /// Returns `None` when fewer than two pairs are given or all `from` points coincide.
+///
+/// ```
+/// use tiemark::fit::similarity::{fit_similarity, Similarity};
+/// let truth = Similarity::from_params(2.0, 30f64.to_radians(), 100.0, -50.0);
+/// let from = [[0.0, 0.0], [10.0, 0.0], [0.0, 10.0], [7.0, 3.0]];
+/// let to: Vec<[f64; 2]> = from.iter().map(|&p| truth.apply(p)).collect();
+/// let fit = fit_similarity(&from, &to).unwrap();
+/// assert!((fit.transform.scale() - 2.0).abs() < 1e-12);
+/// assert!((fit.transform.rotation().to_degrees() - 30.0).abs() < 1e-9);
+/// assert!(fit.rmse < 1e-9);
+/// ```
 pub fn fit_similarity(from: &[[f64; 2]], to: &[[f64; 2]]) -> Option<SimilarityFit> {
     fit_similarity_indexed(from.len().min(to.len()), |i| (from[i], to[i]))
 }

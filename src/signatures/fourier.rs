@@ -102,6 +102,16 @@ pub fn dft_coefficient(z: &[Complex64], k: usize) -> Complex64 {
 }
 
 /// r_j of one polygon by the direct DFT (oracle).
+///
+/// ```
+/// use rustfft::num_complex::Complex64 as C;
+/// use tiemark::signatures::fourier::ratio_direct;
+/// let square = [C::new(0.0, 0.0), C::new(1.0, 0.2), C::new(1.3, 1.1), C::new(-0.1, 0.9), C::new(-0.5, 0.4)];
+/// // Rotate by 40°, scale by 3, shift: the ratio does not change.
+/// let a = C::from_polar(3.0, 40f64.to_radians());
+/// let moved: Vec<C> = square.iter().map(|z| a * z + C::new(5.0, -2.0)).collect();
+/// assert!((ratio_direct(&square, 1) - ratio_direct(&moved, 1)).norm() < 1e-12);
+/// ```
 pub fn ratio_direct(z: &[Complex64], j: usize) -> Complex64 {
     dft_coefficient(z, j) / dft_coefficient(z, z.len() - j)
 }
