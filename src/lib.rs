@@ -24,6 +24,7 @@
 //! surveyors.
 
 pub mod emit;
+pub mod experiment;
 pub mod fit;
 pub mod ingest;
 pub mod landmarks;

@@ -8,6 +8,7 @@ use std::path::PathBuf;
 use std::process::ExitCode;
 use tiemark::fit::FitParams;
 use tiemark::ingest::IngestOptions;
+use tiemark::matching::Rank;
 use tiemark::pipeline::config::{FrameSection, MatchingParams, OutputOptions, SurveyInput};
 use tiemark::pipeline::{self, MatchConfig, MatchOutcome};
 use tiemark::signatures::{SignatureParams, VertexOrder};
@@ -47,6 +48,14 @@ enum OrderArg {
     Walk,
     /// Counter-clockwise around the landmark from its nearest neighbour.
     Angular,
+}
+
+#[derive(Clone, Copy, ValueEnum)]
+enum RankArg {
+    /// Plain distance between keys.
+    Distance,
+    /// Distance divided by the predicted noise of the two keys.
+    Sensitivity,
 }
 
 #[derive(Args)]
@@ -94,6 +103,18 @@ struct MatchArgs {
     /// Fourier harmonics of the signature ratios, comma-separated: one gives a 2-D key, two a 4-D key.
     #[arg(long, value_delimiter = ',', default_value = "1,2")]
     harmonics: Vec<usize>,
+    /// Apply the fixed pseudo-random permutation to every polygon's vertex order.
+    #[arg(long)]
+    permuted: bool,
+    /// Subset signatures: leave out 0, 1 or 2 of the nearest neighbours in every possible way.
+    #[arg(long, default_value_t = SignatureParams::default().leave_out)]
+    leave_out: usize,
+    /// Ambiguity-aware walk: follow both steps when they are within this relative margin (0: off).
+    #[arg(long, allow_negative_numbers = true, default_value_t = SignatureParams::default().ambiguity)]
+    ambiguity: f64,
+    /// How candidates are ranked: by key distance, or by key distance over the keys' predicted noise sensitivity.
+    #[arg(long, value_enum, default_value = "distance")]
+    rank: RankArg,
     /// Reference signatures proposed per target signature.
     #[arg(long, default_value_t = MatchingParams::default().candidates)]
     candidates: usize,
@@ -161,9 +182,16 @@ impl MatchArgs {
                     OrderArg::Angular => VertexOrder::Angular,
                 },
                 harmonics: self.harmonics,
+                permuted: self.permuted,
+                leave_out: self.leave_out,
+                ambiguity: self.ambiguity,
             },
             matching: MatchingParams {
                 candidates: self.candidates,
+                rank: match self.rank {
+                    RankArg::Distance => Rank::Distance,
+                    RankArg::Sensitivity => Rank::Sensitivity,
+                },
             },
             fit: FitParams {
                 tolerance_m: self.tolerance,

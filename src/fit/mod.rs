@@ -212,6 +212,7 @@ pub fn robust_fit(
         max_rounds: params.max_rounds,
         seed: params.seed,
         keep: 4,
+        chance_rate: significance::poisson_chance_rate(tolerance, input.reference_spacing),
     };
     let r = ransac::ransac(&rin, &rparams);
     if r.best.is_empty() {

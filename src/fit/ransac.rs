@@ -6,10 +6,14 @@
 //!   rarely does);
 //! - a **2-point hypothesis**: the exact similarity through the landmarks of two candidates.
 //!
-//! A hypothesis first has to pass a cheap local pre-test (in the spirit of the T(d,d) test of
-//! Matas & Chum, BMVC 2002): of the [`LOCAL_RING`] target landmarks just beyond the polygon,
-//! at least [`LOCAL_HITS`] must land within the tolerance of a reference landmark. Only then is
-//! its consensus counted: the landmarks of a fixed, spread sample of at most [`SCORE_SAMPLE`]
+//! A hypothesis first has to pass a cheap local pre-test: the target landmarks just beyond its
+//! polygon, nearest first, are mapped one by one, and Wald's sequential probability ratio test
+//! decides between "a correct transform" (a landmark lands within the tolerance of a reference
+//! landmark with probability at least [`HIT_RATE_IF_RIGHT`]) and "chance" (probability δ, the
+//! chance rate at the reference's density), with error rates [`SPRT_ALPHA`] and [`SPRT_BETA`]
+//! (Wald, *Sequential Analysis*, 1947; used for RANSAC by Matas & Chum, ICCV 2005). At most
+//! [`LOCAL_RING`] landmarks are looked at; undecided counts as rejected. Only then is its
+//! consensus counted: the landmarks of a fixed, spread sample of at most [`SCORE_SAMPLE`]
 //! target landmarks that it maps within the tolerance of a reference landmark. A new best is
 //! refitted on its consensus (the local optimisation of LO-RANSAC, Chum, Matas & Kittler,
 //! DAGM 2003).
@@ -29,10 +33,16 @@ use rand::{Rng, SeedableRng};
 
 /// Target landmarks scored per hypothesis (a spread sample).
 pub const SCORE_SAMPLE: usize = 2_000;
-/// Landmarks beyond the polygon looked at by the local pre-test.
-pub const LOCAL_RING: usize = 8;
-/// Of those, how many must land on a reference landmark.
-pub const LOCAL_HITS: usize = 4;
+/// Most landmarks beyond the polygon looked at by the local pre-test.
+pub const LOCAL_RING: usize = 24;
+/// Hit rate assumed for a correct transform: with 40% of the landmarks missing and 40% new on
+/// each side, a target landmark has a reference partner with probability 0.6 · 0.6 = 0.36; the
+/// test is set a little below that.
+pub const HIT_RATE_IF_RIGHT: f64 = 0.25;
+/// Probability of accepting a wrong hypothesis in the pre-test.
+pub const SPRT_ALPHA: f64 = 0.01;
+/// Probability of rejecting a correct one.
+pub const SPRT_BETA: f64 = 0.05;
 
 /// What RANSAC needs to see.
 pub struct RansacInput<'a> {
@@ -65,6 +75,9 @@ pub struct RansacParams {
     pub seed: u64,
     /// Keep this many distinct best hypotheses.
     pub keep: usize,
+    /// Probability that a landmark mapped by a wrong transform lands within the tolerance of a
+    /// reference landmark (δ of the pre-test).
+    pub chance_rate: f64,
 }
 
 /// A scored hypothesis.
@@ -89,11 +102,32 @@ pub struct RansacOutcome {
     pub sample_size: usize,
 }
 
+/// Log-likelihood-ratio steps and thresholds of the pre-test.
+struct Sprt {
+    hit: f64,
+    miss: f64,
+    accept: f64,
+    reject: f64,
+}
+
+impl Sprt {
+    fn new(chance: f64) -> Sprt {
+        let (e, d) = (HIT_RATE_IF_RIGHT, chance.clamp(0.01, 0.2));
+        Sprt {
+            hit: (e / d).ln(),
+            miss: ((1.0 - e) / (1.0 - d)).ln(),
+            accept: ((1.0 - SPRT_BETA) / SPRT_ALPHA).ln(),
+            reject: (SPRT_BETA / (1.0 - SPRT_ALPHA)).ln(),
+        }
+    }
+}
+
 struct Scorer<'a> {
     input: &'a RansacInput<'a>,
     sample: Vec<u32>,
     tol2: f64,
     scratch: Vec<(u32, f64)>,
+    sprt: Sprt,
 }
 
 impl Scorer<'_> {
@@ -106,30 +140,32 @@ impl Scorer<'_> {
             .is_some_and(|(_, d2)| d2 < self.tol2)
     }
 
-    /// The local pre-test around target landmark `t0`, skipping the first `skip` neighbours.
+    /// The local pre-test (SPRT) around target landmark `t0`, skipping its first `skip`
+    /// neighbours (itself and the polygon's vertices, which the hypothesis was fitted to).
     fn local_test(&mut self, s: &Similarity, t0: u32, skip: usize) -> bool {
         let p = self.input.target[t0 as usize];
         let mut ring = std::mem::take(&mut self.scratch);
         self.input
             .target_index
             .nearest_n(p, skip + LOCAL_RING, &mut ring);
-        let mut hits = 0;
-        let mut misses = 0;
+        let mut llr = 0.0;
+        let mut accepted = false;
         for &(t, _) in ring.iter().skip(skip) {
-            if self.hits(s, t) {
-                hits += 1;
-                if hits >= LOCAL_HITS {
-                    break;
-                }
+            llr += if self.hits(s, t) {
+                self.sprt.hit
             } else {
-                misses += 1;
-                if misses > LOCAL_RING - LOCAL_HITS {
-                    break;
-                }
+                self.sprt.miss
+            };
+            if llr >= self.sprt.accept {
+                accepted = true;
+                break;
+            }
+            if llr <= self.sprt.reject {
+                break;
             }
         }
         self.scratch = ring;
-        hits >= LOCAL_HITS
+        accepted
     }
 
     fn consensus(&self, s: &Similarity) -> usize {
@@ -201,6 +237,7 @@ pub fn ransac(input: &RansacInput, params: &RansacParams) -> RansacOutcome {
         sample: order.into_iter().step_by(step).collect(),
         tol2: params.tolerance * params.tolerance,
         scratch: Vec::new(),
+        sprt: Sprt::new(params.chance_rate),
     };
     out.sample_size = scorer.sample.len();
     let k = input.target_signatures.vertices_per_polygon;

@@ -12,6 +12,19 @@ use crate::spatial::morton_order;
 use kiddo::{ImmutableKdTree, SquaredEuclidean};
 use std::num::NonZero;
 
+/// How the candidates of one query are ranked.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Rank {
+    /// By Euclidean distance between keys.
+    #[default]
+    Distance,
+    /// By key distance divided by the predicted noise of the two keys,
+    /// √(s_t² + s_r²) from [`crate::signatures::fourier::key_sensitivity`]: twice as many
+    /// neighbours are fetched and the best half kept.
+    Sensitivity,
+}
+
 /// One candidate correspondence between a target and a reference signature.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Candidate {
@@ -19,7 +32,8 @@ pub struct Candidate {
     pub target: u32,
     /// Index into the reference signatures.
     pub reference: u32,
-    /// Euclidean distance between the two keys (smaller is better).
+    /// Ranking score, smaller is better: the key distance, or that distance over the keys'
+    /// predicted noise ([`Rank`]).
     pub distance: f64,
 }
 
@@ -33,12 +47,13 @@ pub fn candidates(
     reference: &Signatures,
     target: &Signatures,
     per_query: usize,
+    rank: Rank,
     progress: &mut dyn FnMut(usize),
 ) -> Vec<Candidate> {
     assert_eq!(reference.key_dims, target.key_dims, "key dimensions differ");
     let mut out = match reference.key_dims {
-        2 => candidates_k::<2>(reference, target, per_query, progress),
-        4 => candidates_k::<4>(reference, target, per_query, progress),
+        2 => candidates_k::<2>(reference, target, per_query, rank, progress),
+        4 => candidates_k::<4>(reference, target, per_query, rank, progress),
         d => panic!("unsupported key dimension {d}"),
     };
     out.sort_by(|a, b| a.distance.total_cmp(&b.distance));
@@ -56,9 +71,14 @@ fn candidates_k<const K: usize>(
     reference: &Signatures,
     target: &Signatures,
     per_query: usize,
+    rank: Rank,
     progress: &mut dyn FnMut(usize),
 ) -> Vec<Candidate> {
-    let (Some(n), false) = (NonZero::new(per_query), reference.is_empty()) else {
+    let fetch = match rank {
+        Rank::Distance => per_query,
+        Rank::Sensitivity => 2 * per_query,
+    };
+    let (Some(n), false) = (NonZero::new(fetch), reference.is_empty()) else {
         return Vec::new();
     };
     let rkeys = as_points::<K>(reference);
@@ -73,11 +93,22 @@ fn candidates_k<const K: usize>(
             .query(&tkeys[t as usize])
             .nearest_n::<SquaredEuclidean<f64>>(n)
             .execute();
+        let start = out.len();
         out.extend(found.into_iter().map(|r| Candidate {
             target: t,
             reference: r.item,
             distance: r.distance.sqrt(),
         }));
+        if rank == Rank::Sensitivity {
+            let st = target.sensitivity[t as usize] as f64;
+            let mine = &mut out[start..];
+            for c in mine.iter_mut() {
+                let sr = reference.sensitivity[c.reference as usize] as f64;
+                c.distance /= (st * st + sr * sr).sqrt().max(f64::MIN_POSITIVE);
+            }
+            mine.sort_by(|a, b| a.distance.total_cmp(&b.distance));
+            out.truncate(start + per_query);
+        }
         if i % 65536 == 65535 {
             progress(i + 1);
         }
@@ -97,6 +128,7 @@ mod tests {
             polygons: (0..n as u32).collect(),
             key_dims: dims,
             keys: (0..n * dims).map(|_| rng.gen_range(-1.0..1.0)).collect(),
+            sensitivity: vec![1.0; n],
         }
     }
 
@@ -106,7 +138,7 @@ mod tests {
         for dims in [2, 4] {
             let r = random_sigs(&mut rng, 2000, dims);
             let t = random_sigs(&mut rng, 300, dims);
-            let c = candidates(&r, &t, 3, &mut |_| {});
+            let c = candidates(&r, &t, 3, Rank::Distance, &mut |_| {});
             assert_eq!(c.len(), 900);
             assert!(c.windows(2).all(|w| w[0].distance <= w[1].distance));
             for ti in 0..t.len() {

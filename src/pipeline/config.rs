@@ -26,9 +26,13 @@
 //! neighbours = 4
 //! order = "walk"             # or "angular"
 //! harmonics = [1, 2]       # one harmonic: 2-D keys; two: 4-D keys
+//! permuted = false         # fixed pseudo-random permutation of the vertex order
+//! leave_out = 0            # subset signatures: leave out 0, 1 or 2 neighbours
+//! ambiguity = 0.0          # walk branches where two steps are within this margin
 //!
 //! [matching]
 //! candidates = 3
+//! rank = "distance"        # or "sensitivity"
 //!
 //! [fit]
 //! tolerance_m = 2.0          # optional: default a quarter of the reference's spacing
@@ -87,11 +91,16 @@ pub struct FrameSection {
 pub struct MatchingParams {
     /// Reference signatures proposed per target signature.
     pub candidates: usize,
+    /// How candidates are ranked.
+    pub rank: crate::matching::Rank,
 }
 
 impl Default for MatchingParams {
     fn default() -> Self {
-        MatchingParams { candidates: 3 }
+        MatchingParams {
+            candidates: 3,
+            rank: crate::matching::Rank::Distance,
+        }
     }
 }
 

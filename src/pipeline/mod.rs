@@ -230,9 +230,13 @@ pub fn solve_points(
     })?;
     bar.finish_and_clear();
     let bar = progress.bar(ts.len() as u64, "matching signatures");
-    let cands = matching::candidates(&rs, &ts, config.matching.candidates, &mut |n| {
-        bar.set_position(n as u64)
-    });
+    let cands = matching::candidates(
+        &rs,
+        &ts,
+        config.matching.candidates,
+        config.matching.rank,
+        &mut |n| bar.set_position(n as u64),
+    );
     bar.finish_and_clear();
     let counts = (rs.len(), ts.len(), cands.len());
     let spin = progress.spinner("robust fit");

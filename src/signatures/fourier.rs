@@ -59,17 +59,59 @@ impl RatioPlan {
     /// # Panics
     /// When `polygons.len()` is not a multiple of `n`.
     pub fn ratios(&mut self, polygons: &mut [Complex64], out: &mut Vec<Complex64>) {
-        assert_eq!(polygons.len() % self.n, 0, "buffer is not whole polygons");
-        if polygons.is_empty() {
-            return;
-        }
-        self.fft.process_with_scratch(polygons, &mut self.scratch);
+        self.transform(polygons);
         for z in polygons.chunks_exact(self.n) {
             for &j in &self.js {
                 out.push(z[j] / z[self.n - j]);
             }
         }
     }
+
+    /// As [`RatioPlan::ratios`], and appends per polygon the first-order noise sensitivity of
+    /// its key to `sensitivity` (see [`key_sensitivity`]).
+    pub fn ratios_and_sensitivity(
+        &mut self,
+        polygons: &mut [Complex64],
+        out: &mut Vec<Complex64>,
+        sensitivity: &mut Vec<f32>,
+    ) {
+        self.transform(polygons);
+        for z in polygons.chunks_exact(self.n) {
+            for &j in &self.js {
+                out.push(z[j] / z[self.n - j]);
+            }
+            sensitivity.push(key_sensitivity(z, &self.js) as f32);
+        }
+    }
+
+    fn transform(&mut self, polygons: &mut [Complex64]) {
+        assert_eq!(polygons.len() % self.n, 0, "buffer is not whole polygons");
+        if !polygons.is_empty() {
+            self.fft.process_with_scratch(polygons, &mut self.scratch);
+        }
+    }
+}
+
+/// First-order noise sensitivity of a key, from the polygon's spectrum `z` (Z_0 … Z_{n−1}).
+///
+/// With independent vertex noise σ per coordinate, δZ_k has variance 2nσ², so
+/// Var(δr_j) ≈ 2nσ²(1 + |r_j|²)/|Z_{−j}|² (first order; derived here, see
+/// ../shared/REFERENCES.md — not a published formula). The bounded map r ↦ r/(1 + |r|) shrinks
+/// a displacement by at most 1/(1 + |r|). σ is taken relative to the polygon's size: the RMS
+/// distance ρ of the vertices from their centroid, which by Parseval is
+/// ρ² = Σ_{k≠0} |Z_k|² / n². The result is the predicted standard deviation of the key per
+/// unit of relative vertex noise σ/ρ, summed over the harmonics in quadrature.
+pub fn key_sensitivity(z: &[Complex64], js: &[usize]) -> f64 {
+    let n = z.len();
+    let rho2: f64 = z[1..].iter().map(|c| c.norm_sqr()).sum::<f64>() / (n * n) as f64;
+    js.iter()
+        .map(|&j| {
+            let zm = z[n - j].norm_sqr();
+            let r = (z[j].norm_sqr() / zm).sqrt();
+            2.0 * n as f64 * (1.0 + r * r) * rho2 / (zm * (1.0 + r).powi(2))
+        })
+        .sum::<f64>()
+        .sqrt()
 }
 
 /// Maps a ratio r from the whole complex plane into the open unit disc, r / (1 + |r|), so that

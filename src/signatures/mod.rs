@@ -13,6 +13,7 @@
 
 pub mod fourier;
 pub mod neighbourhood;
+pub mod permutation;
 
 pub use neighbourhood::VertexOrder;
 
@@ -31,6 +32,15 @@ pub struct SignatureParams {
     /// Fourier harmonics j of the ratios Z_j / Z_{−j}; each gives two key dimensions (one
     /// harmonic: a 2-D key; two: a 4-D key).
     pub harmonics: Vec<usize>,
+    /// Reorder every polygon by the fixed pseudo-random permutation before the transform.
+    pub permuted: bool,
+    /// Subset signatures: from the k + `leave_out` nearest neighbours, one signature for every
+    /// way of leaving `leave_out` of them out (0, 1 or 2), so that a neighbour missing from, or
+    /// new in, one survey still leaves an exact match.
+    pub leave_out: usize,
+    /// Ambiguity-aware walk: where two steps are within this relative margin, emit both orders
+    /// (0 = off).
+    pub ambiguity: f64,
 }
 
 impl Default for SignatureParams {
@@ -39,6 +49,9 @@ impl Default for SignatureParams {
             neighbours: 5,
             order: VertexOrder::Walk,
             harmonics: vec![1, 2],
+            permuted: false,
+            leave_out: 0,
+            ambiguity: 0.0,
         }
     }
 }
@@ -57,6 +70,12 @@ pub enum SignatureError {
         /// Polygon length.
         vertices: usize,
     },
+    /// Subset depth outside 0..=2.
+    #[error("--leave-out (leave_out in a pipeline file) must be 0, 1 or 2 (got {0})")]
+    InvalidLeaveOut(usize),
+    /// Ambiguity margin outside [0, 0.5].
+    #[error("--ambiguity (ambiguity in a pipeline file) must be between 0 and 0.5 (got {0})")]
+    InvalidAmbiguity(f64),
     /// Fewer landmarks than one neighbourhood needs.
     #[error("{role} has {found} landmarks, but one neighbourhood needs {needed} (neighbours + 1); use a larger area or a smaller --neighbours")]
     TooFewLandmarks {
@@ -81,6 +100,9 @@ pub struct Signatures {
     /// Keys laid end to end, `key_dims` values each: per harmonic, r_j mapped into the unit
     /// disc.
     pub keys: Vec<f64>,
+    /// Predicted standard deviation of each key per unit of relative vertex noise
+    /// ([`fourier::key_sensitivity`]).
+    pub sensitivity: Vec<f32>,
 }
 
 impl Signatures {
@@ -126,6 +148,12 @@ impl SignatureParams {
                 vertices: n,
             });
         }
+        if self.leave_out > 2 {
+            return Err(SignatureError::InvalidLeaveOut(self.leave_out));
+        }
+        if !(self.ambiguity.is_finite() && (0.0..=0.5).contains(&self.ambiguity)) {
+            return Err(SignatureError::InvalidAmbiguity(self.ambiguity));
+        }
         Ok(())
     }
 }
@@ -152,6 +180,7 @@ pub fn compute(
     }
     let mut plan = fourier::RatioPlan::new(n, &params.harmonics);
     let per = params.harmonics.len();
+    let perm = params.permuted.then(|| permutation::fixed_permutation(n));
     let order = morton_order(points);
     const CHUNK: usize = 1 << 14;
     let mut sigs = Signatures {
@@ -159,38 +188,69 @@ pub fn compute(
         polygons: Vec::with_capacity(points.len() * n),
         key_dims: 2 * per,
         keys: Vec::with_capacity(points.len() * 2 * per),
+        sensitivity: Vec::with_capacity(points.len()),
     };
+    let pool = k + params.leave_out;
+    let subsets = subsets(pool, params.leave_out);
     let mut key = Vec::with_capacity(2 * per);
-    let mut found = Vec::with_capacity(n + 1);
-    let mut nbrs = Vec::with_capacity(n);
-    let mut poly = Vec::with_capacity(n);
+    let mut found = Vec::with_capacity(pool + 1);
+    let mut nbrs = Vec::with_capacity(pool);
+    let mut subset = Vec::with_capacity(k);
     let mut buffer: Vec<Complex64> = Vec::with_capacity(CHUNK * n);
-    let mut ratios = Vec::with_capacity(CHUNK);
+    let mut ratios = Vec::with_capacity(CHUNK * per);
+    let mut sens = Vec::with_capacity(CHUNK);
     let mut chunk_polys: Vec<u32> = Vec::with_capacity(CHUNK * n);
+    let mut vertices: Vec<Complex64> = Vec::with_capacity(n);
+    let mut scratch = Vec::with_capacity(n);
     for (done, chunk) in order.chunks(CHUNK).enumerate() {
         buffer.clear();
         ratios.clear();
+        sens.clear();
         chunk_polys.clear();
         for &c in chunk {
-            index.nearest_n(points[c as usize], n, &mut found);
+            index.nearest_n(points[c as usize], pool + 1, &mut found);
             nbrs.clear();
-            nbrs.extend(found.iter().map(|x| x.0).filter(|&i| i != c).take(k));
-            if nbrs.len() < k {
+            nbrs.extend(found.iter().map(|x| x.0).filter(|&i| i != c).take(pool));
+            if nbrs.len() < pool {
                 continue;
             }
-            neighbourhood::order_polygon(params.order, points, c, &nbrs, &mut poly);
             let o = points[c as usize];
-            buffer.extend(poly.iter().map(|&v| {
-                Complex64::new(points[v as usize][0] - o[0], points[v as usize][1] - o[1])
-            }));
-            chunk_polys.extend_from_slice(&poly);
+            for omit in &subsets {
+                subset.clear();
+                subset.extend(
+                    nbrs.iter()
+                        .enumerate()
+                        .filter(|(i, _)| !omit.contains(i))
+                        .map(|(_, &v)| v),
+                );
+                let start = chunk_polys.len();
+                neighbourhood::order_polygons(
+                    params.order,
+                    points,
+                    c,
+                    &subset,
+                    params.ambiguity,
+                    &mut chunk_polys,
+                );
+                for poly in chunk_polys[start..].chunks_exact(n) {
+                    vertices.clear();
+                    vertices.extend(poly.iter().map(|&v| {
+                        Complex64::new(points[v as usize][0] - o[0], points[v as usize][1] - o[1])
+                    }));
+                    if let Some(p) = &perm {
+                        permutation::apply(p, &mut vertices, &mut scratch);
+                    }
+                    buffer.extend_from_slice(&vertices);
+                }
+            }
         }
-        plan.ratios(&mut buffer, &mut ratios);
+        plan.ratios_and_sensitivity(&mut buffer, &mut ratios, &mut sens);
         for (i, rs) in ratios.chunks_exact(per).enumerate() {
             key.clear();
             key.extend(rs.iter().flat_map(|r| fourier::bounded(*r)));
             if key.iter().all(|v| v.is_finite()) {
                 sigs.keys.extend_from_slice(&key);
+                sigs.sensitivity.push(sens[i]);
                 sigs.polygons
                     .extend_from_slice(&chunk_polys[i * n..(i + 1) * n]);
             }
@@ -198,6 +258,18 @@ pub fn compute(
         progress(((done + 1) * CHUNK).min(points.len()));
     }
     Ok(sigs)
+}
+
+/// The sets of neighbour positions (in 0..pool) to leave out: just the empty set for
+/// `leave_out` = 0, every single position for 1, every pair for 2.
+fn subsets(pool: usize, leave_out: usize) -> Vec<Vec<usize>> {
+    match leave_out {
+        0 => vec![vec![]],
+        1 => (0..pool).map(|i| vec![i]).collect(),
+        _ => (0..pool)
+            .flat_map(|i| (i + 1..pool).map(move |j| vec![i, j]))
+            .collect(),
+    }
 }
 
 #[cfg(test)]

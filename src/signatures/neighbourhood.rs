@@ -90,6 +90,72 @@ fn angular(points: &[[f64; 2]], centre: u32, neighbours: &[u32], out: &mut Vec<u
     out.extend(keyed.into_iter().map(|(_, i)| i));
 }
 
+/// Most vertex orders one neighbourhood may yield when the walk branches.
+pub const MAX_ORDERS: usize = 4;
+
+/// Like [`order_polygon`], but where a step of the walk is ambiguous — the second-nearest
+/// unvisited neighbour is within a factor (1 + `margin`) of the nearest — both continuations
+/// are followed, so that noise which swaps two nearly equal distances still yields the other
+/// survey's order. At most [`MAX_ORDERS`] orders, depth first (the unambiguous order first).
+/// The angular order does not branch. Each order (centre first) is appended to `out` as
+/// `neighbours.len() + 1` indices; returns how many were appended.
+pub fn order_polygons(
+    order: VertexOrder,
+    points: &[[f64; 2]],
+    centre: u32,
+    neighbours: &[u32],
+    margin: f64,
+    out: &mut Vec<u32>,
+) -> usize {
+    if order == VertexOrder::Angular || margin <= 0.0 {
+        let mut one = Vec::with_capacity(neighbours.len() + 1);
+        order_polygon(order, points, centre, neighbours, &mut one);
+        out.extend_from_slice(&one);
+        return 1;
+    }
+    let mut path = vec![centre];
+    let mut count = 0;
+    branch(points, &mut path, neighbours, margin, out, &mut count);
+    count
+}
+
+fn branch(
+    points: &[[f64; 2]],
+    path: &mut Vec<u32>,
+    left: &[u32],
+    margin: f64,
+    out: &mut Vec<u32>,
+    count: &mut usize,
+) {
+    if *count >= MAX_ORDERS {
+        return;
+    }
+    if left.is_empty() {
+        out.extend_from_slice(path);
+        *count += 1;
+        return;
+    }
+    let here = points[*path.last().expect("path starts at the centre") as usize];
+    let mut ranked: Vec<(f64, usize)> = left
+        .iter()
+        .enumerate()
+        .map(|(i, &c)| (crate::spatial::dist2(here, points[c as usize]).sqrt(), i))
+        .collect();
+    // Stable: ties keep the neighbour nearer the landmark first, as in the plain walk.
+    ranked.sort_by(|a, b| a.0.total_cmp(&b.0));
+    let limit = ranked[0].0 * (1.0 + margin);
+    for &(d, i) in ranked.iter().take(2) {
+        if d > limit && i != ranked[0].1 {
+            break;
+        }
+        let mut rest = left.to_vec();
+        let next = rest.remove(i);
+        path.push(next);
+        branch(points, path, &rest, margin, out, count);
+        path.pop();
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -102,6 +168,23 @@ mod tests {
         order_polygon(VertexOrder::Walk, &pts, 0, &[1, 2, 3], &mut out);
         // From (1,0) the nearest unvisited is (2.2,0) at 1.2, then (0,1.5).
         assert_eq!(out, vec![0, 1, 3, 2]);
+    }
+
+    #[test]
+    fn ambiguous_steps_yield_both_orders() {
+        // From the landmark, (1,0) and (0,1.02) are within 5% of each other.
+        let pts = [[0.0, 0.0], [1.0, 0.0], [0.0, 1.02], [3.0, 3.0]];
+        let mut out = Vec::new();
+        let n = order_polygons(VertexOrder::Walk, &pts, 0, &[1, 2, 3], 0.05, &mut out);
+        assert_eq!(n, 2);
+        assert_eq!(&out[..4], &[0, 1, 2, 3]);
+        assert_eq!(&out[4..], &[0, 2, 1, 3]);
+        out.clear();
+        assert_eq!(
+            order_polygons(VertexOrder::Walk, &pts, 0, &[1, 2, 3], 0.01, &mut out),
+            1
+        );
+        assert_eq!(out, vec![0, 1, 2, 3]);
     }
 
     #[test]

@@ -67,8 +67,13 @@ fn main() {
         let ts = signatures::compute("target", &p.target, &ti, &params, &mut |_| {})
             .expect("signatures");
         let t2 = Instant::now();
-        let cands =
-            matching::candidates(&rs, &ts, MatchingParams::default().candidates, &mut |_| {});
+        let cands = matching::candidates(
+            &rs,
+            &ts,
+            MatchingParams::default().candidates,
+            MatchingParams::default().rank,
+            &mut |_| {},
+        );
         let t3 = Instant::now();
         let input = fit::FitInput {
             reference: &p.reference,

@@ -1,0 +1,1 @@
+//! Landmark-set experiment (being written).

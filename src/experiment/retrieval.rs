@@ -1,0 +1,1067 @@
+//! Polygon retrieval experiment: how much vertex noise a Fourier-ratio signature survives,
+//! per polygon shape class, vertex order, permutation and key size.
+//!
+//! **In:** [`RetrievalOptions`] (full or quick sizes, a seed). **Out:** one [`RetrievalRow`]
+//! per class × vertex order × permutation × signature × noise level ([`run_retrieval`]), and
+//! the files `retrieval.csv`, `retrieval.md` and `retrieval.svg` ([`write_retrieval`]).
+//!
+//! # Method (every choice that the numbers depend on)
+//!
+//! 1. **Polygons.** For each class of [`PolygonClass`] (samplers in [`super::polygons`]: ellipse
+//!    vertices, random-radius stars, 2-opt-untangled random points, random points), draw
+//!    [`FULL_POLYGONS`] polygons (quick: [`QUICK_POLYGONS`]) of [`VERTICES`] = 10 vertices each,
+//!    on a 1000 × 1000 px canvas, each spanning about the canvas. Ten vertices are what a
+//!    landmark's neighbourhood of nine neighbours gives, and leave harmonics 1 and 2 both
+//!    informative (j < n/2).
+//! 2. **Keys.** Each polygon is turned into a vertex sequence by one of two orders, then
+//!    optionally permuted, then keyed:
+//!    - order `given`: the generated order, starting at vertex 0;
+//!    - order `walk`: the nearest-neighbour walk over the polygon's own vertex set from vertex
+//!      0 ([`crate::signatures::neighbourhood::order_polygon`] with [`VertexOrder::Walk`]; the
+//!      neighbour list is vertices 1..n sorted by distance from vertex 0, ties by index);
+//!    - `permuted`: the sequence is reordered by
+//!      [`fixed_permutation`](crate::signatures::permutation::fixed_permutation)`(10)`, the
+//!      same for indexed and query polygons;
+//!    - signature `ratio-1`: the 2-D key [`bounded`](crate::signatures::fourier::bounded)`(r_1)`;
+//!      `ratio-1-2`: the 4-D key (bounded(r_1), bounded(r_2)); r_j = Z_j / Z_{−j} from
+//!      [`RatioPlan`] (RustFFT forward DFT of the vertices as complex numbers x + iy).
+//! 3. **Index.** Per class and variant, the keys of all polygons go into one kiddo
+//!    `ImmutableKdTree` (squared Euclidean distance in the key space).
+//! 4. **Queries.** The first [`FULL_QUERIES`] polygons of each class (quick: [`QUICK_QUERIES`];
+//!    the polygons are independent draws, so these are a random sample) are perturbed: every
+//!    coordinate of every vertex gets σ·g, g standard normal, σ = the noise level in px. The
+//!    same g are scaled to every level (common random numbers: curves differ between levels
+//!    by σ only, not by a new draw) and shared by all variants. The perturbed polygon is
+//!    ordered afresh (the walk may change under noise), permuted and keyed like the indexed
+//!    ones; noise levels: [`FULL_NOISE_LEVELS_PX`] (quick: [`QUICK_NOISE_LEVELS_PX`]).
+//! 5. **Scores.** recall@1: the fraction of queries whose nearest indexed key is the
+//!    original polygon's; recall@5: the fraction whose original is among the five nearest. A
+//!    query whose key is not finite counts as a miss.
+//! 6. **Randomness.** `ChaCha8Rng::seed_from_u64(seed)` with stream 1 + c for the polygons of
+//!    class c (c = 0..3 in [`PolygonClass::ALL`] order) and stream 11 + c for its noise; the
+//!    run is deterministic.
+//!
+//! The noise tolerance reported in `retrieval.md` is the largest noise level up to which
+//! recall@1 stays at or above [`RECALL_TARGET`] at every level (a later rebound above the
+//! target does not count).
+//!
+//! What to expect (common practice, no published source): ratios of smooth convex outlines are
+//! dominated by one tiny coefficient (Z_{−1} for a counter-clockwise outline), so their keys
+//! crowd near the unit circle and tolerate the least noise; irregular outlines spread their
+//! energy and tolerate more; the fixed permutation makes every outline irregular.
+
+use super::polygons::{self, PolygonClass};
+use super::ExperimentError;
+use crate::signatures::fourier::{bounded, RatioPlan};
+use crate::signatures::neighbourhood::order_polygon;
+use crate::signatures::permutation::{apply, fixed_permutation};
+use crate::signatures::VertexOrder;
+use crate::spatial::dist2;
+use geo::{IsConvex, LineString};
+use kiddo::{ImmutableKdTree, SquaredEuclidean};
+use rand::SeedableRng;
+use rand_chacha::ChaCha8Rng;
+use rand_distr::{Distribution, StandardNormal};
+use rustfft::num_complex::Complex64;
+use std::fmt::Write as _;
+use std::num::NonZero;
+use std::path::{Path, PathBuf};
+
+/// Vertices per polygon.
+pub const VERTICES: usize = 10;
+/// Polygons indexed per class, full run.
+pub const FULL_POLYGONS: usize = 10_000;
+/// Polygons indexed per class, quick run.
+pub const QUICK_POLYGONS: usize = 2_000;
+/// Queries per class and noise level, full run.
+pub const FULL_QUERIES: usize = 250;
+/// Queries per class and noise level, quick run.
+pub const QUICK_QUERIES: usize = 100;
+/// Noise levels σ (px per coordinate), full run.
+pub const FULL_NOISE_LEVELS_PX: [f64; 12] = [
+    0.0, 1.0, 2.0, 3.0, 5.0, 7.0, 10.0, 12.0, 15.0, 20.0, 25.0, 30.0,
+];
+/// Noise levels σ (px per coordinate), quick run.
+pub const QUICK_NOISE_LEVELS_PX: [f64; 9] = [0.0, 1.0, 2.0, 3.0, 5.0, 7.0, 12.0, 20.0, 25.0];
+/// Vertex orders compared, as named in the outputs.
+pub const ORDERS: [&str; 2] = ["given", "walk"];
+/// Signature variants compared (name, harmonics).
+pub const SIGNATURES: [(&str, &[usize]); 2] = [("ratio-1", &[1]), ("ratio-1-2", &[1, 2])];
+/// recall@1 that counts as "reliable" for the tolerance in `retrieval.md`.
+pub const RECALL_TARGET: f64 = 0.9;
+/// Noise level whose recall@1 `retrieval.md` reports beside the tolerance, px.
+pub const REPORT_NOISE_PX: f64 = 25.0;
+
+/// Sizes and seed of a run.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct RetrievalOptions {
+    /// Quick sizes ([`QUICK_POLYGONS`], [`QUICK_QUERIES`], [`QUICK_NOISE_LEVELS_PX`]) instead
+    /// of the full ones.
+    pub quick: bool,
+    /// Seed of every random choice.
+    pub seed: u64,
+}
+
+impl RetrievalOptions {
+    /// Polygons indexed per class.
+    pub fn polygons_per_class(&self) -> usize {
+        if self.quick {
+            QUICK_POLYGONS
+        } else {
+            FULL_POLYGONS
+        }
+    }
+
+    /// Queries per class and noise level.
+    pub fn queries_per_class(&self) -> usize {
+        if self.quick {
+            QUICK_QUERIES
+        } else {
+            FULL_QUERIES
+        }
+    }
+
+    /// Noise levels σ, px per coordinate, ascending.
+    pub fn noise_levels(&self) -> &'static [f64] {
+        if self.quick {
+            &QUICK_NOISE_LEVELS_PX
+        } else {
+            &FULL_NOISE_LEVELS_PX
+        }
+    }
+}
+
+/// Retrieval scores of one class, variant and noise level.
+#[derive(Debug, Clone, PartialEq)]
+pub struct RetrievalRow {
+    /// Shape class of the polygons.
+    pub class: PolygonClass,
+    /// Vertex order: `given` or `walk` ([`ORDERS`]).
+    pub order: &'static str,
+    /// Whether the fixed permutation was applied (to indexed and query polygons alike).
+    pub permuted: bool,
+    /// Signature variant: `ratio-1` (2-D key) or `ratio-1-2` (4-D key) ([`SIGNATURES`]).
+    pub signature: &'static str,
+    /// Noise σ, px per coordinate.
+    pub noise_px: f64,
+    /// Number of queries.
+    pub queries: usize,
+    /// Fraction of queries whose nearest indexed key is their original's.
+    pub recall_at_1: f64,
+    /// Fraction of queries whose original is among the five nearest keys.
+    pub recall_at_5: f64,
+}
+
+/// One vertex order × permutation × signature combination.
+#[derive(Debug, Clone, Copy)]
+struct Variant {
+    walk: bool,
+    permuted: bool,
+    signature: usize,
+}
+
+impl Variant {
+    fn all() -> Vec<Variant> {
+        let mut v = Vec::with_capacity(8);
+        for walk in [false, true] {
+            for permuted in [false, true] {
+                for signature in 0..SIGNATURES.len() {
+                    v.push(Variant {
+                        walk,
+                        permuted,
+                        signature,
+                    });
+                }
+            }
+        }
+        v
+    }
+
+    fn order(self) -> &'static str {
+        ORDERS[usize::from(self.walk)]
+    }
+
+    fn dims(self) -> usize {
+        2 * SIGNATURES[self.signature].1.len()
+    }
+}
+
+/// A signature key, padded to the largest variant (4-D); a 2-D key uses the first two.
+type Key = [f64; 4];
+
+/// Turns polygons into keys, reusing plans and buffers.
+struct Keyer {
+    plans: Vec<RatioPlan>,
+    perm: Vec<usize>,
+    nbrs: Vec<u32>,
+    walk: Vec<u32>,
+    verts: Vec<[f64; 2]>,
+    scratch: Vec<[f64; 2]>,
+    buf: Vec<Complex64>,
+    ratios: Vec<Complex64>,
+}
+
+impl Keyer {
+    fn new(n: usize) -> Self {
+        Keyer {
+            plans: SIGNATURES
+                .iter()
+                .map(|(_, js)| RatioPlan::new(n, js))
+                .collect(),
+            perm: fixed_permutation(n),
+            nbrs: Vec::with_capacity(n),
+            walk: Vec::with_capacity(n),
+            verts: Vec::with_capacity(n),
+            scratch: Vec::with_capacity(n),
+            buf: Vec::with_capacity(n),
+            ratios: Vec::with_capacity(2),
+        }
+    }
+
+    /// Puts the vertices of `poly` into `self.verts` in the variant's order.
+    fn arrange(&mut self, poly: &[[f64; 2]], v: Variant) {
+        self.verts.clear();
+        if v.walk {
+            self.nbrs.clear();
+            self.nbrs.extend(1..poly.len() as u32);
+            let d = |i: u32| dist2(poly[0], poly[i as usize]);
+            self.nbrs
+                .sort_by(|&a, &b| d(a).total_cmp(&d(b)).then(a.cmp(&b)));
+            order_polygon(VertexOrder::Walk, poly, 0, &self.nbrs, &mut self.walk);
+            self.verts
+                .extend(self.walk.iter().map(|&i| poly[i as usize]));
+        } else {
+            self.verts.extend_from_slice(poly);
+        }
+        if v.permuted {
+            apply(&self.perm, &mut self.verts, &mut self.scratch);
+        }
+    }
+
+    /// The variant's key of `poly`.
+    fn key(&mut self, poly: &[[f64; 2]], v: Variant) -> Key {
+        self.arrange(poly, v);
+        let o = self.verts[0];
+        self.buf.clear();
+        self.buf.extend(
+            self.verts
+                .iter()
+                .map(|p| Complex64::new(p[0] - o[0], p[1] - o[1])),
+        );
+        self.ratios.clear();
+        self.plans[v.signature].ratios(&mut self.buf, &mut self.ratios);
+        let mut key = [0.0; 4];
+        for (k, r) in self.ratios.iter().enumerate() {
+            let [a, b] = bounded(*r);
+            key[2 * k] = a;
+            key[2 * k + 1] = b;
+        }
+        key
+    }
+}
+
+/// A k-d tree over the keys of one variant.
+enum KeyTree {
+    Two(ImmutableKdTree<f64, 2>),
+    Four(ImmutableKdTree<f64, 4>),
+}
+
+impl KeyTree {
+    fn build(keys: &[Key], dims: usize) -> Self {
+        assert!(
+            keys.iter().all(|k| k.iter().all(|v| v.is_finite())),
+            "a generated polygon has a non-finite key (a bug in the generators)"
+        );
+        let refused = "kiddo refused the generated keys (a bug: they should be distinct)";
+        if dims == 2 {
+            let k2: Vec<[f64; 2]> = keys.iter().map(|k| [k[0], k[1]]).collect();
+            KeyTree::Two(ImmutableKdTree::new_from_slice(&k2).expect(refused))
+        } else {
+            KeyTree::Four(ImmutableKdTree::new_from_slice(keys).expect(refused))
+        }
+    }
+
+    /// Indices of the five nearest keys, nearest first.
+    fn nearest5(&self, key: &Key, out: &mut Vec<u32>) {
+        out.clear();
+        let five = NonZero::new(5).expect("5 is not zero");
+        match self {
+            KeyTree::Two(t) => out.extend(
+                t.query(&[key[0], key[1]])
+                    .nearest_n::<SquaredEuclidean<f64>>(five)
+                    .execute()
+                    .into_iter()
+                    .map(|r| r.item),
+            ),
+            KeyTree::Four(t) => out.extend(
+                t.query(key)
+                    .nearest_n::<SquaredEuclidean<f64>>(five)
+                    .execute()
+                    .into_iter()
+                    .map(|r| r.item),
+            ),
+        }
+    }
+}
+
+/// A generator seeded from `seed` on stream `stream` (module doc, point 6).
+fn stream_rng(seed: u64, stream: u64) -> ChaCha8Rng {
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    rng.set_stream(stream);
+    rng
+}
+
+/// Position of `class` in [`PolygonClass::ALL`].
+fn class_index(class: PolygonClass) -> u64 {
+    PolygonClass::ALL
+        .iter()
+        .position(|&c| c == class)
+        .expect("every class is in ALL") as u64
+}
+
+/// The `count` polygons of `class` that a run with `seed` indexes (the first ones are its
+/// queries).
+pub fn generate_class(class: PolygonClass, count: usize, seed: u64) -> Vec<Vec<[f64; 2]>> {
+    let mut rng = stream_rng(seed, 1 + class_index(class));
+    (0..count)
+        .map(|_| class.generate(&mut rng, VERTICES))
+        .collect()
+}
+
+/// Runs the experiment (module doc). `progress` receives one line per class and noise level.
+///
+/// Rows come grouped by class ([`PolygonClass::ALL`] order), then order, permutation and
+/// signature, with noise ascending within a group.
+///
+/// # Panics
+/// When a generated polygon has a non-finite key or kiddo refuses the keys (bugs, not input
+/// errors: there is no user input).
+pub fn run_retrieval(
+    options: &RetrievalOptions,
+    progress: &mut dyn FnMut(&str),
+) -> Vec<RetrievalRow> {
+    run_sized(
+        options.seed,
+        options.polygons_per_class(),
+        options.queries_per_class(),
+        options.noise_levels(),
+        progress,
+    )
+}
+
+fn run_sized(
+    seed: u64,
+    polygons: usize,
+    queries: usize,
+    levels: &[f64],
+    progress: &mut dyn FnMut(&str),
+) -> Vec<RetrievalRow> {
+    assert!(
+        queries <= polygons,
+        "queries are drawn from the indexed polygons"
+    );
+    let variants = Variant::all();
+    let mut keyer = Keyer::new(VERTICES);
+    let mut rows = Vec::with_capacity(PolygonClass::ALL.len() * variants.len() * levels.len());
+    let mut noisy = vec![[0.0; 2]; VERTICES];
+    let mut found = Vec::with_capacity(5);
+    for class in PolygonClass::ALL {
+        progress(&format!(
+            "retrieval: {class}: indexing {polygons} polygons in {} variants",
+            variants.len()
+        ));
+        let polys = generate_class(class, polygons, seed);
+        let trees: Vec<KeyTree> = variants
+            .iter()
+            .map(|&v| {
+                let keys: Vec<Key> = polys.iter().map(|p| keyer.key(p, v)).collect();
+                KeyTree::build(&keys, v.dims())
+            })
+            .collect();
+        let mut noise_rng = stream_rng(seed, 11 + class_index(class));
+        let directions: Vec<Vec<[f64; 2]>> = (0..queries)
+            .map(|_| {
+                (0..VERTICES)
+                    .map(|_| {
+                        let gx: f64 = StandardNormal.sample(&mut noise_rng);
+                        let gy: f64 = StandardNormal.sample(&mut noise_rng);
+                        [gx, gy]
+                    })
+                    .collect()
+            })
+            .collect();
+        // hits[variant][level] = (recall@1 hits, recall@5 hits)
+        let mut hits = vec![vec![(0usize, 0usize); levels.len()]; variants.len()];
+        for (l, &sigma) in levels.iter().enumerate() {
+            progress(&format!(
+                "retrieval: {class}: {queries} queries at noise {sigma} px"
+            ));
+            for (q, dir) in directions.iter().enumerate() {
+                for ((out, p), g) in noisy.iter_mut().zip(&polys[q]).zip(dir) {
+                    *out = [p[0] + sigma * g[0], p[1] + sigma * g[1]];
+                }
+                for (vi, &v) in variants.iter().enumerate() {
+                    let key = keyer.key(&noisy, v);
+                    if !key.iter().all(|x| x.is_finite()) {
+                        continue;
+                    }
+                    trees[vi].nearest5(&key, &mut found);
+                    let target = q as u32;
+                    if found.first() == Some(&target) {
+                        hits[vi][l].0 += 1;
+                    }
+                    if found.contains(&target) {
+                        hits[vi][l].1 += 1;
+                    }
+                }
+            }
+        }
+        for (vi, &v) in variants.iter().enumerate() {
+            for (l, &sigma) in levels.iter().enumerate() {
+                let (h1, h5) = hits[vi][l];
+                rows.push(RetrievalRow {
+                    class,
+                    order: v.order(),
+                    permuted: v.permuted,
+                    signature: SIGNATURES[v.signature].0,
+                    noise_px: sigma,
+                    queries,
+                    recall_at_1: h1 as f64 / queries.max(1) as f64,
+                    recall_at_5: h5 as f64 / queries.max(1) as f64,
+                });
+            }
+        }
+    }
+    rows
+}
+
+/// The rows of one class and variant, noise ascending.
+fn series<'a>(
+    rows: &'a [RetrievalRow],
+    class: PolygonClass,
+    order: &str,
+    permuted: bool,
+    signature: &str,
+) -> Vec<&'a RetrievalRow> {
+    let mut s: Vec<&RetrievalRow> = rows
+        .iter()
+        .filter(|r| {
+            r.class == class
+                && r.order == order
+                && r.permuted == permuted
+                && r.signature == signature
+        })
+        .collect();
+    s.sort_by(|a, b| a.noise_px.total_cmp(&b.noise_px));
+    s
+}
+
+/// Noise tolerance of one series (noise ascending): the largest level up to which recall@1
+/// stays at or above `target` at every level; `None` when the lowest level already misses.
+pub fn tolerance(series: &[&RetrievalRow], target: f64) -> Option<f64> {
+    series
+        .iter()
+        .take_while(|r| r.recall_at_1 >= target)
+        .last()
+        .map(|r| r.noise_px)
+}
+
+/// Shares of a class's generated polygons with each shape property (a check that the
+/// generators make what their names say).
+#[derive(Debug, Clone, PartialEq)]
+pub struct ClassCensus {
+    /// The class.
+    pub class: PolygonClass,
+    /// Polygons examined.
+    pub polygons: usize,
+    /// Share that is convex (geo's `IsConvex`).
+    pub convex: f64,
+    /// Share that is simple (no two edges meet except neighbours at their shared vertex).
+    pub simple: f64,
+    /// Share that is star-shaped (kernel of positive area).
+    pub star_shaped: f64,
+}
+
+/// Shape census of the polygons a run with `options` indexes.
+pub fn census(options: &RetrievalOptions) -> Vec<ClassCensus> {
+    let count = options.polygons_per_class();
+    PolygonClass::ALL
+        .iter()
+        .map(|&class| {
+            let polys = generate_class(class, count, options.seed);
+            let share = |f: &dyn Fn(&[[f64; 2]]) -> bool| {
+                polys.iter().filter(|p| f(p)).count() as f64 / count.max(1) as f64
+            };
+            ClassCensus {
+                class,
+                polygons: count,
+                convex: share(&|p| {
+                    let mut ls: LineString<f64> = p.iter().map(|&[x, y]| (x, y)).collect();
+                    ls.close();
+                    ls.is_convex()
+                }),
+                simple: share(&|p| !polygons::self_intersects(p)),
+                star_shaped: share(&polygons::is_star_shaped),
+            }
+        })
+        .collect()
+}
+
+const CSV_HEADER: &str = "class,order,permuted,noise_px,queries,recall_at_1,recall_at_5,signature";
+
+fn csv_text(rows: &[RetrievalRow]) -> String {
+    let mut s = String::with_capacity(64 * (rows.len() + 1));
+    s.push_str(CSV_HEADER);
+    s.push('\n');
+    for r in rows {
+        let _ = writeln!(
+            s,
+            "{},{},{},{},{},{:.4},{:.4},{}",
+            r.class,
+            r.order,
+            r.permuted,
+            r.noise_px,
+            r.queries,
+            r.recall_at_1,
+            r.recall_at_5,
+            r.signature
+        );
+    }
+    s
+}
+
+fn px(v: f64) -> String {
+    format!("{v}")
+}
+
+fn markdown_text(rows: &[RetrievalRow], options: &RetrievalOptions) -> String {
+    let levels: Vec<String> = options.noise_levels().iter().map(|&v| px(v)).collect();
+    let top = options.noise_levels().last().copied().unwrap_or(0.0);
+    let mut s = String::new();
+    s.push_str("# Polygon retrieval under vertex noise\n\n");
+    let _ = writeln!(
+        s,
+        "{} run, seed {}: {} polygons of {} vertices per class indexed, {} of them queried at \
+         each noise level σ (px per coordinate, canvas 1000 × 1000 px): {}. Method and every \
+         choice behind the numbers: the rustdoc of `tiemark::experiment::retrieval`.\n",
+        if options.quick { "Quick" } else { "Full" },
+        options.seed,
+        options.polygons_per_class(),
+        VERTICES,
+        options.queries_per_class(),
+        levels.join(", ")
+    );
+    let _ = writeln!(
+        s,
+        "Tolerance: the largest σ up to which recall@1 stays ≥ {RECALL_TARGET} at every level \
+         (\"≥ {}\" when it never drops below; \"none\" when it misses at σ = 0).\n",
+        px(top)
+    );
+    let _ = writeln!(
+        s,
+        "| class | order | permuted | signature | tolerance (px) | recall@1 at {} px |",
+        px(REPORT_NOISE_PX)
+    );
+    s.push_str("|---|---|---|---|---:|---:|\n");
+    for (signature, _) in SIGNATURES {
+        for order in ORDERS {
+            for permuted in [false, true] {
+                for class in PolygonClass::ALL {
+                    let ser = series(rows, class, order, permuted, signature);
+                    if ser.is_empty() {
+                        continue;
+                    }
+                    let tol = match tolerance(&ser, RECALL_TARGET) {
+                        None => "none".to_string(),
+                        Some(v) if v == top && ser.len() == options.noise_levels().len() => {
+                            format!("≥ {}", px(v))
+                        }
+                        Some(v) => px(v),
+                    };
+                    let at = ser
+                        .iter()
+                        .find(|r| r.noise_px == REPORT_NOISE_PX)
+                        .map_or("n/a".to_string(), |r| format!("{:.2}", r.recall_at_1));
+                    let _ = writeln!(
+                        s,
+                        "| {class} | {order} | {} | {signature} | {tol} | {at} |",
+                        if permuted { "yes" } else { "no" }
+                    );
+                }
+            }
+        }
+    }
+    s.push_str("\nShapes of the generated polygons (same seed), share of each class:\n\n");
+    s.push_str("| class | polygons | convex | simple | star-shaped |\n|---|---:|---:|---:|---:|\n");
+    for c in census(options) {
+        let _ = writeln!(
+            s,
+            "| {} | {} | {:.3} | {:.3} | {:.3} |",
+            c.class, c.polygons, c.convex, c.simple, c.star_shaped
+        );
+    }
+    s.push_str(
+        "\nThese are measurements on random polygons, not a guarantee for real surveys. \
+         Automatically found control points must be verified against independent checkpoints \
+         before use; legal or engineering survey work defers to local regulations and licensed \
+         surveyors.\n",
+    );
+    s
+}
+
+/// Okabe–Ito colours (distinguishable with the common colour-vision deficiencies).
+fn class_colour(class: PolygonClass) -> plotters::style::RGBColor {
+    use plotters::style::RGBColor;
+    match class {
+        PolygonClass::Convex => RGBColor(213, 94, 0),
+        PolygonClass::Star => RGBColor(230, 159, 0),
+        PolygonClass::Simple => RGBColor(0, 158, 115),
+        PolygonClass::General => RGBColor(0, 114, 178),
+    }
+}
+
+fn svg_text(rows: &[RetrievalRow], options: &RetrievalOptions) -> Result<String, String> {
+    let mut svg = String::new();
+    draw_plot(&mut svg, rows, options).map_err(|e| e.to_string())?;
+    Ok(svg)
+}
+
+fn draw_plot(
+    svg: &mut String,
+    rows: &[RetrievalRow],
+    options: &RetrievalOptions,
+) -> Result<(), Box<dyn std::error::Error>> {
+    use plotters::element::DashedPathElement;
+    use plotters::prelude::*;
+    const W: u32 = 1600;
+    const H: u32 = 1200;
+    const FONT: &str = "sans-serif";
+    let root = SVGBackend::with_string(svg, (W, H)).into_drawing_area();
+    root.fill(&WHITE)?;
+    let (title, rest) = root.split_vertically(70);
+    let (body, legend) = rest.split_vertically(H - 70 - 90);
+    title.draw_text(
+        &format!(
+            "Polygon retrieval: recall@1 against vertex noise ({} polygons of {} vertices per \
+             class, {} queries, seed {})",
+            options.polygons_per_class(),
+            VERTICES,
+            options.queries_per_class(),
+            options.seed
+        ),
+        &TextStyle::from((FONT, 26).into_font()).color(&BLACK),
+        (30, 25),
+    )?;
+    let top = options
+        .noise_levels()
+        .last()
+        .copied()
+        .unwrap_or(1.0)
+        .max(1.0);
+    let panels = body.split_evenly((2, 2));
+    let mut p = 0;
+    for order in ORDERS {
+        for permuted in [false, true] {
+            let caption = format!(
+                "order: {order}, {}",
+                if permuted {
+                    "fixed permutation"
+                } else {
+                    "not permuted"
+                }
+            );
+            let mut chart = ChartBuilder::on(&panels[p])
+                .caption(caption, (FONT, 24))
+                .margin(18)
+                .x_label_area_size(60)
+                .y_label_area_size(75)
+                .build_cartesian_2d(0.0..top, 0.0..1.02)?;
+            chart
+                .configure_mesh()
+                .x_desc("vertex noise σ (px per coordinate)")
+                .y_desc("recall@1")
+                .label_style((FONT, 18))
+                .axis_desc_style((FONT, 20))
+                .light_line_style(RGBColor(235, 235, 235))
+                .draw()?;
+            chart.draw_series(DashedLineSeries::new(
+                [(0.0, RECALL_TARGET), (top, RECALL_TARGET)],
+                6,
+                6,
+                RGBColor(130, 130, 130).stroke_width(2),
+            ))?;
+            for class in PolygonClass::ALL {
+                let colour = class_colour(class);
+                for (si, (signature, _)) in SIGNATURES.iter().enumerate() {
+                    let pts: Vec<(f64, f64)> = series(rows, class, order, permuted, signature)
+                        .iter()
+                        .map(|r| (r.noise_px, r.recall_at_1))
+                        .collect();
+                    if si == 0 {
+                        chart.draw_series(LineSeries::new(pts, colour.stroke_width(4)))?;
+                    } else {
+                        chart.draw_series(DashedLineSeries::new(
+                            pts,
+                            14,
+                            8,
+                            colour.stroke_width(3),
+                        ))?;
+                    }
+                }
+            }
+            p += 1;
+        }
+    }
+    // The legend, below the panels.
+    let text = TextStyle::from((FONT, 22).into_font()).color(&BLACK);
+    let y = 40;
+    let mut x = 40;
+    for class in PolygonClass::ALL {
+        legend.draw(&PathElement::new(
+            [(x, y), (x + 50, y)],
+            class_colour(class).stroke_width(5),
+        ))?;
+        legend.draw_text(class.name(), &text, (x + 60, y - 11))?;
+        x += 170;
+    }
+    x += 20;
+    legend.draw(&PathElement::new(
+        [(x, y), (x + 50, y)],
+        BLACK.stroke_width(4),
+    ))?;
+    legend.draw_text("ratio-1 (2-D key)", &text, (x + 60, y - 11))?;
+    x += 270;
+    legend.draw(&DashedPathElement::new(
+        [(x, y), (x + 50, y)],
+        14,
+        8,
+        BLACK.stroke_width(3),
+    ))?;
+    legend.draw_text("ratio-1-2 (4-D key)", &text, (x + 60, y - 11))?;
+    x += 290;
+    legend.draw(&DashedPathElement::new(
+        [(x, y), (x + 50, y)],
+        6,
+        6,
+        RGBColor(130, 130, 130).stroke_width(2),
+    ))?;
+    legend.draw_text(
+        &format!("recall@1 = {RECALL_TARGET}"),
+        &text,
+        (x + 60, y - 11),
+    )?;
+    root.present()?;
+    Ok(())
+}
+
+/// Writes `retrieval.csv`, `retrieval.md` and `retrieval.svg` into `out_dir` (created if
+/// missing) and returns their paths.
+///
+/// - `retrieval.csv`: header `class,order,permuted,noise_px,queries,recall_at_1,recall_at_5,signature`,
+///   one line per row; `permuted` is `true`/`false`, recalls have four decimals.
+/// - `retrieval.md`: the settings, per class × order × permuted × signature the noise
+///   tolerance (module doc) and recall@1 at [`REPORT_NOISE_PX`], and a census of the
+///   generated shapes.
+/// - `retrieval.svg`: recall@1 against noise; one panel per order × permutation, one colour
+///   per class, solid for `ratio-1` and dashed for `ratio-1-2`.
+///
+/// Everything is rendered in memory first; each file is then written under a temporary name
+/// and renamed, so a failure leaves no partial result file (temporary files are removed).
+pub fn write_retrieval(
+    rows: &[RetrievalRow],
+    options: &RetrievalOptions,
+    out_dir: &Path,
+) -> Result<Vec<PathBuf>, ExperimentError> {
+    let io = |path: &Path| {
+        let path = path.to_path_buf();
+        move |source: std::io::Error| ExperimentError::Io { path, source }
+    };
+    std::fs::create_dir_all(out_dir).map_err(io(out_dir))?;
+    let svg_path = out_dir.join("retrieval.svg");
+    let svg = svg_text(rows, options).map_err(|detail| ExperimentError::Plot {
+        path: svg_path.clone(),
+        detail,
+    })?;
+    let files = [
+        (out_dir.join("retrieval.csv"), csv_text(rows)),
+        (out_dir.join("retrieval.md"), markdown_text(rows, options)),
+        (svg_path, svg),
+    ];
+    let temp = |p: &Path| {
+        let name = p
+            .file_name()
+            .map_or_else(Default::default, |n| n.to_string_lossy());
+        p.with_file_name(format!(".{name}.partial"))
+    };
+    let mut written = Vec::new();
+    for (path, text) in &files {
+        let t = temp(path);
+        if let Err(e) = std::fs::write(&t, text) {
+            let _ = std::fs::remove_file(&t);
+            for w in &written {
+                let _ = std::fs::remove_file(w);
+            }
+            return Err(io(&t)(e));
+        }
+        written.push(t);
+    }
+    let mut done = Vec::new();
+    for (k, (path, _)) in files.iter().enumerate() {
+        if let Err(e) = std::fs::rename(temp(path), path) {
+            for (later, _) in &files[k..] {
+                let _ = std::fs::remove_file(temp(later));
+            }
+            return Err(io(path)(e));
+        }
+        done.push(path.clone());
+    }
+    Ok(done)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn quiet() -> impl FnMut(&str) {
+        |_: &str| {}
+    }
+
+    /// Mean recall@1 over the noise levels (area under the curve, per level).
+    fn score(rows: &[RetrievalRow], class: PolygonClass, permuted: bool) -> f64 {
+        let s = series(rows, class, "given", permuted, "ratio-1");
+        s.iter().map(|r| r.recall_at_1).sum::<f64>() / s.len() as f64
+    }
+
+    #[test]
+    fn noise_free_queries_retrieve_themselves_in_every_variant() {
+        // If the permutation (or the walk) were applied to one side only, the keys would
+        // differ and recall would collapse.
+        let rows = run_sized(5, 300, 60, &[0.0], &mut quiet());
+        assert_eq!(rows.len(), 4 * 8);
+        for r in &rows {
+            assert_eq!(r.recall_at_1, 1.0, "{r:?}");
+            assert_eq!(r.recall_at_5, 1.0, "{r:?}");
+        }
+    }
+
+    #[test]
+    fn permutation_and_walk_change_the_key() {
+        let polys = generate_class(PolygonClass::Simple, 20, 9);
+        let mut keyer = Keyer::new(VERTICES);
+        for p in &polys {
+            let base = Variant {
+                walk: false,
+                permuted: false,
+                signature: 1,
+            };
+            let k = keyer.key(p, base);
+            assert_eq!(k, keyer.key(p, base), "keying is repeatable");
+            let kp = keyer.key(
+                p,
+                Variant {
+                    permuted: true,
+                    ..base
+                },
+            );
+            assert!((0..4).any(|d| (k[d] - kp[d]).abs() > 1e-9));
+            // Similarity invariance survives the permutation: rotate, scale and shift.
+            let (s, c) = 0.7f64.sin_cos();
+            let moved: Vec<[f64; 2]> = p
+                .iter()
+                .map(|q| {
+                    [
+                        3.0 * (c * q[0] - s * q[1]) + 40.0,
+                        3.0 * (s * q[0] + c * q[1]) - 7.0,
+                    ]
+                })
+                .collect();
+            for walk in [false, true] {
+                let v = Variant {
+                    walk,
+                    permuted: true,
+                    signature: 1,
+                };
+                let (a, b) = (keyer.key(p, v), keyer.key(&moved, v));
+                assert!((0..4).all(|d| (a[d] - b[d]).abs() < 1e-9), "{a:?} {b:?}");
+            }
+        }
+    }
+
+    #[test]
+    fn walk_order_starts_at_vertex_zero_and_visits_every_vertex() {
+        let polys = generate_class(PolygonClass::General, 10, 3);
+        let mut keyer = Keyer::new(VERTICES);
+        let v = Variant {
+            walk: true,
+            permuted: false,
+            signature: 0,
+        };
+        for p in &polys {
+            keyer.arrange(p, v);
+            assert_eq!(keyer.walk[0], 0);
+            let mut seen = keyer.walk.clone();
+            seen.sort();
+            assert_eq!(seen, (0..VERTICES as u32).collect::<Vec<_>>());
+            // Each step goes to the nearest vertex not yet visited.
+            for s in 1..VERTICES - 1 {
+                let here = p[keyer.walk[s - 1] as usize];
+                let next = dist2(here, p[keyer.walk[s] as usize]);
+                for &later in &keyer.walk[s + 1..] {
+                    assert!(next <= dist2(here, p[later as usize]));
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn quick_run_orders_the_classes_and_the_permutation_helps_convex() {
+        let options = RetrievalOptions {
+            quick: true,
+            seed: 2024,
+        };
+        let mut lines = 0;
+        let rows = run_retrieval(&options, &mut |_| lines += 1);
+        assert!(lines > 4);
+        assert_eq!(rows.len(), 4 * 8 * QUICK_NOISE_LEVELS_PX.len());
+        let convex = score(&rows, PolygonClass::Convex, false);
+        let star = score(&rows, PolygonClass::Star, false);
+        let simple = score(&rows, PolygonClass::Simple, false);
+        let general = score(&rows, PolygonClass::General, false);
+        assert!(convex < star && convex < simple, "{convex} {star} {simple}");
+        assert!(
+            general > star && general > simple,
+            "{general} {star} {simple}"
+        );
+        let convex_permuted = score(&rows, PolygonClass::Convex, true);
+        assert!(
+            convex_permuted > convex + 0.1,
+            "permutation: {convex} -> {convex_permuted}"
+        );
+        // Recall falls with noise overall and recall@5 never trails recall@1.
+        for r in &rows {
+            assert!(r.recall_at_5 >= r.recall_at_1);
+        }
+    }
+
+    #[test]
+    fn runs_are_deterministic() {
+        let a = run_sized(77, 200, 30, &[0.0, 5.0], &mut quiet());
+        let b = run_sized(77, 200, 30, &[0.0, 5.0], &mut quiet());
+        assert_eq!(a, b);
+        let c = run_sized(78, 200, 30, &[0.0, 5.0], &mut quiet());
+        assert_ne!(a, c);
+    }
+
+    fn row(noise_px: f64, recall_at_1: f64) -> RetrievalRow {
+        RetrievalRow {
+            class: PolygonClass::Star,
+            order: "given",
+            permuted: false,
+            signature: "ratio-1",
+            noise_px,
+            queries: 10,
+            recall_at_1,
+            recall_at_5: recall_at_1,
+        }
+    }
+
+    #[test]
+    fn tolerance_stops_at_the_first_miss() {
+        let rows = [row(0.0, 1.0), row(1.0, 0.95), row(2.0, 0.8), row(3.0, 0.92)];
+        let s: Vec<&RetrievalRow> = rows.iter().collect();
+        assert_eq!(tolerance(&s, 0.9), Some(1.0));
+        assert_eq!(tolerance(&s[..2], 0.9), Some(1.0));
+        assert_eq!(tolerance(&s[2..3], 0.9), None);
+        assert_eq!(tolerance(&s, 0.95), Some(1.0));
+        assert_eq!(tolerance(&s, 0.96), Some(0.0));
+    }
+
+    #[test]
+    fn writes_the_three_files() {
+        let options = RetrievalOptions {
+            quick: true,
+            seed: 1,
+        };
+        let rows = run_sized(1, 200, 40, &QUICK_NOISE_LEVELS_PX, &mut quiet());
+        let dir = tempfile::tempdir().unwrap();
+        let out = dir.path().join("nested").join("out");
+        let paths = write_retrieval(&rows, &options, &out).unwrap();
+        let names: Vec<String> = paths
+            .iter()
+            .map(|p| p.file_name().unwrap().to_string_lossy().into_owned())
+            .collect();
+        assert_eq!(names, ["retrieval.csv", "retrieval.md", "retrieval.svg"]);
+        let csv = std::fs::read_to_string(&paths[0]).unwrap();
+        let mut lines = csv.lines();
+        assert_eq!(
+            lines.next(),
+            Some("class,order,permuted,noise_px,queries,recall_at_1,recall_at_5,signature")
+        );
+        assert_eq!(lines.clone().count(), rows.len());
+        assert_eq!(
+            lines.next(),
+            Some("convex,given,false,0,40,1.0000,1.0000,ratio-1")
+        );
+        let md = std::fs::read_to_string(&paths[1]).unwrap();
+        assert!(md.contains("| class | order | permuted | signature | tolerance (px) |"));
+        assert_eq!(md.matches("| ratio-1 |").count(), 16);
+        assert_eq!(md.matches("| ratio-1-2 |").count(), 16);
+        assert!(md.contains("independent checkpoints"));
+        let svg = std::fs::read_to_string(&paths[2]).unwrap();
+        assert!(svg.starts_with("<svg"));
+        for class in PolygonClass::ALL {
+            assert!(svg.contains(&format!(">{}</text>", class.name())));
+        }
+        let leftovers = std::fs::read_dir(&out)
+            .unwrap()
+            .filter(|e| {
+                e.as_ref()
+                    .unwrap()
+                    .file_name()
+                    .to_string_lossy()
+                    .ends_with(".partial")
+            })
+            .count();
+        assert_eq!(leftovers, 0);
+    }
+
+    #[test]
+    fn an_unusable_output_folder_is_an_io_error_naming_it() {
+        let dir = tempfile::tempdir().unwrap();
+        let file = dir.path().join("a-file");
+        std::fs::write(&file, "x").unwrap();
+        let options = RetrievalOptions {
+            quick: true,
+            seed: 1,
+        };
+        let rows = run_sized(1, 50, 5, &[0.0], &mut quiet());
+        match write_retrieval(&rows, &options, &file) {
+            Err(ExperimentError::Io { path, .. }) => assert_eq!(path, file),
+            other => panic!("expected an I/O error, got {other:?}"),
+        }
+    }
+
+    /// The full run behind the figures in the report (release mode, a few seconds):
+    /// `TIEMARK_RETRIEVAL_OUT=dir cargo test --release --lib retrieval::tests::full_run -- --ignored --nocapture`
+    #[test]
+    #[ignore]
+    fn full_run() {
+        let options = RetrievalOptions {
+            quick: false,
+            seed: 1,
+        };
+        let start = std::time::Instant::now();
+        let rows = run_retrieval(&options, &mut |line| eprintln!("{line}"));
+        let run = start.elapsed();
+        let out = std::env::var_os("TIEMARK_RETRIEVAL_OUT")
+            .map(PathBuf::from)
+            .unwrap_or_else(|| std::env::temp_dir().join("tiemark-retrieval"));
+        let paths = write_retrieval(&rows, &options, &out).unwrap();
+        eprintln!(
+            "run {:.2} s, total {:.2} s: {paths:?}",
+            run.as_secs_f64(),
+            start.elapsed().as_secs_f64()
+        );
+        println!("{}", std::fs::read_to_string(&paths[1]).unwrap());
+    }
+}
