@@ -11,7 +11,7 @@ use tiemark::ingest::IngestOptions;
 use tiemark::matching::Rank;
 use tiemark::pipeline::config::{FrameSection, MatchingParams, OutputOptions, SurveyInput};
 use tiemark::pipeline::{self, MatchConfig, MatchOutcome};
-use tiemark::signatures::{SignatureParams, VertexOrder};
+use tiemark::signatures::{SignatureChoice, SignatureParams, VertexOrder};
 
 const EXIT_HELP: &str = "Exit codes: 0 control points written; 1 no consistent transform found (nothing written); 2 bad input or error.
 
@@ -34,12 +34,58 @@ enum Command {
     Match(Box<MatchArgs>),
     /// Write the landmarks tiemark extracts from one dataset (to inspect them).
     Landmarks(LandmarksArgs),
+    /// Measure the signature stage (quality benchmarks; writes tables and a plot).
+    #[command(subcommand)]
+    Experiment(ExperimentCommand),
     /// Run a pipeline file (TOML; see pipelines/ for examples).
     #[command(after_help = EXIT_HELP)]
     Run {
         /// The pipeline file.
         pipeline: PathBuf,
     },
+}
+
+#[derive(Subcommand)]
+enum ExperimentCommand {
+    /// Random polygons of four classes: nearest-neighbour retrieval of their signatures under noise.
+    Retrieval {
+        /// Output folder for retrieval.csv, retrieval.md and retrieval.svg.
+        #[arg(long)]
+        out: PathBuf,
+        /// Smaller sizes, for a quick look.
+        #[arg(long)]
+        quick: bool,
+    },
+    /// Landmark sets with missing and new landmarks and noise: each signature variant up to the end-to-end match.
+    Landmarks {
+        /// Output folder for landmark-robustness.csv and .md.
+        #[arg(long)]
+        out: PathBuf,
+        /// Fewer trials and settings, for a quick look.
+        #[arg(long)]
+        quick: bool,
+        /// Trials per setting (default 100, quick 10).
+        #[arg(long)]
+        trials: Option<usize>,
+        /// Only this variant (repeatable); see the module doc of tiemark::experiment::landmarks.
+        #[arg(long)]
+        variant: Vec<String>,
+        /// Only this setting, as MISSING:NOISE fractions, e.g. 0.3:0.01 (repeatable).
+        #[arg(long, value_parser = parse_setting)]
+        setting: Vec<(f64, f64)>,
+    },
+}
+
+fn parse_setting(s: &str) -> Result<(f64, f64), String> {
+    let (m, n) = s
+        .split_once(':')
+        .ok_or("expected MISSING:NOISE, e.g. 0.3:0.01")?;
+    let m: f64 = m.parse().map_err(|_| format!("'{m}' is not a number"))?;
+    let n: f64 = n.parse().map_err(|_| format!("'{n}' is not a number"))?;
+    if !(0.0..1.0).contains(&m) || !(0.0..1.0).contains(&n) {
+        return Err("both fractions must be in [0, 1)".into());
+    }
+    Ok((m, n))
 }
 
 #[derive(Clone, Copy, ValueEnum)]
@@ -94,9 +140,9 @@ struct MatchArgs {
     /// Inlier tolerance in metres (default: a quarter of the reference's median landmark spacing).
     #[arg(long, allow_negative_numbers = true)]
     tolerance: Option<f64>,
-    /// Neighbours per signature polygon.
-    #[arg(long, default_value_t = SignatureParams::default().neighbours)]
-    neighbours: usize,
+    /// Neighbours per signature polygon (default: 4 when the smaller survey has up to 50 000 landmarks, else 5).
+    #[arg(long)]
+    neighbours: Option<usize>,
     /// Vertex order of the signature polygon.
     #[arg(long, value_enum, default_value = "walk")]
     order: OrderArg,
@@ -106,9 +152,9 @@ struct MatchArgs {
     /// Apply the fixed pseudo-random permutation to every polygon's vertex order.
     #[arg(long)]
     permuted: bool,
-    /// Subset signatures: leave out 0, 1 or 2 of the nearest neighbours in every possible way.
-    #[arg(long, default_value_t = SignatureParams::default().leave_out)]
-    leave_out: usize,
+    /// Subset signatures: leave out 0, 1 or 2 of the nearest neighbours in every possible way (default: 2 up to 20 000 landmarks, 1 up to 50 000, else 0).
+    #[arg(long)]
+    leave_out: Option<usize>,
     /// Ambiguity-aware walk: follow both steps when they are within this relative margin (0: off).
     #[arg(long, allow_negative_numbers = true, default_value_t = SignatureParams::default().ambiguity)]
     ambiguity: f64,
@@ -175,7 +221,7 @@ impl MatchArgs {
             frame: FrameSection {
                 working_crs: self.working_crs,
             },
-            signatures: SignatureParams {
+            signatures: SignatureChoice {
                 neighbours: self.neighbours,
                 order: match self.order {
                     OrderArg::Walk => VertexOrder::Walk,
@@ -230,6 +276,56 @@ fn fail(e: &dyn std::fmt::Display) -> ExitCode {
     ExitCode::from(2)
 }
 
+fn run_experiment(e: ExperimentCommand, quiet: bool) -> ExitCode {
+    use tiemark::experiment::{landmarks, retrieval};
+    let mut say = |m: &str| {
+        if !quiet {
+            eprintln!("{m}");
+        }
+    };
+    let written = match e {
+        ExperimentCommand::Retrieval { out, quick } => {
+            let options = retrieval::RetrievalOptions { quick, seed: 1 };
+            let rows = retrieval::run_retrieval(&options, &mut say);
+            retrieval::write_retrieval(&rows, &options, &out)
+        }
+        ExperimentCommand::Landmarks {
+            out,
+            quick,
+            trials,
+            variant,
+            setting,
+        } => {
+            let known: Vec<&str> = landmarks::variants().iter().map(|v| v.name).collect();
+            if let Some(bad) = variant.iter().find(|v| !known.contains(&v.as_str())) {
+                return fail(&format!(
+                    "unknown variant '{bad}'; the variants are: {}",
+                    known.join(", ")
+                ));
+            }
+            let options = landmarks::LandmarkOptions {
+                quick,
+                trials,
+                only: variant,
+                settings: setting,
+            };
+            landmarks::run_landmarks(&options, &mut say)
+                .and_then(|rows| landmarks::write_landmarks(&rows, &out))
+        }
+    };
+    match written {
+        Ok(files) => {
+            let list: Vec<String> = files
+                .iter()
+                .map(|f| format!("  {}\n", f.display()))
+                .collect();
+            print(&format!("written:\n{}", list.concat()));
+            ExitCode::SUCCESS
+        }
+        Err(e) => fail(&e),
+    }
+}
+
 fn main() -> ExitCode {
     let cli = match Cli::try_parse() {
         Ok(c) => c,
@@ -241,6 +337,7 @@ fn main() -> ExitCode {
     };
     match cli.command {
         Command::Match(args) => run_config(&args.into_config(), cli.quiet),
+        Command::Experiment(e) => run_experiment(e, cli.quiet),
         Command::Run { pipeline } => match MatchConfig::from_file(&pipeline) {
             Ok(cfg) => run_config(&cfg, cli.quiet),
             Err(e) => fail(&e),

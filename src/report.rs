@@ -139,10 +139,11 @@ pub fn summary(r: &MatchResult) -> String {
     let _ = writeln!(o, "spread           {:.0}% of a 4x4 grid over the control points' extent; fewest in a quadrant: {}", cov * 100.0, minq);
     let sig = &s.significance;
     let _ = writeln!(o, "significance     {} of {} covered target landmarks paired; chance would pair {:.1}%; expected false detections < 10^{:.0}", sig.inliers, sig.trials, 100.0 * sig.chance_rate_poisson.max(sig.chance_rate_decoys), sig.log10_false_alarms.ceil());
+    let c = &r.counts;
     let _ = writeln!(
         o,
-        "signatures       {} reference, {} target; {} candidates; {} RANSAC rounds",
-        r.counts.0, r.counts.1, r.counts.2, s.ransac_rounds
+        "signatures       {} reference, {} target ({} neighbours, {} order, leave-out {}); {} candidates; {} RANSAC rounds",
+        c.reference_signatures, c.target_signatures, c.signatures.neighbours, c.signatures.order, c.signatures.leave_out, c.candidates, s.ransac_rounds
     );
     let _ = writeln!(o);
     let _ = writeln!(o, "CAUTION: {CAUTION}");
@@ -166,7 +167,7 @@ pub fn rejection(
     frame: &WorkingFrame,
     r: &Rejection,
     spacing: f64,
-    counts: (usize, usize, usize),
+    counts: &crate::pipeline::Counts,
 ) -> String {
     let mpu = frame.metres_per_unit();
     let mut o = String::new();
@@ -191,7 +192,7 @@ pub fn rejection(
     let _ = writeln!(o, "working    {}", frame.crs.label());
     let _ = writeln!(o);
     let _ = writeln!(o, "why: {}", r.reason);
-    let _ = writeln!(o, "tolerance {:.3} m; reference median spacing {:.3} m; {} reference and {} target signatures; {} candidates; {} RANSAC rounds", r.tolerance * mpu, spacing * mpu, counts.0, counts.1, counts.2, r.ransac_rounds);
+    let _ = writeln!(o, "tolerance {:.3} m; reference median spacing {:.3} m; {} reference and {} target signatures; {} candidates; {} RANSAC rounds", r.tolerance * mpu, spacing * mpu, counts.reference_signatures, counts.target_signatures, counts.candidates, r.ransac_rounds);
     let _ = writeln!(o);
     let _ = writeln!(o, "No control points were written. If the surveys should match: check that they cover the same place (CRS of each file), that the landmarks are the same kind of feature, and try --tolerance with the expected disagreement in metres, or more --neighbours.");
     o

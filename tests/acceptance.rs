@@ -9,7 +9,8 @@
 //!
 //! `cargo test --release --test acceptance -- --ignored` runs the long version
 //! (TIEMARK_TRIALS trials, default 500, from seed TIEMARK_FIRST_SEED); TIEMARK_K and
-//! TIEMARK_H (e.g. "1,2") change the neighbours and harmonics of the signatures, to compare.
+//! TIEMARK_H (e.g. "1,2") and TIEMARK_LEAVE_OUT change the neighbours, harmonics and subset
+//! depth of the signatures, to compare.
 
 use rand::{Rng, SeedableRng};
 use rand_distr::{Distribution, Normal};
@@ -49,9 +50,15 @@ fn config() -> MatchConfig {
         id: None,
         crs: None,
     };
-    let mut signatures = tiemark::signatures::SignatureParams::default();
+    let mut signatures = tiemark::signatures::SignatureChoice::default();
     if let Some(k) = std::env::var("TIEMARK_K").ok().and_then(|v| v.parse().ok()) {
-        signatures.neighbours = k;
+        signatures.neighbours = Some(k);
+    }
+    if let Some(l) = std::env::var("TIEMARK_LEAVE_OUT")
+        .ok()
+        .and_then(|v| v.parse().ok())
+    {
+        signatures.leave_out = Some(l);
     }
     if let Ok(h) = std::env::var("TIEMARK_H") {
         signatures.harmonics = h.split(',').map(|v| v.parse().unwrap()).collect();

@@ -19,12 +19,12 @@
 //!    - order `walk`: the nearest-neighbour walk over the polygon's own vertex set from vertex
 //!      0 ([`crate::signatures::neighbourhood::order_polygon`] with [`VertexOrder::Walk`]; the
 //!      neighbour list is vertices 1..n sorted by distance from vertex 0, ties by index);
-//!    - `permuted`: the sequence is reordered by
-//!      [`fixed_permutation`](crate::signatures::permutation::fixed_permutation)`(10)`, the
-//!      same for indexed and query polygons;
-//!    - signature `ratio-1`: the 2-D key [`bounded`](crate::signatures::fourier::bounded)`(r_1)`;
-//!      `ratio-1-2`: the 4-D key (bounded(r_1), bounded(r_2)); r_j = Z_j / Z_{−j} from
-//!      [`RatioPlan`] (RustFFT forward DFT of the vertices as complex numbers x + iy).
+//!    - `permuted`: the sequence is reordered by [`fixed_permutation`]`(10)`, the same for
+//!      indexed and query polygons;
+//!    - signature `ratio-1`: the 2-D key [`bounded`]`(r_1)`; `ratio-1-2`: the 4-D key
+//!      (bounded(r_1), bounded(r_2)); r_j = Z_j / Z_{−j} from [`RatioPlan`] (RustFFT forward
+//!      DFT of the vertices as complex numbers x + iy, taken relative to the first vertex of
+//!      the sequence).
 //! 3. **Index.** Per class and variant, the keys of all polygons go into one kiddo
 //!    `ImmutableKdTree` (squared Euclidean distance in the key space).
 //! 4. **Queries.** The first [`FULL_QUERIES`] polygons of each class (quick: [`QUICK_QUERIES`];
@@ -45,10 +45,23 @@
 //! recall@1 stays at or above [`RECALL_TARGET`] at every level (a later rebound above the
 //! target does not count).
 //!
-//! What to expect (common practice, no published source): ratios of smooth convex outlines are
-//! dominated by one tiny coefficient (Z_{−1} for a counter-clockwise outline), so their keys
-//! crowd near the unit circle and tolerate the least noise; irregular outlines spread their
-//! energy and tolerate more; the fixed permutation makes every outline irregular.
+//! What was expected (common practice, no published source): ratios of smooth convex outlines
+//! are dominated by one tiny coefficient (Z_{−1} for a counter-clockwise outline), so their
+//! keys should tolerate the least noise, irregular outlines more, self-intersecting ones the
+//! most, and the fixed permutation should make every outline irregular. `retrieval.md` also
+//! reports, per class and variant, the median gap between indexed keys and the median key
+//! shift at 1 px, which separate crowding of the keys from sensitivity to noise.
+//!
+//! What the runs show instead, and the unit tests pin (quick sizes, seed 1; the margins held
+//! for seeds 1 to 8): in the given order star-shaped polygons tolerate the least noise (at
+//! about the same key spacing as convex ones, their keys move the most per pixel), convex ones
+//! next, simple and general ones the most. The permutation raises convex polygons' recall with
+//! the 4-D key but lowers it with the 2-D key: one fixed permutation sends all convex outlines
+//! to similar keys (their median key spacing halves). With uniform random angles the convex
+//! outlines are far from regular, so Z_{−1} is not tiny; near-circles (axis ratio ≥ 0.95) did
+//! not change the ordering either. With 10 000 keys in the 2-D disc the typical gap between
+//! keys is about 0.006, a few pixels' worth of key shift, so no class keeps recall@1 ≥ 0.9
+//! beyond 1 px there.
 
 use super::polygons::{self, PolygonClass};
 use super::ExperimentError;
@@ -281,24 +294,26 @@ impl KeyTree {
         }
     }
 
-    /// Indices of the five nearest keys, nearest first.
-    fn nearest5(&self, key: &Key, out: &mut Vec<u32>) {
+    /// Indices (and squared distances) of the `k` nearest keys, nearest first.
+    fn nearest(&self, key: &Key, k: usize, out: &mut Vec<(u32, f64)>) {
         out.clear();
-        let five = NonZero::new(5).expect("5 is not zero");
+        let Some(k) = NonZero::new(k) else {
+            return;
+        };
         match self {
             KeyTree::Two(t) => out.extend(
                 t.query(&[key[0], key[1]])
-                    .nearest_n::<SquaredEuclidean<f64>>(five)
+                    .nearest_n::<SquaredEuclidean<f64>>(k)
                     .execute()
                     .into_iter()
-                    .map(|r| r.item),
+                    .map(|r| (r.item, r.distance)),
             ),
             KeyTree::Four(t) => out.extend(
                 t.query(key)
-                    .nearest_n::<SquaredEuclidean<f64>>(five)
+                    .nearest_n::<SquaredEuclidean<f64>>(k)
                     .execute()
                     .into_iter()
-                    .map(|r| r.item),
+                    .map(|r| (r.item, r.distance)),
             ),
         }
     }
@@ -349,37 +364,41 @@ pub fn run_retrieval(
     )
 }
 
-fn run_sized(
-    seed: u64,
-    polygons: usize,
-    queries: usize,
-    levels: &[f64],
-    progress: &mut dyn FnMut(&str),
-) -> Vec<RetrievalRow> {
-    assert!(
-        queries <= polygons,
-        "queries are drawn from the indexed polygons"
-    );
-    let variants = Variant::all();
-    let mut keyer = Keyer::new(VERTICES);
-    let mut rows = Vec::with_capacity(PolygonClass::ALL.len() * variants.len() * levels.len());
-    let mut noisy = vec![[0.0; 2]; VERTICES];
-    let mut found = Vec::with_capacity(5);
-    for class in PolygonClass::ALL {
-        progress(&format!(
-            "retrieval: {class}: indexing {polygons} polygons in {} variants",
-            variants.len()
-        ));
+/// One class's polygons, their keys and k-d trees per variant, and the queries' noise.
+struct ClassIndex {
+    polys: Vec<Vec<[f64; 2]>>,
+    /// keys[variant][polygon]
+    keys: Vec<Vec<Key>>,
+    trees: Vec<KeyTree>,
+    /// Standard-normal perturbation per query and vertex (module doc, point 4).
+    directions: Vec<Vec<[f64; 2]>>,
+}
+
+impl ClassIndex {
+    fn new(
+        class: PolygonClass,
+        seed: u64,
+        polygons: usize,
+        queries: usize,
+        variants: &[Variant],
+        keyer: &mut Keyer,
+    ) -> Self {
+        assert!(
+            queries <= polygons,
+            "queries are drawn from the indexed polygons"
+        );
         let polys = generate_class(class, polygons, seed);
-        let trees: Vec<KeyTree> = variants
+        let keys: Vec<Vec<Key>> = variants
             .iter()
-            .map(|&v| {
-                let keys: Vec<Key> = polys.iter().map(|p| keyer.key(p, v)).collect();
-                KeyTree::build(&keys, v.dims())
-            })
+            .map(|&v| polys.iter().map(|p| keyer.key(p, v)).collect())
+            .collect();
+        let trees = variants
+            .iter()
+            .zip(&keys)
+            .map(|(v, k)| KeyTree::build(k, v.dims()))
             .collect();
         let mut noise_rng = stream_rng(seed, 11 + class_index(class));
-        let directions: Vec<Vec<[f64; 2]>> = (0..queries)
+        let directions = (0..queries)
             .map(|_| {
                 (0..VERTICES)
                     .map(|_| {
@@ -390,27 +409,63 @@ fn run_sized(
                     .collect()
             })
             .collect();
+        ClassIndex {
+            polys,
+            keys,
+            trees,
+            directions,
+        }
+    }
+
+    /// Query `q` perturbed at noise `sigma`, into `out`.
+    fn perturbed(&self, q: usize, sigma: f64, out: &mut Vec<[f64; 2]>) {
+        out.clear();
+        out.extend(
+            self.polys[q]
+                .iter()
+                .zip(&self.directions[q])
+                .map(|(p, g)| [p[0] + sigma * g[0], p[1] + sigma * g[1]]),
+        );
+    }
+}
+
+fn run_sized(
+    seed: u64,
+    polygons: usize,
+    queries: usize,
+    levels: &[f64],
+    progress: &mut dyn FnMut(&str),
+) -> Vec<RetrievalRow> {
+    let variants = Variant::all();
+    let mut keyer = Keyer::new(VERTICES);
+    let mut rows = Vec::with_capacity(PolygonClass::ALL.len() * variants.len() * levels.len());
+    let mut noisy = Vec::with_capacity(VERTICES);
+    let mut found = Vec::with_capacity(5);
+    for class in PolygonClass::ALL {
+        progress(&format!(
+            "retrieval: {class}: indexing {polygons} polygons in {} variants",
+            variants.len()
+        ));
+        let index = ClassIndex::new(class, seed, polygons, queries, &variants, &mut keyer);
         // hits[variant][level] = (recall@1 hits, recall@5 hits)
         let mut hits = vec![vec![(0usize, 0usize); levels.len()]; variants.len()];
         for (l, &sigma) in levels.iter().enumerate() {
             progress(&format!(
                 "retrieval: {class}: {queries} queries at noise {sigma} px"
             ));
-            for (q, dir) in directions.iter().enumerate() {
-                for ((out, p), g) in noisy.iter_mut().zip(&polys[q]).zip(dir) {
-                    *out = [p[0] + sigma * g[0], p[1] + sigma * g[1]];
-                }
+            for q in 0..queries {
+                index.perturbed(q, sigma, &mut noisy);
                 for (vi, &v) in variants.iter().enumerate() {
                     let key = keyer.key(&noisy, v);
                     if !key.iter().all(|x| x.is_finite()) {
                         continue;
                     }
-                    trees[vi].nearest5(&key, &mut found);
+                    index.trees[vi].nearest(&key, 5, &mut found);
                     let target = q as u32;
-                    if found.first() == Some(&target) {
+                    if found.first().map(|f| f.0) == Some(target) {
                         hits[vi][l].0 += 1;
                     }
-                    if found.contains(&target) {
+                    if found.iter().any(|f| f.0 == target) {
                         hits[vi][l].1 += 1;
                     }
                 }
@@ -433,6 +488,87 @@ fn run_sized(
         }
     }
     rows
+}
+
+/// Why a class tolerates the noise it does: how crowded its keys are and how far noise moves
+/// them, for one variant.
+#[derive(Debug, Clone, PartialEq)]
+pub struct KeyDiagnostic {
+    /// Shape class.
+    pub class: PolygonClass,
+    /// Vertex order ([`ORDERS`]).
+    pub order: &'static str,
+    /// Whether the fixed permutation was applied.
+    pub permuted: bool,
+    /// Signature variant ([`SIGNATURES`]).
+    pub signature: &'static str,
+    /// Median over the indexed keys of the distance (not squared) to the nearest other key.
+    pub median_spacing: f64,
+    /// Median over the queries of the distance (not squared) between a query's key at 1 px
+    /// noise and its original key (the run's own noise draws).
+    pub median_shift_1px: f64,
+}
+
+fn median(mut v: Vec<f64>) -> f64 {
+    if v.is_empty() {
+        return f64::NAN;
+    }
+    v.sort_by(f64::total_cmp);
+    let m = v.len() / 2;
+    if v.len() % 2 == 1 {
+        v[m]
+    } else {
+        0.5 * (v[m - 1] + v[m])
+    }
+}
+
+/// Key spacing and noise sensitivity per class and variant, for the polygons and noise draws
+/// of a run with `options` (recomputed from the seed; deterministic). A query whose key at
+/// 1 px is not finite is left out of the median.
+pub fn key_diagnostics(options: &RetrievalOptions) -> Vec<KeyDiagnostic> {
+    let variants = Variant::all();
+    let mut keyer = Keyer::new(VERTICES);
+    let (polygons, queries) = (options.polygons_per_class(), options.queries_per_class());
+    let mut out = Vec::with_capacity(PolygonClass::ALL.len() * variants.len());
+    let mut noisy = Vec::with_capacity(VERTICES);
+    let mut found = Vec::with_capacity(2);
+    for class in PolygonClass::ALL {
+        let index = ClassIndex::new(
+            class,
+            options.seed,
+            polygons,
+            queries,
+            &variants,
+            &mut keyer,
+        );
+        for (vi, &v) in variants.iter().enumerate() {
+            let keys = &index.keys[vi];
+            let spacing: Vec<f64> = keys
+                .iter()
+                .filter_map(|k| {
+                    index.trees[vi].nearest(k, 2, &mut found);
+                    found.get(1).map(|f| f.1.sqrt())
+                })
+                .collect();
+            let shift: Vec<f64> = (0..queries)
+                .filter_map(|q| {
+                    index.perturbed(q, 1.0, &mut noisy);
+                    let k = keyer.key(&noisy, v);
+                    let d2: f64 = (0..v.dims()).map(|d| (k[d] - keys[q][d]).powi(2)).sum();
+                    d2.is_finite().then(|| d2.sqrt())
+                })
+                .collect();
+            out.push(KeyDiagnostic {
+                class,
+                order: v.order(),
+                permuted: v.permuted,
+                signature: SIGNATURES[v.signature].0,
+                median_spacing: median(spacing),
+                median_shift_1px: median(shift),
+            });
+        }
+    }
+    out
 }
 
 /// The rows of one class and variant, noise ascending.
@@ -591,6 +727,37 @@ fn markdown_text(rows: &[RetrievalRow], options: &RetrievalOptions) -> String {
             }
         }
     }
+    s.push_str(
+        "\nKey crowding and noise sensitivity (medians, same polygons and noise draws; \
+         distances in the key space, whose coordinates lie in the unit disc per harmonic). \
+         spacing ÷ shift is roughly the noise at which a typical key has moved as far as the \
+         typical gap to its nearest neighbour, where recall@1 has fallen well below 1 (the \
+         shift grows about linearly with the noise while no vertex order changes):\n\n",
+    );
+    s.push_str(
+        "| class | order | permuted | signature | key spacing | key shift at 1 px | spacing ÷ shift (px) |\n\
+         |---|---|---|---|---:|---:|---:|\n",
+    );
+    let diagnostics = key_diagnostics(options);
+    for (signature, _) in SIGNATURES {
+        for order in ORDERS {
+            for permuted in [false, true] {
+                for d in diagnostics.iter().filter(|d| {
+                    d.signature == signature && d.order == order && d.permuted == permuted
+                }) {
+                    let _ = writeln!(
+                        s,
+                        "| {} | {order} | {} | {signature} | {:.4} | {:.4} | {:.1} |",
+                        d.class,
+                        if permuted { "yes" } else { "no" },
+                        d.median_spacing,
+                        d.median_shift_1px,
+                        d.median_spacing / d.median_shift_1px
+                    );
+                }
+            }
+        }
+    }
     s.push_str("\nShapes of the generated polygons (same seed), share of each class:\n\n");
     s.push_str("| class | polygons | convex | simple | star-shaped |\n|---|---:|---:|---:|---:|\n");
     for c in census(options) {
@@ -682,7 +849,9 @@ fn draw_plot(
                 .y_desc("recall@1")
                 .label_style((FONT, 18))
                 .axis_desc_style((FONT, 20))
-                .light_line_style(RGBColor(235, 235, 235))
+                .x_label_formatter(&|v| format!("{v:.0}"))
+                .y_label_formatter(&|v| format!("{v:.1}"))
+                .light_line_style(RGBColor(240, 240, 240))
                 .draw()?;
             chart.draw_series(DashedLineSeries::new(
                 [(0.0, RECALL_TARGET), (top, RECALL_TARGET)],
@@ -826,9 +995,10 @@ mod tests {
         |_: &str| {}
     }
 
-    /// Mean recall@1 over the noise levels (area under the curve, per level).
-    fn score(rows: &[RetrievalRow], class: PolygonClass, permuted: bool) -> f64 {
-        let s = series(rows, class, "given", permuted, "ratio-1");
+    /// Mean recall@1 over the noise levels of the given order (area under the curve, per
+    /// level).
+    fn score(rows: &[RetrievalRow], class: PolygonClass, permuted: bool, signature: &str) -> f64 {
+        let s = series(rows, class, "given", permuted, signature);
         s.iter().map(|r| r.recall_at_1).sum::<f64>() / s.len() as f64
     }
 
@@ -914,32 +1084,40 @@ mod tests {
     }
 
     #[test]
-    fn quick_run_orders_the_classes_and_the_permutation_helps_convex() {
+    fn quick_run_orders_the_classes_and_the_permutation_effect_on_convex() {
+        // The margins hold for seeds 1 to 8 (checked when this test was written); the
+        // assertions pin the findings described in the module doc.
         let options = RetrievalOptions {
             quick: true,
-            seed: 2024,
+            seed: 1,
         };
         let mut lines = 0;
         let rows = run_retrieval(&options, &mut |_| lines += 1);
         assert!(lines > 4);
         assert_eq!(rows.len(), 4 * 8 * QUICK_NOISE_LEVELS_PX.len());
-        let convex = score(&rows, PolygonClass::Convex, false);
-        let star = score(&rows, PolygonClass::Star, false);
-        let simple = score(&rows, PolygonClass::Simple, false);
-        let general = score(&rows, PolygonClass::General, false);
-        assert!(convex < star && convex < simple, "{convex} {star} {simple}");
-        assert!(
-            general > star && general > simple,
-            "{general} {star} {simple}"
-        );
-        let convex_permuted = score(&rows, PolygonClass::Convex, true);
-        assert!(
-            convex_permuted > convex + 0.1,
-            "permutation: {convex} -> {convex_permuted}"
-        );
-        // Recall falls with noise overall and recall@5 never trails recall@1.
+        use PolygonClass::*;
+        for signature in ["ratio-1", "ratio-1-2"] {
+            let [convex, star, simple, general] =
+                [Convex, Star, Simple, General].map(|c| score(&rows, c, false, signature));
+            let all = format!("{signature}: {convex} {star} {simple} {general}");
+            assert!(star + 0.02 < convex, "star least tolerant, {all}");
+            assert!(convex + 0.03 < simple, "{all}");
+            assert!(star + 0.05 < general, "{all}");
+        }
+        let [convex_2d, convex_4d] =
+            ["ratio-1", "ratio-1-2"].map(|s| score(&rows, Convex, false, s));
+        let [permuted_2d, permuted_4d] =
+            ["ratio-1", "ratio-1-2"].map(|s| score(&rows, Convex, true, s));
+        assert!(permuted_4d > convex_4d, "4-D: {convex_4d} -> {permuted_4d}");
+        assert!(permuted_2d < convex_2d, "2-D: {convex_2d} -> {permuted_2d}");
         for r in &rows {
             assert!(r.recall_at_5 >= r.recall_at_1);
+            if r.noise_px == 0.0 {
+                assert_eq!(r.recall_at_1, 1.0);
+            }
+            if r.noise_px >= 20.0 {
+                assert!(r.recall_at_1 < 0.9, "{r:?}");
+            }
         }
     }
 
@@ -1004,13 +1182,14 @@ mod tests {
         );
         let md = std::fs::read_to_string(&paths[1]).unwrap();
         assert!(md.contains("| class | order | permuted | signature | tolerance (px) |"));
-        assert_eq!(md.matches("| ratio-1 |").count(), 16);
-        assert_eq!(md.matches("| ratio-1-2 |").count(), 16);
+        // 16 rows per signature in the results table and 16 in the key diagnostics.
+        assert_eq!(md.matches("| ratio-1 |").count(), 32);
+        assert_eq!(md.matches("| ratio-1-2 |").count(), 32);
         assert!(md.contains("independent checkpoints"));
         let svg = std::fs::read_to_string(&paths[2]).unwrap();
         assert!(svg.starts_with("<svg"));
         for class in PolygonClass::ALL {
-            assert!(svg.contains(&format!(">{}</text>", class.name())));
+            assert!(svg.contains(&format!(">\n{}\n</text>", class.name())));
         }
         let leftovers = std::fs::read_dir(&out)
             .unwrap()

@@ -51,7 +51,7 @@ impl Default for FitParams {
         FitParams {
             tolerance_m: None,
             confidence: 0.999,
-            max_rounds: 1_000_000,
+            max_rounds: 300_000,
             seed: 20_261_201,
             false_alarm_level: 0.01,
             min_control_points: 5,

@@ -23,11 +23,12 @@
 //! working_crs = "EPSG:32633" # optional
 //!
 //! [signatures]
-//! neighbours = 4
+//! neighbours = 4            # optional: default by size (4 up to 50 000 landmarks, else 5)
 //! order = "walk"             # or "angular"
 //! harmonics = [1, 2]       # one harmonic: 2-D keys; two: 4-D keys
 //! permuted = false         # fixed pseudo-random permutation of the vertex order
-//! leave_out = 0            # subset signatures: leave out 0, 1 or 2 neighbours
+//! leave_out = 1            # optional: subset signatures, leave out 0, 1 or 2 neighbours
+//!                          # (default by size: 2 up to 20 000 landmarks, 1 up to 50 000, else 0)
 //! ambiguity = 0.0          # walk branches where two steps are within this margin
 //!
 //! [matching]
@@ -37,14 +38,14 @@
 //! [fit]
 //! tolerance_m = 2.0          # optional: default a quarter of the reference's spacing
 //! confidence = 0.999
-//! max_rounds = 1000000
+//! max_rounds = 300000
 //! seed = 20261201
 //! false_alarm_level = 0.01
 //! min_control_points = 5
 //! ```
 
 use crate::fit::FitParams;
-use crate::signatures::SignatureParams;
+use crate::signatures::SignatureChoice;
 use serde::{Deserialize, Serialize};
 use std::path::{Path, PathBuf};
 
@@ -119,7 +120,7 @@ pub struct MatchConfig {
     pub frame: FrameSection,
     /// Signature stage.
     #[serde(default)]
-    pub signatures: SignatureParams,
+    pub signatures: SignatureChoice,
     /// Matching stage.
     #[serde(default)]
     pub matching: MatchingParams,
@@ -251,6 +252,6 @@ mod tests {
         let c = MatchConfig::from_file(&p).unwrap();
         assert_eq!(c.reference.path, dir.path().join("a.gpkg"));
         assert_eq!(c.target.path, PathBuf::from("/abs/b.gpkg"));
-        assert_eq!(c.signatures, SignatureParams::default());
+        assert_eq!(c.signatures, SignatureChoice::default());
     }
 }

@@ -63,8 +63,21 @@ pub struct MatchResult {
     pub solution: Solution,
     /// Median reference spacing, working units.
     pub reference_spacing: f64,
-    /// Signatures built: (reference, target), and candidates proposed.
-    pub counts: (usize, usize, usize),
+    /// What the signature and matching stages produced.
+    pub counts: Counts,
+}
+
+/// What the signature and matching stages produced, and with which options.
+#[derive(Debug, Clone)]
+pub struct Counts {
+    /// Reference signatures built.
+    pub reference_signatures: usize,
+    /// Target signatures built.
+    pub target_signatures: usize,
+    /// Candidate correspondences proposed.
+    pub candidates: usize,
+    /// The signature options used (the automatic choices resolved).
+    pub signatures: crate::signatures::SignatureParams,
 }
 
 /// How a run ended (errors aside).
@@ -145,7 +158,7 @@ pub fn run_match(config: &MatchConfig, quiet: bool) -> Result<MatchOutcome, Erro
             spacing,
             counts,
         } => {
-            let summary = crate::report::rejection(config, &frame, &rejection, spacing, counts);
+            let summary = crate::report::rejection(config, &frame, &rejection, spacing, &counts);
             Ok(MatchOutcome::NoTransform { rejection, summary })
         }
     }
@@ -159,8 +172,8 @@ pub enum Solved {
         solution: Box<Solution>,
         /// Median reference spacing, working units.
         spacing: f64,
-        /// Signatures (reference, target) and candidates.
-        counts: (usize, usize, usize),
+        /// What the signature and matching stages produced.
+        counts: Counts,
     },
     /// Rejected.
     NotFound {
@@ -168,8 +181,8 @@ pub enum Solved {
         rejection: Rejection,
         /// Median reference spacing, working units.
         spacing: f64,
-        /// Signatures (reference, target) and candidates.
-        counts: (usize, usize, usize),
+        /// What the signature and matching stages produced.
+        counts: Counts,
     },
 }
 
@@ -220,12 +233,13 @@ pub fn solve_points(
         .unwrap_or(1.0)
         .max(f64::MIN_POSITIVE);
     let bar = progress.bar(reference.len() as u64, "reference signatures");
-    let rs = signatures::compute(&labels[0], reference, ri, &config.signatures, &mut |n| {
+    let used = config.signatures.resolve(reference.len().min(target.len()));
+    let rs = signatures::compute(&labels[0], reference, ri, &used, &mut |n| {
         bar.set_position(n as u64)
     })?;
     bar.finish_and_clear();
     let bar = progress.bar(target.len() as u64, "target signatures");
-    let ts = signatures::compute(&labels[1], target, ti, &config.signatures, &mut |n| {
+    let ts = signatures::compute(&labels[1], target, ti, &used, &mut |n| {
         bar.set_position(n as u64)
     })?;
     bar.finish_and_clear();
@@ -238,7 +252,12 @@ pub fn solve_points(
         &mut |n| bar.set_position(n as u64),
     );
     bar.finish_and_clear();
-    let counts = (rs.len(), ts.len(), cands.len());
+    let counts = Counts {
+        reference_signatures: rs.len(),
+        target_signatures: ts.len(),
+        candidates: cands.len(),
+        signatures: used.clone(),
+    };
     let spin = progress.spinner("robust fit");
     let input = fit::FitInput {
         reference,

@@ -4,7 +4,8 @@
 //! `cargo bench --bench stages -- 100000` for chosen sizes. Prints one Markdown table row per
 //! size: seconds per stage, end to end, and the process's peak resident memory so far.
 //! Surveys: jittered grid, 28% missing on each side, 25% new, noise 1% of the spacing, rotation
-//! 37°, scale 2.7. `TIEMARK_K=5` changes the neighbours per signature;
+//! 37°, scale 2.7. `TIEMARK_K=5` changes the neighbours per signature, `TIEMARK_LEAVE_OUT=1`
+//! the subset depth; `TIEMARK_MISSING`, `TIEMARK_EXTRA`, `TIEMARK_NOISE` the surveys;
 //! `TIEMARK_BENCH_VERBOSE=1` prints the robust fit's steps with their times.
 
 use std::time::Instant;
@@ -45,11 +46,17 @@ fn main() {
     println!("|---:|---:|---:|---:|---:|---:|---:|---:|");
     for n in sizes {
         let truth = Similarity::from_params(2.7, 37f64.to_radians(), 5000.0, -300.0);
+        let env = |k: &str, d: f64| {
+            std::env::var(k)
+                .ok()
+                .and_then(|v| v.parse().ok())
+                .unwrap_or(d)
+        };
         let p = make_pair(&SynthParams {
             landmarks: n,
-            missing: 0.28,
-            extra: 0.25,
-            noise: 0.01,
+            missing: env("TIEMARK_MISSING", 0.28),
+            extra: env("TIEMARK_EXTRA", 0.25),
+            noise: env("TIEMARK_NOISE", 0.01),
             truth,
             seed: 7,
         });
@@ -61,6 +68,12 @@ fn main() {
         let mut params = SignatureParams::default();
         if let Some(k) = std::env::var("TIEMARK_K").ok().and_then(|v| v.parse().ok()) {
             params.neighbours = k;
+        }
+        if let Some(l) = std::env::var("TIEMARK_LEAVE_OUT")
+            .ok()
+            .and_then(|v| v.parse().ok())
+        {
+            params.leave_out = l;
         }
         let rs = signatures::compute("reference", &p.reference, &ri, &params, &mut |_| {})
             .expect("signatures");
