@@ -4,7 +4,7 @@
 //! `cargo bench --bench stages -- 100000` for chosen sizes. Prints one Markdown table row per
 //! size: seconds per stage, end to end, and the process's peak resident memory so far.
 //! Surveys: jittered grid, 28% missing on each side, 25% new, noise 1% of the spacing, rotation
-//! 37°, scale 2.7. `TIEMARK_K=5` changes the neighbours per signature, `TIEMARK_LEAVE_OUT=1`
+//! 37°, scale 2.7. Signature options: what the tool chooses for that survey size. `TIEMARK_K=5` changes the neighbours per signature, `TIEMARK_LEAVE_OUT=1`
 //! the subset depth; `TIEMARK_MISSING`, `TIEMARK_EXTRA`, `TIEMARK_NOISE` the surveys;
 //! `TIEMARK_BENCH_VERBOSE=1` prints the robust fit's steps with their times.
 
@@ -12,7 +12,7 @@ use std::time::Instant;
 use tiemark::fit::{self, Similarity};
 use tiemark::matching;
 use tiemark::pipeline::config::MatchingParams;
-use tiemark::signatures::{self, SignatureParams};
+use tiemark::signatures::{self, SignatureChoice};
 use tiemark::spatial::{median_spacing, PointIndex};
 use tiemark::synth::{make_pair, SynthParams};
 
@@ -42,8 +42,8 @@ fn main() {
             args
         }
     };
-    println!("| landmarks per survey | trees | signatures | matching | robust fit | end to end | control points | peak memory |");
-    println!("|---:|---:|---:|---:|---:|---:|---:|---:|");
+    println!("| landmarks per survey | k, leave-out | trees | signatures | matching | robust fit | end to end | control points | peak memory |");
+    println!("|---:|---:|---:|---:|---:|---:|---:|---:|---:|");
     for n in sizes {
         let truth = Similarity::from_params(2.7, 37f64.to_radians(), 5000.0, -300.0);
         let env = |k: &str, d: f64| {
@@ -65,16 +65,18 @@ fn main() {
         let ti = PointIndex::new(&p.target).expect("tree");
         let spacing = median_spacing(&p.reference, &ri, 10_000).expect("spacing");
         let t1 = Instant::now();
-        let mut params = SignatureParams::default();
+        // What the tool would choose for surveys of this size, unless overridden.
+        let mut choice = SignatureChoice::default();
         if let Some(k) = std::env::var("TIEMARK_K").ok().and_then(|v| v.parse().ok()) {
-            params.neighbours = k;
+            choice.neighbours = Some(k);
         }
         if let Some(l) = std::env::var("TIEMARK_LEAVE_OUT")
             .ok()
             .and_then(|v| v.parse().ok())
         {
-            params.leave_out = l;
+            choice.leave_out = Some(l);
         }
+        let params = choice.resolve(p.reference.len().min(p.target.len()));
         let rs = signatures::compute("reference", &p.reference, &ri, &params, &mut |_| {})
             .expect("signatures");
         let ts = signatures::compute("target", &p.target, &ti, &params, &mut |_| {})
@@ -113,7 +115,9 @@ fn main() {
         };
         let s = |a: Instant, b: Instant| format!("{:.2} s", (b - a).as_secs_f64());
         println!(
-            "| {n} | {} | {} | {} | {} | {} | {cps} | {:.0} MB |",
+            "| {n} | {}, {} | {} | {} | {} | {} | {} | {cps} | {:.0} MB |",
+            params.neighbours,
+            params.leave_out,
             s(t0, t1),
             s(t1, t2),
             s(t2, t3),
