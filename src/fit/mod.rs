@@ -197,15 +197,6 @@ pub fn robust_fit(
         target_index: input.target_index,
     };
     progress("searching for a consistent transform (RANSAC)");
-    let rin = ransac::RansacInput {
-        reference: input.reference,
-        target: input.target,
-        reference_index: input.reference_index,
-        target_index: input.target_index,
-        reference_signatures: input.reference_signatures,
-        target_signatures: input.target_signatures,
-        candidates: input.candidates,
-    };
     let rparams = ransac::RansacParams {
         tolerance,
         confidence: params.confidence,
@@ -214,7 +205,7 @@ pub fn robust_fit(
         keep: 4,
         chance_rate: significance::poisson_chance_rate(tolerance, input.reference_spacing),
     };
-    let r = ransac::ransac(&rin, &rparams);
+    let r = ransac::ransac(input, &rparams);
     if r.best.is_empty() {
         return FitOutcome::NotFound(Rejection {
             reason: "no candidate correspondence produced a transform: the neighbourhoods of the two surveys never agreed".into(),

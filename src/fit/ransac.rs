@@ -28,8 +28,7 @@
 use super::sample_count::sample_count;
 use super::similarity::{fit_similarity_indexed, similarity_from_two, Similarity};
 use crate::matching::Candidate;
-use crate::signatures::Signatures;
-use crate::spatial::{dist2, morton_order, PointIndex};
+use crate::spatial::{dist2, morton_order};
 use rand::{Rng, SeedableRng};
 
 /// Target landmarks scored per hypothesis (a spread sample).
@@ -51,23 +50,8 @@ pub const SPRT_ALPHA: f64 = 0.001;
 /// Probability of rejecting a correct one.
 pub const SPRT_BETA: f64 = 0.05;
 
-/// What RANSAC needs to see.
-pub struct RansacInput<'a> {
-    /// Reference landmarks (working frame).
-    pub reference: &'a [[f64; 2]],
-    /// Target landmarks (working frame).
-    pub target: &'a [[f64; 2]],
-    /// k-d tree of `reference`.
-    pub reference_index: &'a PointIndex,
-    /// k-d tree of `target`.
-    pub target_index: &'a PointIndex,
-    /// Reference signatures.
-    pub reference_signatures: &'a Signatures,
-    /// Target signatures.
-    pub target_signatures: &'a Signatures,
-    /// Candidate correspondences, best first.
-    pub candidates: &'a [Candidate],
-}
+/// What RANSAC reads: the robust fit's input.
+pub use super::FitInput as RansacInput;
 
 /// RANSAC settings.
 #[derive(Debug, Clone, Copy)]
