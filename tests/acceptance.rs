@@ -17,7 +17,7 @@ use rand_distr::{Distribution, Normal};
 use std::collections::HashSet;
 use tiemark::fit::Similarity;
 use tiemark::landmarks::crs::{Converter, Crs};
-use tiemark::pipeline::config::{MatchConfig, OutputOptions, SurveyInput};
+use tiemark::pipeline::config::MatchConfig;
 use tiemark::pipeline::progress::Progress;
 use tiemark::pipeline::{solve_points, Solved};
 use tiemark::spatial::{median_spacing, PointIndex};
@@ -44,12 +44,6 @@ fn airports_utm() -> Vec<[f64; 2]> {
 }
 
 fn config() -> MatchConfig {
-    let s = |p: &str| SurveyInput {
-        path: p.into(),
-        layer: None,
-        id: None,
-        crs: None,
-    };
     let mut signatures = tiemark::signatures::SignatureChoice::default();
     if let Some(k) = std::env::var("TIEMARK_K").ok().and_then(|v| v.parse().ok()) {
         signatures.neighbours = Some(k);
@@ -63,18 +57,9 @@ fn config() -> MatchConfig {
     if let Ok(h) = std::env::var("TIEMARK_H") {
         signatures.harmonics = h.split(',').map(|v| v.parse().unwrap()).collect();
     }
-    MatchConfig {
-        reference: s("reference"),
-        target: s("target"),
-        output: OutputOptions {
-            dir: "unused".into(),
-            force: false,
-        },
-        frame: Default::default(),
-        signatures,
-        matching: Default::default(),
-        fit: Default::default(),
-    }
+    let mut config = MatchConfig::new("reference".into(), "target".into(), "unused".into());
+    config.signatures = signatures;
+    config
 }
 
 struct Trial {

@@ -4,7 +4,7 @@
 
 use std::collections::HashSet;
 use tiemark::fit::Similarity;
-use tiemark::pipeline::config::{MatchConfig, OutputOptions, SurveyInput};
+use tiemark::pipeline::config::MatchConfig;
 use tiemark::pipeline::progress::Progress;
 use tiemark::pipeline::{solve_points, Solved};
 use tiemark::spatial::PointIndex;
@@ -15,24 +15,11 @@ fn labels() -> [String; 2] {
 }
 
 fn config() -> MatchConfig {
-    let s = |p: &str| SurveyInput {
-        path: p.into(),
-        layer: None,
-        id: None,
-        crs: None,
-    };
-    MatchConfig {
-        reference: s("synthetic-reference"),
-        target: s("synthetic-target"),
-        output: OutputOptions {
-            dir: "unused".into(),
-            force: false,
-        },
-        frame: Default::default(),
-        signatures: Default::default(),
-        matching: Default::default(),
-        fit: Default::default(),
-    }
+    MatchConfig::new(
+        "synthetic-reference".into(),
+        "synthetic-target".into(),
+        "unused".into(),
+    )
 }
 
 /// (found fraction of true pairs, wrong fraction among control points, transform error).

@@ -154,6 +154,28 @@ pub enum ConfigError {
 }
 
 impl MatchConfig {
+    /// A configuration with every option at its default.
+    pub fn new(reference: PathBuf, target: PathBuf, out: PathBuf) -> MatchConfig {
+        let input = |path| SurveyInput {
+            path,
+            layer: None,
+            id: None,
+            crs: None,
+        };
+        MatchConfig {
+            reference: input(reference),
+            target: input(target),
+            output: OutputOptions {
+                dir: out,
+                force: false,
+            },
+            frame: FrameSection::default(),
+            signatures: SignatureChoice::default(),
+            matching: MatchingParams::default(),
+            fit: FitParams::default(),
+        }
+    }
+
     /// Reads a pipeline file; relative paths are resolved against its folder.
     pub fn from_file(path: &Path) -> Result<MatchConfig, ConfigError> {
         let text = std::fs::read_to_string(path).map_err(|source| ConfigError::Read {
