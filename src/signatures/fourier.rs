@@ -131,6 +131,29 @@ pub fn bounded(r: Complex64) -> [f64; 2] {
     [r.re / (1.0 + m), r.im / (1.0 + m)]
 }
 
+/// Maps a ratio r onto the unit sphere by inverse stereographic projection (the Riemann
+/// sphere): r ↦ (2·Re r, 2·Im r, |r|² − 1) / (|r|² + 1). Euclidean distance between two such
+/// points is the chordal distance 2|a − b| / √((1 + |a|²)(1 + |b|²)) (the chordal metric of
+/// complex analysis, e.g. Ahlfors, *Complex Analysis*, 3rd ed., ch. 1 — from memory), which
+/// treats r and 1/r alike: 0 and ∞ are the two poles, and reversing a walk (r ↦ 1/r) is a
+/// half-turn of the sphere about its first axis. A ratio of two independent, equally spread
+/// complex Gaussian coefficients is uniform on this sphere (its density 1/(π(1 + |r|²)²) is
+/// the sphere's area element carried to the plane; checked by sampling in the tests), so its keys neither
+/// crowd near the rim, as the disc map's do for large |r|, nor near the centre. `∞` maps to
+/// the pole (0, 0, 1); NaN to NaN.
+#[inline]
+pub fn spherical(r: Complex64) -> [f64; 3] {
+    if r.re.is_nan() || r.im.is_nan() {
+        return [f64::NAN; 3];
+    }
+    let q = r.norm_sqr();
+    if !q.is_finite() {
+        return [0.0, 0.0, 1.0];
+    }
+    let d = 1.0 + q;
+    [2.0 * r.re / d, 2.0 * r.im / d, (q - 1.0) / d]
+}
+
 /// Direct O(n²) DFT coefficient Z_k, the oracle against which the planned FFT is checked.
 pub fn dft_coefficient(z: &[Complex64], k: usize) -> Complex64 {
     let n = z.len() as f64;
@@ -246,6 +269,58 @@ mod tests {
         let mirrored: Vec<Complex64> = z.iter().map(|v| c(v.im, v.re)).collect();
         let rm = ratio_direct(&mirrored, j);
         assert!((rm - 1.0 / r.conj()).norm() < 1e-9);
+    }
+
+    #[test]
+    fn sphere_map_gives_the_chordal_distance_and_turns_reversal_into_a_half_turn() {
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(5);
+        let norm = |p: [f64; 3]| (p[0] * p[0] + p[1] * p[1] + p[2] * p[2]).sqrt();
+        for _ in 0..200 {
+            let s = 10f64.powf(rng.gen_range(-3.0..3.0));
+            let a = c(rng.gen_range(-1.0..1.0), rng.gen_range(-1.0..1.0)) * s;
+            let b = c(rng.gen_range(-1.0..1.0), rng.gen_range(-1.0..1.0));
+            let (pa, pb) = (spherical(a), spherical(b));
+            assert!((norm(pa) - 1.0).abs() < 1e-12);
+            let chord = norm([pa[0] - pb[0], pa[1] - pb[1], pa[2] - pb[2]]);
+            let expected =
+                2.0 * (a - b).norm() / ((1.0 + a.norm_sqr()) * (1.0 + b.norm_sqr())).sqrt();
+            assert!((chord - expected).abs() < 1e-12, "{chord} {expected}");
+            // 1/r: the half-turn (x, y, z) -> (x, -y, -z).
+            let inv = spherical(1.0 / a);
+            assert!((inv[0] - pa[0]).abs() < 1e-12);
+            assert!((inv[1] + pa[1]).abs() < 1e-12);
+            assert!((inv[2] + pa[2]).abs() < 1e-12);
+        }
+        assert_eq!(spherical(c(0.0, 0.0)), [0.0, 0.0, -1.0]);
+        assert_eq!(spherical(c(f64::INFINITY, 1.0)), [0.0, 0.0, 1.0]);
+        assert!(spherical(c(f64::NAN, 0.0))[0].is_nan());
+    }
+
+    #[test]
+    fn ratio_of_two_gaussian_coefficients_is_uniform_on_the_sphere() {
+        // Archimedes' hat-box theorem: a point is uniform on the sphere exactly when its
+        // height is uniform on [-1, 1] (and its azimuth uniform): mean 0, variance 1/3, and
+        // each tenth of the height range holds a tenth of the points.
+        use rand_distr::{Distribution, StandardNormal};
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(8);
+        let mut g = || -> f64 { StandardNormal.sample(&mut rng) };
+        let n = 40_000;
+        let mut bins = [0usize; 10];
+        let (mut sum, mut sum2) = (0.0, 0.0);
+        for _ in 0..n {
+            let r = c(g(), g()) / c(g(), g());
+            let h = spherical(r)[2];
+            sum += h;
+            sum2 += h * h;
+            bins[(((h + 1.0) * 5.0) as usize).min(9)] += 1;
+        }
+        let (mean, var) = (sum / n as f64, sum2 / n as f64);
+        assert!(mean.abs() < 0.02, "{mean}");
+        assert!((var - 1.0 / 3.0).abs() < 0.01, "{var}");
+        // 4 000 expected per bin, binomial sd about 60.
+        for b in bins {
+            assert!((b as f64 - 4000.0).abs() < 300.0, "{bins:?}");
+        }
     }
 
     #[test]
