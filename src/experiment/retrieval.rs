@@ -21,10 +21,14 @@
 //!      neighbour list is vertices 1..n sorted by distance from vertex 0, ties by index);
 //!    - `permuted`: the sequence is reordered by [`fixed_permutation`]`(10)`, the same for
 //!      indexed and query polygons;
-//!    - signature `ratio-1`: the 2-D key [`bounded`]`(r_1)`; `ratio-1-2`: the 4-D key
-//!      (bounded(r_1), bounded(r_2)); r_j = Z_j / Z_{−j} from [`RatioPlan`] (RustFFT forward
-//!      DFT of the vertices as complex numbers x + iy, taken relative to the first vertex of
-//!      the sequence).
+//!    - signature ([`SIGNATURES`]): the ratios r_j = Z_j / Z_{−j} from [`RatioPlan`] (RustFFT
+//!      forward DFT of the vertices as complex numbers x + iy, taken relative to the first
+//!      vertex of the sequence) for j = 1 (`…-1`), j = 1, 2 (`…-1-2`) or j = 1 … 4 (`…-all`,
+//!      every informative harmonic of ten vertices), each mapped into the unit disc by
+//!      [`bounded`] (`ratio-…`, two coordinates per harmonic; the match pipeline's map) or onto
+//!      the unit sphere by [`spherical`] (`sphere-…`, three coordinates per harmonic), the
+//!      coordinates of all harmonics laid side by side: keys of 2, 3, 4, 6, 8 and 12
+//!      dimensions.
 //! 3. **Index.** Per class and variant, the keys of all polygons go into one kiddo
 //!    `ImmutableKdTree` (squared Euclidean distance in the key space).
 //! 4. **Queries.** The first [`FULL_QUERIES`] polygons of each class (quick: [`QUICK_QUERIES`];
@@ -45,27 +49,50 @@
 //! recall@1 stays at or above [`RECALL_TARGET`] at every level (a later rebound above the
 //! target does not count).
 //!
-//! What was expected (common practice, no published source): ratios of smooth convex outlines
-//! are dominated by one tiny coefficient (Z_{−1} for a counter-clockwise outline), so their
-//! keys should tolerate the least noise, irregular outlines more, self-intersecting ones the
-//! most, and the fixed permutation should make every outline irregular. `retrieval.md` also
-//! reports, per class and variant, the median gap between indexed keys and the median key
-//! shift at 1 px, which separate crowding of the keys from sensitivity to noise.
+//! What was expected (common practice, no published source): with nearest-neighbour
+//! retrieval of such keys, convex polygons are retrieved reliably only up to about 2-3 px of
+//! noise, star-shaped ones up to about 7 px, simple ones up to about 12 px and general ones up
+//! to 20-25 px (still about 90 % at 25 px); one fixed permutation of every polygon's vertex
+//! order brings convex polygons up to the general class. The reason offered: the ratios of a
+//! regular outline are dominated by one small coefficient (Z_{−1} for a counter-clockwise
+//! outline), so its keys crowd and move much under noise; the permutation makes every outline
+//! irregular.
 //!
-//! What the runs show instead, and the unit tests pin (quick sizes, seed 1; the margins held
-//! for seeds 1 to 8): in the given order star-shaped polygons tolerate the least noise (at
-//! about the same key spacing as convex ones, their keys move the most per pixel), convex ones
-//! next, simple and general ones the most. The permutation raises convex polygons' recall with
-//! the 4-D key but lowers it with the 2-D key: one fixed permutation sends all convex outlines
-//! to similar keys (their median key spacing halves). With uniform random angles the convex
-//! outlines are far from regular, so Z_{−1} is not tiny; near-circles (axis ratio ≥ 0.95) did
-//! not change the ordering either. With 10 000 keys in the 2-D disc the typical gap between
-//! keys is about 0.006, a few pixels' worth of key shift, so no class keeps recall@1 ≥ 0.9
-//! beyond 1 px there.
+//! What the full run shows (seed 1; `retrieval.md` has every number, and the unit tests pin the
+//! findings on the full and the quick sizes):
+//! - **One harmonic cannot hold 10 000 polygons apart.** With a 2-D (or 3-D) key the typical
+//!   gap between keys is about 0.006 while 1 px of noise moves a key by 0.0013-0.0032, so no
+//!   class keeps recall@1 ≥ 0.9 beyond 1 px, permuted or not. The keys crowd because the plane
+//!   (or sphere) is small, not because one class is special.
+//! - **Every harmonic, on the sphere, meets every target by a wide margin**: `sphere-all` in
+//!   the given order is reliable up to 12 px for convex, 15 px for star-shaped, 25 px for
+//!   simple and 40 px for general polygons (recall@1 at 25 px: 0.58, 0.63, 0.94, 1.00); with
+//!   the permutation 25, 25, 40 and 40 px. `ratio-all` (the same ratios in the disc) reaches
+//!   10, 10, 15, 25 px (permuted 15, 12, 25, 25). The sphere helps because the ratio of two
+//!   coefficients of similar spread is uniform on it ([`spherical`]), whereas the disc map
+//!   crowds large ratios against its rim.
+//! - **The ordering is the expected one with `sphere-all`**: convex least tolerant, then
+//!   star-shaped, simple, general, over seeds 1 to 4; convex and star-shaped are close (their
+//!   mean recall@1 over the noise levels differs by 0.007-0.036), the others are far apart.
+//!   With fewer harmonics star-shaped polygons are the least tolerant (their keys move the
+//!   most per pixel at the same spacing).
+//! - **The permutation helps the regular outlines**: with every harmonic it doubles the convex
+//!   tolerance (12 → 25 px on the sphere, 10 → 15 px in the disc) and raises the star-shaped
+//!   one; it brings convex polygons past unpermuted simple ones but not up to general ones
+//!   (25 against 40 px). With one harmonic it does not help (one fixed permutation sends all
+//!   convex outlines to similar keys: their key spacing halves).
+//! - **The walk order is limited by the walk**: re-walking a noisy polygon changes its order at
+//!   a few pixels (tolerance 2-10 px with two or more harmonics), which is why the landmark signatures
+//!   add subset and ambiguity-aware variants ([`super::landmarks`]).
+//!
+//! Where the numbers differ from the expected ones, the generators are why: the convex
+//! outlines are ellipse points at uniform random angles, far from regular, so Z_{−1} is not
+//! tiny; on a canvas of 1000 px the polygons span about 1000 px; other samplers or polygon
+//! sizes move every figure.
 
 use super::polygons::{self, PolygonClass};
 use super::ExperimentError;
-use crate::signatures::fourier::{bounded, RatioPlan};
+use crate::signatures::fourier::{bounded, spherical, RatioPlan};
 use crate::signatures::neighbourhood::order_polygon;
 use crate::signatures::permutation::{apply, fixed_permutation};
 use crate::signatures::VertexOrder;
@@ -91,15 +118,89 @@ pub const FULL_QUERIES: usize = 250;
 /// Queries per class and noise level, quick run.
 pub const QUICK_QUERIES: usize = 100;
 /// Noise levels σ (px per coordinate), full run.
-pub const FULL_NOISE_LEVELS_PX: [f64; 12] = [
-    0.0, 1.0, 2.0, 3.0, 5.0, 7.0, 10.0, 12.0, 15.0, 20.0, 25.0, 30.0,
+pub const FULL_NOISE_LEVELS_PX: [f64; 14] = [
+    0.0, 1.0, 2.0, 3.0, 5.0, 7.0, 10.0, 12.0, 15.0, 20.0, 25.0, 30.0, 40.0, 50.0,
 ];
 /// Noise levels σ (px per coordinate), quick run.
-pub const QUICK_NOISE_LEVELS_PX: [f64; 9] = [0.0, 1.0, 2.0, 3.0, 5.0, 7.0, 12.0, 20.0, 25.0];
+pub const QUICK_NOISE_LEVELS_PX: [f64; 10] = [0.0, 1.0, 2.0, 3.0, 5.0, 7.0, 12.0, 20.0, 25.0, 40.0];
 /// Vertex orders compared, as named in the outputs.
 pub const ORDERS: [&str; 2] = ["given", "walk"];
-/// Signature variants compared (name, harmonics).
-pub const SIGNATURES: [(&str, &[usize]); 2] = [("ratio-1", &[1]), ("ratio-1-2", &[1, 2])];
+/// How a ratio r_j becomes key coordinates.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum KeyMap {
+    /// The unit disc, [`bounded`]`(r)` = r / (1 + |r|): two coordinates per harmonic (the
+    /// match pipeline's key).
+    Disc,
+    /// The unit sphere, [`spherical`]`(r)` (inverse stereographic projection): three
+    /// coordinates per harmonic, Euclidean distance = chordal distance.
+    Sphere,
+}
+
+impl KeyMap {
+    /// Key coordinates per harmonic.
+    pub fn dims(self) -> usize {
+        match self {
+            KeyMap::Disc => 2,
+            KeyMap::Sphere => 3,
+        }
+    }
+}
+
+/// One signature variant of the experiment: which ratios go into the key, and how.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct SignatureKind {
+    /// Name in the outputs.
+    pub name: &'static str,
+    /// Harmonics j of the ratios r_j = Z_j / Z_{−j}, each 1 ≤ j < [`VERTICES`] / 2.
+    pub harmonics: &'static [usize],
+    /// How each ratio becomes coordinates.
+    pub map: KeyMap,
+}
+
+impl SignatureKind {
+    /// Key dimension: harmonics × coordinates per harmonic.
+    pub fn dims(&self) -> usize {
+        self.harmonics.len() * self.map.dims()
+    }
+}
+
+/// Signature variants compared: one, two or every informative harmonic (j = 1 … 4 for ten
+/// vertices; j = 5 = n/2 gives Z_5 / Z_{−5} = 1), each on the disc and on the sphere.
+pub const SIGNATURES: [SignatureKind; 6] = [
+    SignatureKind {
+        name: "ratio-1",
+        harmonics: &[1],
+        map: KeyMap::Disc,
+    },
+    SignatureKind {
+        name: "sphere-1",
+        harmonics: &[1],
+        map: KeyMap::Sphere,
+    },
+    SignatureKind {
+        name: "ratio-1-2",
+        harmonics: &[1, 2],
+        map: KeyMap::Disc,
+    },
+    SignatureKind {
+        name: "sphere-1-2",
+        harmonics: &[1, 2],
+        map: KeyMap::Sphere,
+    },
+    SignatureKind {
+        name: "ratio-all",
+        harmonics: &[1, 2, 3, 4],
+        map: KeyMap::Disc,
+    },
+    SignatureKind {
+        name: "sphere-all",
+        harmonics: &[1, 2, 3, 4],
+        map: KeyMap::Sphere,
+    },
+];
+
+/// Largest key dimension among [`SIGNATURES`].
+pub const MAX_KEY_DIMS: usize = 12;
 /// recall@1 that counts as "reliable" for the tolerance in `retrieval.md`.
 pub const RECALL_TARGET: f64 = 0.9;
 /// Noise level whose recall@1 `retrieval.md` reports beside the tolerance, px.
@@ -153,7 +254,7 @@ pub struct RetrievalRow {
     pub order: &'static str,
     /// Whether the fixed permutation was applied (to indexed and query polygons alike).
     pub permuted: bool,
-    /// Signature variant: `ratio-1` (2-D key) or `ratio-1-2` (4-D key) ([`SIGNATURES`]).
+    /// Signature variant, by name ([`SIGNATURES`]).
     pub signature: &'static str,
     /// Noise σ, px per coordinate.
     pub noise_px: f64,
@@ -175,7 +276,7 @@ struct Variant {
 
 impl Variant {
     fn all() -> Vec<Variant> {
-        let mut v = Vec::with_capacity(8);
+        let mut v = Vec::with_capacity(4 * SIGNATURES.len());
         for walk in [false, true] {
             for permuted in [false, true] {
                 for signature in 0..SIGNATURES.len() {
@@ -194,13 +295,18 @@ impl Variant {
         ORDERS[usize::from(self.walk)]
     }
 
+    fn kind(self) -> &'static SignatureKind {
+        &SIGNATURES[self.signature]
+    }
+
     fn dims(self) -> usize {
-        2 * SIGNATURES[self.signature].1.len()
+        self.kind().dims()
     }
 }
 
-/// A signature key, padded to the largest variant (4-D); a 2-D key uses the first two.
-type Key = [f64; 4];
+/// A signature key, padded with zeros to the largest variant ([`MAX_KEY_DIMS`]); a variant
+/// of dimension d uses the first d coordinates.
+type Key = [f64; MAX_KEY_DIMS];
 
 /// Turns polygons into keys, reusing plans and buffers.
 struct Keyer {
@@ -219,7 +325,7 @@ impl Keyer {
         Keyer {
             plans: SIGNATURES
                 .iter()
-                .map(|(_, js)| RatioPlan::new(n, js))
+                .map(|sig| RatioPlan::new(n, sig.harmonics))
                 .collect(),
             perm: fixed_permutation(n),
             nbrs: Vec::with_capacity(n),
@@ -227,7 +333,7 @@ impl Keyer {
             verts: Vec::with_capacity(n),
             scratch: Vec::with_capacity(n),
             buf: Vec::with_capacity(n),
-            ratios: Vec::with_capacity(2),
+            ratios: Vec::with_capacity(4),
         }
     }
 
@@ -263,20 +369,52 @@ impl Keyer {
         );
         self.ratios.clear();
         self.plans[v.signature].ratios(&mut self.buf, &mut self.ratios);
-        let mut key = [0.0; 4];
-        for (k, r) in self.ratios.iter().enumerate() {
-            let [a, b] = bounded(*r);
-            key[2 * k] = a;
-            key[2 * k + 1] = b;
+        let mut key = [0.0; MAX_KEY_DIMS];
+        let map = v.kind().map;
+        for (k, &r) in self.ratios.iter().enumerate() {
+            match map {
+                KeyMap::Disc => key[2 * k..2 * k + 2].copy_from_slice(&bounded(r)),
+                KeyMap::Sphere => key[3 * k..3 * k + 3].copy_from_slice(&spherical(r)),
+            }
         }
         key
     }
 }
 
-/// A k-d tree over the keys of one variant.
+/// A k-d tree over the keys of one variant, of the variant's dimension.
 enum KeyTree {
-    Two(ImmutableKdTree<f64, 2>),
-    Four(ImmutableKdTree<f64, 4>),
+    D2(ImmutableKdTree<f64, 2>),
+    D3(ImmutableKdTree<f64, 3>),
+    D4(ImmutableKdTree<f64, 4>),
+    D6(ImmutableKdTree<f64, 6>),
+    D8(ImmutableKdTree<f64, 8>),
+    D12(ImmutableKdTree<f64, 12>),
+}
+
+/// The first `K` coordinates of a padded key.
+fn head<const K: usize>(key: &Key) -> [f64; K] {
+    std::array::from_fn(|d| key[d])
+}
+
+fn tree<const K: usize>(keys: &[Key]) -> ImmutableKdTree<f64, K> {
+    let points: Vec<[f64; K]> = keys.iter().map(head::<K>).collect();
+    ImmutableKdTree::new_from_slice(&points)
+        .expect("kiddo refused the generated keys (a bug: they should be distinct)")
+}
+
+fn nearest_in<const K: usize>(
+    t: &ImmutableKdTree<f64, K>,
+    key: &Key,
+    k: NonZero<usize>,
+    out: &mut Vec<(u32, f64)>,
+) {
+    out.extend(
+        t.query(&head::<K>(key))
+            .nearest_n::<SquaredEuclidean<f64>>(k)
+            .execute()
+            .into_iter()
+            .map(|r| (r.item, r.distance)),
+    );
 }
 
 impl KeyTree {
@@ -285,12 +423,14 @@ impl KeyTree {
             keys.iter().all(|k| k.iter().all(|v| v.is_finite())),
             "a generated polygon has a non-finite key (a bug in the generators)"
         );
-        let refused = "kiddo refused the generated keys (a bug: they should be distinct)";
-        if dims == 2 {
-            let k2: Vec<[f64; 2]> = keys.iter().map(|k| [k[0], k[1]]).collect();
-            KeyTree::Two(ImmutableKdTree::new_from_slice(&k2).expect(refused))
-        } else {
-            KeyTree::Four(ImmutableKdTree::new_from_slice(keys).expect(refused))
+        match dims {
+            2 => KeyTree::D2(tree(keys)),
+            3 => KeyTree::D3(tree(keys)),
+            4 => KeyTree::D4(tree(keys)),
+            6 => KeyTree::D6(tree(keys)),
+            8 => KeyTree::D8(tree(keys)),
+            12 => KeyTree::D12(tree(keys)),
+            d => unreachable!("no signature variant has {d} key dimensions"),
         }
     }
 
@@ -301,20 +441,12 @@ impl KeyTree {
             return;
         };
         match self {
-            KeyTree::Two(t) => out.extend(
-                t.query(&[key[0], key[1]])
-                    .nearest_n::<SquaredEuclidean<f64>>(k)
-                    .execute()
-                    .into_iter()
-                    .map(|r| (r.item, r.distance)),
-            ),
-            KeyTree::Four(t) => out.extend(
-                t.query(key)
-                    .nearest_n::<SquaredEuclidean<f64>>(k)
-                    .execute()
-                    .into_iter()
-                    .map(|r| (r.item, r.distance)),
-            ),
+            KeyTree::D2(t) => nearest_in(t, key, k, out),
+            KeyTree::D3(t) => nearest_in(t, key, k, out),
+            KeyTree::D4(t) => nearest_in(t, key, k, out),
+            KeyTree::D6(t) => nearest_in(t, key, k, out),
+            KeyTree::D8(t) => nearest_in(t, key, k, out),
+            KeyTree::D12(t) => nearest_in(t, key, k, out),
         }
     }
 }
@@ -436,7 +568,17 @@ fn run_sized(
     levels: &[f64],
     progress: &mut dyn FnMut(&str),
 ) -> Vec<RetrievalRow> {
-    let variants = Variant::all();
+    run_variants(seed, polygons, queries, levels, &Variant::all(), progress)
+}
+
+fn run_variants(
+    seed: u64,
+    polygons: usize,
+    queries: usize,
+    levels: &[f64],
+    variants: &[Variant],
+    progress: &mut dyn FnMut(&str),
+) -> Vec<RetrievalRow> {
     let mut keyer = Keyer::new(VERTICES);
     let mut rows = Vec::with_capacity(PolygonClass::ALL.len() * variants.len() * levels.len());
     let mut noisy = Vec::with_capacity(VERTICES);
@@ -446,7 +588,7 @@ fn run_sized(
             "retrieval: {class}: indexing {polygons} polygons in {} variants",
             variants.len()
         ));
-        let index = ClassIndex::new(class, seed, polygons, queries, &variants, &mut keyer);
+        let index = ClassIndex::new(class, seed, polygons, queries, variants, &mut keyer);
         // hits[variant][level] = (recall@1 hits, recall@5 hits)
         let mut hits = vec![vec![(0usize, 0usize); levels.len()]; variants.len()];
         for (l, &sigma) in levels.iter().enumerate() {
@@ -478,7 +620,7 @@ fn run_sized(
                     class,
                     order: v.order(),
                     permuted: v.permuted,
-                    signature: SIGNATURES[v.signature].0,
+                    signature: v.kind().name,
                     noise_px: sigma,
                     queries,
                     recall_at_1: h1 as f64 / queries.max(1) as f64,
@@ -562,7 +704,7 @@ pub fn key_diagnostics(options: &RetrievalOptions) -> Vec<KeyDiagnostic> {
                 class,
                 order: v.order(),
                 permuted: v.permuted,
-                signature: SIGNATURES[v.signature].0,
+                signature: v.kind().name,
                 median_spacing: median(spacing),
                 median_shift_1px: median(shift),
             });
@@ -699,7 +841,7 @@ fn markdown_text(rows: &[RetrievalRow], options: &RetrievalOptions) -> String {
         px(REPORT_NOISE_PX)
     );
     s.push_str("|---|---|---|---|---:|---:|\n");
-    for (signature, _) in SIGNATURES {
+    for signature in SIGNATURES.map(|k| k.name) {
         for order in ORDERS {
             for permuted in [false, true] {
                 for class in PolygonClass::ALL {
@@ -729,7 +871,8 @@ fn markdown_text(rows: &[RetrievalRow], options: &RetrievalOptions) -> String {
     }
     s.push_str(
         "\nKey crowding and noise sensitivity (medians, same polygons and noise draws; \
-         distances in the key space, whose coordinates lie in the unit disc per harmonic). \
+         distances in the key space, whose coordinates lie in the unit disc or on the unit sphere \
+         per harmonic). \
          spacing ÷ shift is roughly the noise at which a typical key has moved as far as the \
          typical gap to its nearest neighbour, where recall@1 has fallen well below 1 (the \
          shift grows about linearly with the noise while no vertex order changes):\n\n",
@@ -739,7 +882,7 @@ fn markdown_text(rows: &[RetrievalRow], options: &RetrievalOptions) -> String {
          |---|---|---|---|---:|---:|---:|\n",
     );
     let diagnostics = key_diagnostics(options);
-    for (signature, _) in SIGNATURES {
+    for signature in SIGNATURES.map(|k| k.name) {
         for order in ORDERS {
             for permuted in [false, true] {
                 for d in diagnostics.iter().filter(|d| {
@@ -800,9 +943,16 @@ fn draw_plot(
 ) -> Result<(), Box<dyn std::error::Error>> {
     use plotters::element::DashedPathElement;
     use plotters::prelude::*;
-    const W: u32 = 1600;
-    const H: u32 = 1200;
+    const W: u32 = 2000;
+    const H: u32 = 1800;
     const FONT: &str = "sans-serif";
+    // One row of panels per set of harmonics; within a panel the disc key is solid and the
+    // sphere key dashed.
+    const GROUPS: [(&str, &[usize]); 3] = [
+        ("j = 1", &[1]),
+        ("j = 1, 2", &[1, 2]),
+        ("j = 1 to 4", &[1, 2, 3, 4]),
+    ];
     let root = SVGBackend::with_string(svg, (W, H)).into_drawing_area();
     root.fill(&WHITE)?;
     let (title, rest) = root.split_vertically(70);
@@ -810,9 +960,10 @@ fn draw_plot(
     title.draw_text(
         &format!(
             "Polygon retrieval: recall@1 against vertex noise ({} polygons of {} vertices per \
-             class, {} queries, seed {})",
+             class on a {} px canvas, {} queries, seed {})",
             options.polygons_per_class(),
             VERTICES,
+            polygons::CANVAS_PX,
             options.queries_per_class(),
             options.seed
         ),
@@ -825,60 +976,61 @@ fn draw_plot(
         .copied()
         .unwrap_or(1.0)
         .max(1.0);
-    let panels = body.split_evenly((2, 2));
+    let panels = body.split_evenly((GROUPS.len(), 2 * ORDERS.len()));
     let mut p = 0;
-    for order in ORDERS {
-        for permuted in [false, true] {
-            let caption = format!(
-                "order: {order}, {}",
-                if permuted {
-                    "fixed permutation"
-                } else {
-                    "not permuted"
-                }
-            );
-            let mut chart = ChartBuilder::on(&panels[p])
-                .caption(caption, (FONT, 24))
-                .margin(18)
-                .x_label_area_size(60)
-                .y_label_area_size(75)
-                .build_cartesian_2d(0.0..top, 0.0..1.02)?;
-            chart
-                .configure_mesh()
-                .x_desc("vertex noise σ (px per coordinate)")
-                .y_desc("recall@1")
-                .label_style((FONT, 18))
-                .axis_desc_style((FONT, 20))
-                .x_label_formatter(&|v| format!("{v:.0}"))
-                .y_label_formatter(&|v| format!("{v:.1}"))
-                .light_line_style(RGBColor(240, 240, 240))
-                .draw()?;
-            chart.draw_series(DashedLineSeries::new(
-                [(0.0, RECALL_TARGET), (top, RECALL_TARGET)],
-                6,
-                6,
-                RGBColor(130, 130, 130).stroke_width(2),
-            ))?;
-            for class in PolygonClass::ALL {
-                let colour = class_colour(class);
-                for (si, (signature, _)) in SIGNATURES.iter().enumerate() {
-                    let pts: Vec<(f64, f64)> = series(rows, class, order, permuted, signature)
-                        .iter()
-                        .map(|r| (r.noise_px, r.recall_at_1))
-                        .collect();
-                    if si == 0 {
-                        chart.draw_series(LineSeries::new(pts, colour.stroke_width(4)))?;
-                    } else {
-                        chart.draw_series(DashedLineSeries::new(
-                            pts,
-                            14,
-                            8,
-                            colour.stroke_width(3),
-                        ))?;
+    for (group, harmonics) in GROUPS {
+        for order in ORDERS {
+            for permuted in [false, true] {
+                let caption = format!(
+                    "{group}; order {order}; {}",
+                    if permuted { "permuted" } else { "not permuted" }
+                );
+                let mut chart = ChartBuilder::on(&panels[p])
+                    .caption(caption, (FONT, 22))
+                    .margin(14)
+                    .x_label_area_size(50)
+                    .y_label_area_size(60)
+                    .build_cartesian_2d(0.0..top, 0.0..1.02)?;
+                chart
+                    .configure_mesh()
+                    .x_desc("vertex noise σ (px per coordinate)")
+                    .y_desc("recall@1")
+                    .label_style((FONT, 16))
+                    .axis_desc_style((FONT, 17))
+                    .x_label_formatter(&|v| format!("{v:.0}"))
+                    .y_label_formatter(&|v| format!("{v:.1}"))
+                    .light_line_style(RGBColor(240, 240, 240))
+                    .draw()?;
+                chart.draw_series(DashedLineSeries::new(
+                    [(0.0, RECALL_TARGET), (top, RECALL_TARGET)],
+                    6,
+                    6,
+                    RGBColor(130, 130, 130).stroke_width(2),
+                ))?;
+                for class in PolygonClass::ALL {
+                    let colour = class_colour(class);
+                    for kind in SIGNATURES.iter().filter(|k| k.harmonics == harmonics) {
+                        let pts: Vec<(f64, f64)> = series(rows, class, order, permuted, kind.name)
+                            .iter()
+                            .map(|r| (r.noise_px, r.recall_at_1))
+                            .collect();
+                        match kind.map {
+                            KeyMap::Disc => {
+                                chart.draw_series(LineSeries::new(pts, colour.stroke_width(3)))?;
+                            }
+                            KeyMap::Sphere => {
+                                chart.draw_series(DashedLineSeries::new(
+                                    pts,
+                                    12,
+                                    7,
+                                    colour.stroke_width(3),
+                                ))?;
+                            }
+                        }
                     }
                 }
+                p += 1;
             }
-            p += 1;
         }
     }
     // The legend, below the panels.
@@ -896,18 +1048,18 @@ fn draw_plot(
     x += 20;
     legend.draw(&PathElement::new(
         [(x, y), (x + 50, y)],
-        BLACK.stroke_width(4),
-    ))?;
-    legend.draw_text("ratio-1 (2-D key)", &text, (x + 60, y - 11))?;
-    x += 270;
-    legend.draw(&DashedPathElement::new(
-        [(x, y), (x + 50, y)],
-        14,
-        8,
         BLACK.stroke_width(3),
     ))?;
-    legend.draw_text("ratio-1-2 (4-D key)", &text, (x + 60, y - 11))?;
+    legend.draw_text("disc key: ratio-…", &text, (x + 60, y - 11))?;
     x += 290;
+    legend.draw(&DashedPathElement::new(
+        [(x, y), (x + 50, y)],
+        12,
+        7,
+        BLACK.stroke_width(3),
+    ))?;
+    legend.draw_text("sphere key: sphere-…", &text, (x + 60, y - 11))?;
+    x += 320;
     legend.draw(&DashedPathElement::new(
         [(x, y), (x + 50, y)],
         6,
@@ -931,8 +1083,9 @@ fn draw_plot(
 /// - `retrieval.md`: the settings, per class × order × permuted × signature the noise
 ///   tolerance (module doc) and recall@1 at [`REPORT_NOISE_PX`], and a census of the
 ///   generated shapes.
-/// - `retrieval.svg`: recall@1 against noise; one panel per order × permutation, one colour
-///   per class, solid for `ratio-1` and dashed for `ratio-1-2`.
+/// - `retrieval.svg`: recall@1 against noise; one panel column per order × permutation, one colour
+///   per class; one row of panels per set of harmonics (j = 1; 1, 2; 1 to 4), solid lines
+///   for the disc keys (`ratio-…`) and dashed for the sphere keys (`sphere-…`).
 ///
 /// Everything is rendered in memory first; each file is then written under a temporary name
 /// and renamed, so a failure leaves no partial result file (temporary files are removed).
@@ -1007,7 +1160,7 @@ mod tests {
         // If the permutation (or the walk) were applied to one side only, the keys would
         // differ and recall would collapse.
         let rows = run_sized(5, 300, 60, &[0.0], &mut quiet());
-        assert_eq!(rows.len(), 4 * 8);
+        assert_eq!(rows.len(), 4 * 4 * SIGNATURES.len());
         for r in &rows {
             assert_eq!(r.recall_at_1, 1.0, "{r:?}");
             assert_eq!(r.recall_at_5, 1.0, "{r:?}");
@@ -1033,7 +1186,7 @@ mod tests {
                     ..base
                 },
             );
-            assert!((0..4).any(|d| (k[d] - kp[d]).abs() > 1e-9));
+            assert!((0..MAX_KEY_DIMS).any(|d| (k[d] - kp[d]).abs() > 1e-9));
             // Similarity invariance survives the permutation: rotate, scale and shift.
             let (s, c) = 0.7f64.sin_cos();
             let moved: Vec<[f64; 2]> = p
@@ -1046,13 +1199,19 @@ mod tests {
                 })
                 .collect();
             for walk in [false, true] {
-                let v = Variant {
-                    walk,
-                    permuted: true,
-                    signature: 1,
-                };
-                let (a, b) = (keyer.key(p, v), keyer.key(&moved, v));
-                assert!((0..4).all(|d| (a[d] - b[d]).abs() < 1e-9), "{a:?} {b:?}");
+                for signature in 0..SIGNATURES.len() {
+                    let v = Variant {
+                        walk,
+                        permuted: true,
+                        signature,
+                    };
+                    let (a, b) = (keyer.key(p, v), keyer.key(&moved, v));
+                    assert!(
+                        (0..MAX_KEY_DIMS).all(|d| (a[d] - b[d]).abs() < 1e-9),
+                        "{a:?} {b:?}"
+                    );
+                    assert!(a[v.dims()..].iter().all(|&x| x == 0.0), "padding");
+                }
             }
         }
     }
@@ -1083,10 +1242,60 @@ mod tests {
         }
     }
 
+    fn signature_index(name: &str) -> usize {
+        SIGNATURES.iter().position(|k| k.name == name).unwrap()
+    }
+
     #[test]
-    fn quick_run_orders_the_classes_and_the_permutation_effect_on_convex() {
-        // The margins hold for seeds 1 to 8 (checked when this test was written); the
-        // assertions pin the findings described in the module doc.
+    fn full_size_run_orders_the_classes_convex_least_general_most() {
+        // The expected ordering (module doc; common practice, no published source), on the
+        // full-size index (10 000 polygons per class) with the sphere-all key in the given
+        // order. The mean recall@1 over the noise levels, per class, for seeds 1 to 4 was:
+        // convex 0.765-0.792, star 0.790-0.801, simple 0.931-0.939, general 0.982-0.993, and
+        // with the permutation convex 0.901-0.908. Convex and star-shaped are close (margin
+        // 0.007-0.036), the others far apart; the assertions use seed 1.
+        let sig = signature_index("sphere-all");
+        let variants = [false, true].map(|permuted| Variant {
+            walk: false,
+            permuted,
+            signature: sig,
+        });
+        let rows = run_variants(
+            1,
+            FULL_POLYGONS,
+            FULL_QUERIES,
+            &FULL_NOISE_LEVELS_PX,
+            &variants,
+            &mut quiet(),
+        );
+        use PolygonClass::*;
+        let [convex, star, simple, general] =
+            [Convex, Star, Simple, General].map(|c| score(&rows, c, false, "sphere-all"));
+        let all = format!("{convex} {star} {simple} {general}");
+        assert!(convex < star, "convex least tolerant: {all}");
+        assert!(star + 0.1 < simple, "{all}");
+        assert!(simple + 0.02 < general, "general most tolerant: {all}");
+        let permuted = score(&rows, Convex, true, "sphere-all");
+        assert!(permuted > convex + 0.08, "{convex} -> {permuted}");
+        // The targets of the experiment, with and without the permutation: reliable
+        // (recall@1 >= 0.9) up to 2 px convex, 7 px star-shaped, 12 px simple, 25 px general.
+        let reliable = |class, permuted, px: f64| {
+            series(&rows, class, "given", permuted, "sphere-all")
+                .iter()
+                .filter(|r| r.noise_px <= px)
+                .all(|r| r.recall_at_1 >= RECALL_TARGET)
+        };
+        for permuted in [false, true] {
+            assert!(reliable(Convex, permuted, 2.0));
+            assert!(reliable(Star, permuted, 7.0));
+            assert!(reliable(Simple, permuted, 12.0));
+            assert!(reliable(General, permuted, 25.0));
+        }
+    }
+
+    #[test]
+    fn quick_run_ranks_keys_and_shows_the_permutation_effect() {
+        // The margins hold for seeds 1 to 8 (checked when this test was written).
         let options = RetrievalOptions {
             quick: true,
             seed: 1,
@@ -1094,28 +1303,46 @@ mod tests {
         let mut lines = 0;
         let rows = run_retrieval(&options, &mut |_| lines += 1);
         assert!(lines > 4);
-        assert_eq!(rows.len(), 4 * 8 * QUICK_NOISE_LEVELS_PX.len());
+        assert_eq!(
+            rows.len(),
+            4 * 4 * SIGNATURES.len() * QUICK_NOISE_LEVELS_PX.len()
+        );
         use PolygonClass::*;
-        for signature in ["ratio-1", "ratio-1-2"] {
-            let [convex, star, simple, general] =
-                [Convex, Star, Simple, General].map(|c| score(&rows, c, false, signature));
-            let all = format!("{signature}: {convex} {star} {simple} {general}");
-            assert!(star + 0.02 < convex, "star least tolerant, {all}");
-            assert!(convex + 0.03 < simple, "{all}");
-            assert!(star + 0.05 < general, "{all}");
+        for class in PolygonClass::ALL {
+            let s = |name| score(&rows, class, false, name);
+            // More harmonics keep more of the shape; the sphere beats the disc.
+            assert!(s("ratio-1") + 0.2 < s("ratio-1-2"), "{class}");
+            assert!(s("ratio-1-2") + 0.05 < s("ratio-all"), "{class}");
+            assert!(s("ratio-all") < s("sphere-all"), "{class}");
+            assert!(s("ratio-1-2") < s("sphere-1-2"), "{class}");
         }
-        let [convex_2d, convex_4d] =
-            ["ratio-1", "ratio-1-2"].map(|s| score(&rows, Convex, false, s));
-        let [permuted_2d, permuted_4d] =
-            ["ratio-1", "ratio-1-2"].map(|s| score(&rows, Convex, true, s));
-        assert!(permuted_4d > convex_4d, "4-D: {convex_4d} -> {permuted_4d}");
-        assert!(permuted_2d < convex_2d, "2-D: {convex_2d} -> {permuted_2d}");
+        // With every harmonic, the permutation helps the regular outlines most.
+        for class in [Convex, Star] {
+            for name in ["ratio-all", "sphere-all"] {
+                let (plain, permuted) = (
+                    score(&rows, class, false, name),
+                    score(&rows, class, true, name),
+                );
+                assert!(
+                    permuted > plain + 0.03,
+                    "{class} {name}: {plain} -> {permuted}"
+                );
+            }
+        }
+        // General and simple polygons stay ahead of convex and star-shaped ones.
+        for name in ["ratio-all", "sphere-all"] {
+            let [convex, star, simple, general] =
+                [Convex, Star, Simple, General].map(|c| score(&rows, c, false, name));
+            assert!(convex.max(star) + 0.03 < simple, "{name}");
+            assert!(simple < general, "{name}");
+        }
         for r in &rows {
             assert!(r.recall_at_5 >= r.recall_at_1);
             if r.noise_px == 0.0 {
                 assert_eq!(r.recall_at_1, 1.0);
             }
-            if r.noise_px >= 20.0 {
+            // The 2-D key cannot keep 2 000 keys apart at 12 px, whatever the class.
+            if r.signature == "ratio-1" && r.noise_px >= 12.0 {
                 assert!(r.recall_at_1 < 0.9, "{r:?}");
             }
         }
@@ -1183,8 +1410,9 @@ mod tests {
         let md = std::fs::read_to_string(&paths[1]).unwrap();
         assert!(md.contains("| class | order | permuted | signature | tolerance (px) |"));
         // 16 rows per signature in the results table and 16 in the key diagnostics.
-        assert_eq!(md.matches("| ratio-1 |").count(), 32);
-        assert_eq!(md.matches("| ratio-1-2 |").count(), 32);
+        for kind in SIGNATURES {
+            assert_eq!(md.matches(&format!("| {} |", kind.name)).count(), 32);
+        }
         assert!(md.contains("independent checkpoints"));
         let svg = std::fs::read_to_string(&paths[2]).unwrap();
         assert!(svg.starts_with("<svg"));
