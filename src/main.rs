@@ -11,7 +11,7 @@ use tiemark::ingest::IngestOptions;
 use tiemark::matching::Rank;
 use tiemark::pipeline::config::{FrameSection, MatchingParams, OutputOptions, SurveyInput};
 use tiemark::pipeline::{self, MatchConfig, MatchOutcome};
-use tiemark::signatures::{SignatureChoice, SignatureParams, VertexOrder};
+use tiemark::signatures::{KeySpace, SignatureChoice, SignatureParams, VertexOrder};
 
 const EXIT_HELP: &str = "Exit codes: 0 control points written; 1 no consistent transform found (nothing written); 2 bad input or error.
 
@@ -97,6 +97,14 @@ enum OrderArg {
 }
 
 #[derive(Clone, Copy, ValueEnum)]
+enum KeySpaceArg {
+    /// Each ratio r as r / (1 + |r|) in the unit disc (two key dimensions per harmonic).
+    Disc,
+    /// Each ratio on the unit sphere by inverse stereographic projection (three per harmonic).
+    Sphere,
+}
+
+#[derive(Clone, Copy, ValueEnum)]
 enum RankArg {
     /// Plain distance between keys.
     Distance,
@@ -146,9 +154,12 @@ struct MatchArgs {
     /// Vertex order of the signature polygon.
     #[arg(long, value_enum, default_value = "walk")]
     order: OrderArg,
-    /// Fourier harmonics of the signature ratios, comma-separated: one gives a 2-D key, two a 4-D key.
+    /// Fourier harmonics of the signature ratios, comma-separated (one or two).
     #[arg(long, value_delimiter = ',', default_value = "1,2")]
     harmonics: Vec<usize>,
+    /// Where the signature ratios live as key coordinates.
+    #[arg(long, value_enum, default_value = "sphere")]
+    key_space: KeySpaceArg,
     /// Apply the fixed pseudo-random permutation to every polygon's vertex order.
     #[arg(long)]
     permuted: bool,
@@ -228,6 +239,10 @@ impl MatchArgs {
                     OrderArg::Angular => VertexOrder::Angular,
                 },
                 harmonics: self.harmonics,
+                key_space: match self.key_space {
+                    KeySpaceArg::Disc => KeySpace::Disc,
+                    KeySpaceArg::Sphere => KeySpace::Sphere,
+                },
                 permuted: self.permuted,
                 leave_out: self.leave_out,
                 ambiguity: self.ambiguity,

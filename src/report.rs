@@ -142,8 +142,8 @@ pub fn summary(r: &MatchResult) -> String {
     let c = &r.counts;
     let _ = writeln!(
         o,
-        "signatures       {} reference, {} target ({} neighbours, {} order, leave-out {}); {} candidates; {} RANSAC rounds",
-        c.reference_signatures, c.target_signatures, c.signatures.neighbours, c.signatures.order, c.signatures.leave_out, c.candidates, s.ransac_rounds
+        "signatures       {} reference, {} target ({} neighbours, {} order, leave-out {}, {} keys); {} candidates; {} RANSAC rounds",
+        c.reference_signatures, c.target_signatures, c.signatures.neighbours, c.signatures.order, c.signatures.leave_out, c.signatures.key_space, c.candidates, s.ransac_rounds
     );
     let _ = writeln!(o);
     let _ = writeln!(o, "CAUTION: {CAUTION}");

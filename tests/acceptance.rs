@@ -9,8 +9,8 @@
 //!
 //! `cargo test --release --test acceptance -- --ignored` runs the long version
 //! (TIEMARK_TRIALS trials, default 500, from seed TIEMARK_FIRST_SEED); TIEMARK_K and
-//! TIEMARK_H (e.g. "1,2") and TIEMARK_LEAVE_OUT change the neighbours, harmonics and subset
-//! depth of the signatures, to compare.
+//! TIEMARK_H (e.g. "1,2"), TIEMARK_LEAVE_OUT and TIEMARK_KEY_SPACE (disc or sphere) change
+//! the neighbours, harmonics, subset depth and key space of the signatures, to compare.
 
 use rand::{Rng, SeedableRng};
 use rand_distr::{Distribution, Normal};
@@ -56,6 +56,10 @@ fn config() -> MatchConfig {
     }
     if let Ok(h) = std::env::var("TIEMARK_H") {
         signatures.harmonics = h.split(',').map(|v| v.parse().unwrap()).collect();
+    }
+    if let Ok(space) = std::env::var("TIEMARK_KEY_SPACE") {
+        signatures.key_space = serde_json::from_value(serde_json::Value::String(space))
+            .expect("TIEMARK_KEY_SPACE must be disc or sphere");
     }
     let mut config = MatchConfig::new("reference".into(), "target".into(), "unused".into());
     config.signatures = signatures;

@@ -77,6 +77,7 @@ pub fn transform_document(result: &MatchResult) -> serde_json::Value {
             "ambiguity": result.counts.signatures.ambiguity,
             "order": result.counts.signatures.order.to_string(),
             "harmonics": result.counts.signatures.harmonics,
+            "key_space": result.counts.signatures.key_space,
             "rank": cfg.matching.rank,
             "candidates": cfg.matching.candidates,
         },

@@ -22,7 +22,7 @@
 use crate::fit::{FitOutcome, FitParams, Similarity};
 use crate::matching::{self, Rank};
 use crate::pipeline::config::MatchingParams;
-use crate::signatures::{self, SignatureParams, VertexOrder};
+use crate::signatures::{self, KeySpace, SignatureParams, VertexOrder};
 use crate::spatial::PointIndex;
 use rand::{Rng, SeedableRng};
 use rand_distr::{Distribution, Normal};
@@ -53,10 +53,13 @@ pub struct Variant {
 }
 
 /// The variants measured: `default` is what the tool chooses for surveys of [`LANDMARKS`]
-/// landmarks; the others start from [`SignatureParams::default`] (k = 5, walk, harmonics 1
-/// and 2, no subsets) and change one thing.
+/// landmarks, `default-disc` the same with keys in the disc; the others start from k = 5,
+/// walk, harmonics 1 and 2, keys in the disc, no subsets, and change one thing.
 pub fn variants() -> Vec<Variant> {
-    let base = SignatureParams::default();
+    let base = SignatureParams {
+        key_space: KeySpace::Disc,
+        ..SignatureParams::default()
+    };
     let v = |name, f: &dyn Fn(&mut SignatureParams), rank| {
         let mut s = base.clone();
         f(&mut s);
@@ -87,7 +90,20 @@ pub fn variants() -> Vec<Variant> {
             },
             Rank::Distance,
         ),
+        Variant {
+            name: "default-disc",
+            signatures: SignatureParams {
+                key_space: KeySpace::Disc,
+                ..crate::signatures::SignatureChoice::default().resolve(LANDMARKS)
+            },
+            rank: MatchingParams::default().rank,
+        },
         v("walk-ratio-1", &|s| s.harmonics = vec![1], Rank::Distance),
+        v(
+            "walk-sphere",
+            &|s| s.key_space = KeySpace::Sphere,
+            Rank::Distance,
+        ),
         v("walk-sensitivity", &|_| {}, Rank::Sensitivity),
         v("walk-ambiguous", &|s| s.ambiguity = 0.05, Rank::Distance),
         v("walk-leave-1", &|s| s.leave_out = 1, Rank::Distance),

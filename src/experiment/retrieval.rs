@@ -92,7 +92,7 @@
 
 use super::polygons::{self, PolygonClass};
 use super::ExperimentError;
-use crate::signatures::fourier::{bounded, spherical, RatioPlan};
+use crate::signatures::fourier::{bounded, spherical, KeySpace, RatioPlan};
 use crate::signatures::neighbourhood::order_polygon;
 use crate::signatures::permutation::{apply, fixed_permutation};
 use crate::signatures::VertexOrder;
@@ -125,27 +125,6 @@ pub const FULL_NOISE_LEVELS_PX: [f64; 14] = [
 pub const QUICK_NOISE_LEVELS_PX: [f64; 10] = [0.0, 1.0, 2.0, 3.0, 5.0, 7.0, 12.0, 20.0, 25.0, 40.0];
 /// Vertex orders compared, as named in the outputs.
 pub const ORDERS: [&str; 2] = ["given", "walk"];
-/// How a ratio r_j becomes key coordinates.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum KeyMap {
-    /// The unit disc, [`bounded`]`(r)` = r / (1 + |r|): two coordinates per harmonic (the
-    /// match pipeline's key).
-    Disc,
-    /// The unit sphere, [`spherical`]`(r)` (inverse stereographic projection): three
-    /// coordinates per harmonic, Euclidean distance = chordal distance.
-    Sphere,
-}
-
-impl KeyMap {
-    /// Key coordinates per harmonic.
-    pub fn dims(self) -> usize {
-        match self {
-            KeyMap::Disc => 2,
-            KeyMap::Sphere => 3,
-        }
-    }
-}
-
 /// One signature variant of the experiment: which ratios go into the key, and how.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub struct SignatureKind {
@@ -154,7 +133,7 @@ pub struct SignatureKind {
     /// Harmonics j of the ratios r_j = Z_j / Z_{−j}, each 1 ≤ j < [`VERTICES`] / 2.
     pub harmonics: &'static [usize],
     /// How each ratio becomes coordinates.
-    pub map: KeyMap,
+    pub map: KeySpace,
 }
 
 impl SignatureKind {
@@ -170,32 +149,32 @@ pub const SIGNATURES: [SignatureKind; 6] = [
     SignatureKind {
         name: "ratio-1",
         harmonics: &[1],
-        map: KeyMap::Disc,
+        map: KeySpace::Disc,
     },
     SignatureKind {
         name: "sphere-1",
         harmonics: &[1],
-        map: KeyMap::Sphere,
+        map: KeySpace::Sphere,
     },
     SignatureKind {
         name: "ratio-1-2",
         harmonics: &[1, 2],
-        map: KeyMap::Disc,
+        map: KeySpace::Disc,
     },
     SignatureKind {
         name: "sphere-1-2",
         harmonics: &[1, 2],
-        map: KeyMap::Sphere,
+        map: KeySpace::Sphere,
     },
     SignatureKind {
         name: "ratio-all",
         harmonics: &[1, 2, 3, 4],
-        map: KeyMap::Disc,
+        map: KeySpace::Disc,
     },
     SignatureKind {
         name: "sphere-all",
         harmonics: &[1, 2, 3, 4],
-        map: KeyMap::Sphere,
+        map: KeySpace::Sphere,
     },
 ];
 
@@ -372,9 +351,10 @@ impl Keyer {
         let mut key = [0.0; MAX_KEY_DIMS];
         let map = v.kind().map;
         for (k, &r) in self.ratios.iter().enumerate() {
+            let d = map.dims();
             match map {
-                KeyMap::Disc => key[2 * k..2 * k + 2].copy_from_slice(&bounded(r)),
-                KeyMap::Sphere => key[3 * k..3 * k + 3].copy_from_slice(&spherical(r)),
+                KeySpace::Disc => key[d * k..d * k + d].copy_from_slice(&bounded(r)),
+                KeySpace::Sphere => key[d * k..d * k + d].copy_from_slice(&spherical(r)),
             }
         }
         key
@@ -1015,10 +995,10 @@ fn draw_plot(
                             .map(|r| (r.noise_px, r.recall_at_1))
                             .collect();
                         match kind.map {
-                            KeyMap::Disc => {
+                            KeySpace::Disc => {
                                 chart.draw_series(LineSeries::new(pts, colour.stroke_width(3)))?;
                             }
-                            KeyMap::Sphere => {
+                            KeySpace::Sphere => {
                                 chart.draw_series(DashedLineSeries::new(
                                     pts,
                                     12,

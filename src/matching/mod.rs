@@ -41,8 +41,8 @@ pub struct Candidate {
 /// The result is sorted by key distance, best first.
 ///
 /// # Panics
-/// When the two signature sets have different key dimensions, or a dimension other than 2 or
-/// 4 (programmer error: both come from one validated [`crate::signatures::SignatureParams`]).
+/// When the two signature sets have different key dimensions, or a dimension other than 2, 3,
+/// 4 or 6 (programmer error: both come from one validated [`crate::signatures::SignatureParams`]).
 pub fn candidates(
     reference: &Signatures,
     target: &Signatures,
@@ -53,7 +53,9 @@ pub fn candidates(
     assert_eq!(reference.key_dims, target.key_dims, "key dimensions differ");
     let mut out = match reference.key_dims {
         2 => candidates_k::<2>(reference, target, per_query, rank, progress),
+        3 => candidates_k::<3>(reference, target, per_query, rank, progress),
         4 => candidates_k::<4>(reference, target, per_query, rank, progress),
+        6 => candidates_k::<6>(reference, target, per_query, rank, progress),
         d => panic!("unsupported key dimension {d}"),
     };
     out.sort_by(|a, b| a.distance.total_cmp(&b.distance));

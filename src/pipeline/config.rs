@@ -25,7 +25,8 @@
 //! [signatures]
 //! neighbours = 4            # optional: default by size (4 up to 50 000 landmarks, else 5)
 //! order = "walk"             # or "angular"
-//! harmonics = [1, 2]       # one harmonic: 2-D keys; two: 4-D keys
+//! harmonics = [1, 2]       # one or two harmonics
+//! key_space = "sphere"     # or "disc"
 //! permuted = false         # fixed pseudo-random permutation of the vertex order
 //! leave_out = 1            # optional: subset signatures, leave out 0, 1 or 2 neighbours
 //!                          # (default by size: 2 up to 20 000 landmarks, 1 up to 50 000, else 0)

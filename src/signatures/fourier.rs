@@ -68,10 +68,11 @@ impl RatioPlan {
     }
 
     /// As [`RatioPlan::ratios`], and appends per polygon the first-order noise sensitivity of
-    /// its key to `sensitivity` (see [`key_sensitivity`]).
+    /// its key in `space` to `sensitivity` (see [`key_sensitivity`]).
     pub fn ratios_and_sensitivity(
         &mut self,
         polygons: &mut [Complex64],
+        space: KeySpace,
         out: &mut Vec<Complex64>,
         sensitivity: &mut Vec<f32>,
     ) {
@@ -80,7 +81,7 @@ impl RatioPlan {
             for &j in &self.js {
                 out.push(z[j] / z[self.n - j]);
             }
-            sensitivity.push(key_sensitivity(z, &self.js) as f32);
+            sensitivity.push(key_sensitivity(z, &self.js, space) as f32);
         }
     }
 
@@ -96,22 +97,76 @@ impl RatioPlan {
 ///
 /// With independent vertex noise σ per coordinate, δZ_k has variance 2nσ², so
 /// Var(δr_j) ≈ 2nσ²(1 + |r_j|²)/|Z_{−j}|² (first order; derived here, see
-/// ../shared/REFERENCES.md — not a published formula). The bounded map r ↦ r/(1 + |r|) shrinks
-/// a displacement by at most 1/(1 + |r|). σ is taken relative to the polygon's size: the RMS
-/// distance ρ of the vertices from their centroid, which by Parseval is
+/// ../shared/REFERENCES.md — not a published formula). The disc map r ↦ r/(1 + |r|)
+/// ([`KeySpace::Disc`]) shrinks a displacement by at most 1/(1 + |r|); the sphere map
+/// ([`KeySpace::Sphere`], conformal) by exactly 2/(1 + |r|²), which leaves
+/// 8nσ²/(|Z_j|² + |Z_{−j}|²), the same for r and 1/r. σ is taken relative to the polygon's
+/// size: the RMS distance ρ of the vertices from their centroid, which by Parseval is
 /// ρ² = Σ_{k≠0} |Z_k|² / n². The result is the predicted standard deviation of the key per
 /// unit of relative vertex noise σ/ρ, summed over the harmonics in quadrature.
-pub fn key_sensitivity(z: &[Complex64], js: &[usize]) -> f64 {
+pub fn key_sensitivity(z: &[Complex64], js: &[usize], space: KeySpace) -> f64 {
     let n = z.len();
     let rho2: f64 = z[1..].iter().map(|c| c.norm_sqr()).sum::<f64>() / (n * n) as f64;
     js.iter()
         .map(|&j| {
-            let zm = z[n - j].norm_sqr();
-            let r = (z[j].norm_sqr() / zm).sqrt();
-            2.0 * n as f64 * (1.0 + r * r) * rho2 / (zm * (1.0 + r).powi(2))
+            let (zp, zm) = (z[j].norm_sqr(), z[n - j].norm_sqr());
+            match space {
+                KeySpace::Disc => {
+                    let r = (zp / zm).sqrt();
+                    2.0 * n as f64 * (1.0 + r * r) * rho2 / (zm * (1.0 + r).powi(2))
+                }
+                KeySpace::Sphere => 8.0 * n as f64 * rho2 / (zp + zm),
+            }
         })
         .sum::<f64>()
         .sqrt()
+}
+
+/// Where a signature's ratios live as key coordinates.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum KeySpace {
+    /// The open unit disc, [`bounded`]: two coordinates per harmonic.
+    Disc,
+    /// The unit sphere, [`spherical`]: three coordinates per harmonic; Euclidean distance is
+    /// the chordal distance between ratios. The default: it kept more polygons apart under
+    /// noise in the retrieval experiment and more landmarks right in the landmark experiment
+    /// (README, "Signature experiments").
+    #[default]
+    Sphere,
+}
+
+impl KeySpace {
+    /// Key coordinates per harmonic.
+    pub fn dims(self) -> usize {
+        match self {
+            KeySpace::Disc => 2,
+            KeySpace::Sphere => 3,
+        }
+    }
+
+    /// Appends the coordinates of ratio `r` to `key`.
+    #[inline]
+    pub fn push(self, r: Complex64, key: &mut Vec<f64>) {
+        match self {
+            KeySpace::Disc => key.extend_from_slice(&bounded(r)),
+            KeySpace::Sphere => key.extend_from_slice(&spherical(r)),
+        }
+    }
+
+    /// Name in files and reports: `disc` or `sphere`.
+    pub fn name(self) -> &'static str {
+        match self {
+            KeySpace::Disc => "disc",
+            KeySpace::Sphere => "sphere",
+        }
+    }
+}
+
+impl std::fmt::Display for KeySpace {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(self.name())
+    }
 }
 
 /// Maps a ratio r from the whole complex plane into the open unit disc, r / (1 + |r|), so that

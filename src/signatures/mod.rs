@@ -2,12 +2,14 @@
 //!
 //! **In:** landmark positions in the working frame (`&[[f64; 2]]`) and [`SignatureParams`].
 //! **Out:** [`Signatures`]: for each usable landmark, the polygon it was built from (vertex
-//! indices, landmark first) and its key, a point of the unit disc.
+//! indices, landmark first) and its key: per harmonic, a point of the unit disc or of the
+//! unit sphere ([`KeySpace`]).
 //!
 //! For each landmark the k nearest neighbours (kiddo k-d tree) are put in a canonical order
 //! ([`neighbourhood`]), giving a polygon of k + 1 complex vertices. Its discrete Fourier
 //! transform (RustFFT, planned once) yields the ratio r_j = Z_j / Z_{−j}, unchanged by
-//! rotation, scale and translation ([`fourier`]); the key is r_j mapped into the unit disc.
+//! rotation, scale and translation ([`fourier`]); the key is r_j mapped into the unit disc or
+//! onto the unit sphere.
 //! Because each key keeps its polygon, one key match proposes a full similarity (k + 1 point
 //! pairs).
 
@@ -15,6 +17,7 @@ pub mod fourier;
 pub mod neighbourhood;
 pub mod permutation;
 
+pub use fourier::KeySpace;
 pub use neighbourhood::VertexOrder;
 
 use crate::spatial::{morton_order, PointIndex};
@@ -29,9 +32,11 @@ pub struct SignatureParams {
     pub neighbours: usize,
     /// Vertex order of the polygon.
     pub order: VertexOrder,
-    /// Fourier harmonics j of the ratios Z_j / Z_{−j}; each gives two key dimensions (one
-    /// harmonic: a 2-D key; two: a 4-D key).
+    /// Fourier harmonics j of the ratios Z_j / Z_{−j}; each gives two key dimensions in the
+    /// disc, three on the sphere.
     pub harmonics: Vec<usize>,
+    /// Where the ratios live as key coordinates.
+    pub key_space: KeySpace,
     /// Reorder every polygon by the fixed pseudo-random permutation before the transform.
     pub permuted: bool,
     /// Subset signatures: from the k + `leave_out` nearest neighbours, one signature for every
@@ -56,6 +61,8 @@ pub struct SignatureChoice {
     pub order: VertexOrder,
     /// Fourier harmonics.
     pub harmonics: Vec<usize>,
+    /// Where the ratios live as key coordinates.
+    pub key_space: KeySpace,
     /// Fixed pseudo-random permutation of the vertex order.
     pub permuted: bool,
     /// Ambiguity-aware walk margin (0 = off).
@@ -70,6 +77,7 @@ impl Default for SignatureChoice {
             leave_out: None,
             order: p.order,
             harmonics: p.harmonics,
+            key_space: p.key_space,
             permuted: p.permuted,
             ambiguity: p.ambiguity,
         }
@@ -104,6 +112,7 @@ impl SignatureChoice {
             leave_out: self.leave_out.unwrap_or(leave),
             order: self.order,
             harmonics: self.harmonics.clone(),
+            key_space: self.key_space,
             permuted: self.permuted,
             ambiguity: self.ambiguity,
         }
@@ -124,6 +133,7 @@ impl Default for SignatureParams {
             neighbours: 5,
             order: VertexOrder::Walk,
             harmonics: vec![1, 2],
+            key_space: KeySpace::Sphere,
             permuted: false,
             leave_out: 0,
             ambiguity: 0.0,
@@ -170,10 +180,10 @@ pub struct Signatures {
     pub vertices_per_polygon: usize,
     /// Polygon vertices, `vertices_per_polygon` per signature, landmark first.
     pub polygons: Vec<u32>,
-    /// Dimensions of a key: two per harmonic.
+    /// Dimensions of a key: per harmonic two in the disc, three on the sphere.
     pub key_dims: usize,
     /// Keys laid end to end, `key_dims` values each: per harmonic, r_j mapped into the unit
-    /// disc.
+    /// disc or onto the unit sphere.
     pub keys: Vec<f64>,
     /// Predicted standard deviation of each key per unit of relative vertex noise
     /// ([`fourier::key_sensitivity`]).
@@ -261,13 +271,13 @@ pub fn compute(
     let mut sigs = Signatures {
         vertices_per_polygon: n,
         polygons: Vec::with_capacity(points.len() * n),
-        key_dims: 2 * per,
-        keys: Vec::with_capacity(points.len() * 2 * per),
+        key_dims: params.key_space.dims() * per,
+        keys: Vec::with_capacity(points.len() * params.key_space.dims() * per),
         sensitivity: Vec::with_capacity(points.len()),
     };
     let pool = k + params.leave_out;
     let subsets = subsets(pool, params.leave_out);
-    let mut key = Vec::with_capacity(2 * per);
+    let mut key = Vec::with_capacity(3 * per);
     let mut found = Vec::with_capacity(pool + 1);
     let mut nbrs = Vec::with_capacity(pool);
     let mut subset = Vec::with_capacity(k);
@@ -319,10 +329,12 @@ pub fn compute(
                 }
             }
         }
-        plan.ratios_and_sensitivity(&mut buffer, &mut ratios, &mut sens);
+        plan.ratios_and_sensitivity(&mut buffer, params.key_space, &mut ratios, &mut sens);
         for (i, rs) in ratios.chunks_exact(per).enumerate() {
             key.clear();
-            key.extend(rs.iter().flat_map(|r| fourier::bounded(*r)));
+            for &r in rs {
+                params.key_space.push(r, &mut key);
+            }
             if key.iter().all(|v| v.is_finite()) {
                 sigs.keys.extend_from_slice(&key);
                 sigs.sensitivity.push(sens[i]);

@@ -48,7 +48,7 @@ proptest! {
         let b = key_by_landmark(&sigs_of(&moved, &params), pts.len());
         for (ka, kb) in a.iter().zip(&b) {
             let (ka, kb) = (ka.as_ref().unwrap(), kb.as_ref().unwrap());
-            prop_assert_eq!(ka.len(), 4);
+            prop_assert_eq!(ka.len(), 6);
             for (a, b) in ka.iter().zip(kb) {
                 prop_assert!((a - b).abs() < 1e-7);
             }
@@ -59,19 +59,30 @@ proptest! {
 #[test]
 fn planned_keys_agree_with_direct_dft() {
     let pts = random_points(9, 500);
-    let params = SignatureParams::default();
-    let s = sigs_of(&pts, &params);
-    assert_eq!(s.len(), pts.len());
-    for i in (0..s.len()).step_by(17) {
-        let z: Vec<Complex64> = s
-            .polygon(i)
-            .iter()
-            .map(|&v| Complex64::new(pts[v as usize][0], pts[v as usize][1]))
-            .collect();
-        for (h, &j) in params.harmonics.iter().enumerate() {
-            let want = fourier::bounded(fourier::ratio_direct(&z, j));
-            let got = &s.key(i)[2 * h..2 * h + 2];
-            assert!((want[0] - got[0]).abs() < 1e-9 && (want[1] - got[1]).abs() < 1e-9);
+    for key_space in [KeySpace::Disc, KeySpace::Sphere] {
+        let params = SignatureParams {
+            key_space,
+            ..SignatureParams::default()
+        };
+        let s = sigs_of(&pts, &params);
+        assert_eq!(s.len(), pts.len());
+        let d = key_space.dims();
+        assert_eq!(s.key_dims, d * params.harmonics.len());
+        for i in (0..s.len()).step_by(17) {
+            let z: Vec<Complex64> = s
+                .polygon(i)
+                .iter()
+                .map(|&v| Complex64::new(pts[v as usize][0], pts[v as usize][1]))
+                .collect();
+            for (h, &j) in params.harmonics.iter().enumerate() {
+                let r = fourier::ratio_direct(&z, j);
+                let want = match key_space {
+                    KeySpace::Disc => fourier::bounded(r).to_vec(),
+                    KeySpace::Sphere => fourier::spherical(r).to_vec(),
+                };
+                let got = &s.key(i)[d * h..d * h + d];
+                assert!(want.iter().zip(got).all(|(a, b)| (a - b).abs() < 1e-9));
+            }
         }
     }
 }
@@ -82,7 +93,10 @@ fn mirror_maps_key_to_inverse_conjugate_for_the_walk() {
     // same vertices, and the ratio becomes 1/conj(r).
     let pts = random_points(4, 200);
     let swapped: Vec<[f64; 2]> = pts.iter().map(|p| [p[1], p[0]]).collect();
-    let params = SignatureParams::default();
+    let params = SignatureParams {
+        key_space: KeySpace::Disc,
+        ..SignatureParams::default()
+    };
     let a = sigs_of(&pts, &params);
     let b = sigs_of(&swapped, &params);
     let kb = key_by_landmark(&b, pts.len());
@@ -96,6 +110,20 @@ fn mirror_maps_key_to_inverse_conjugate_for_the_walk() {
             let want = fourier::bounded(1.0 / r.conj());
             let g = &got[2 * h..2 * h + 2];
             assert!((want[0] - g[0]).abs() < 1e-6 && (want[1] - g[1]).abs() < 1e-6);
+        }
+    }
+    // On the sphere, 1/conj(r) is the mirror image in the equator: (x, y, z) -> (x, y, -z).
+    let params = SignatureParams {
+        key_space: KeySpace::Sphere,
+        ..SignatureParams::default()
+    };
+    let a = sigs_of(&pts, &params);
+    let kb = key_by_landmark(&sigs_of(&swapped, &params), pts.len());
+    for i in 0..a.len() {
+        let got = kb[a.landmark(i) as usize].as_ref().unwrap();
+        for (k, g) in a.key(i).chunks_exact(3).zip(got.chunks_exact(3)) {
+            assert!((k[0] - g[0]).abs() < 1e-6 && (k[1] - g[1]).abs() < 1e-6);
+            assert!((k[2] + g[2]).abs() < 1e-6);
         }
     }
 }

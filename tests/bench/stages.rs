@@ -5,7 +5,7 @@
 //! size: seconds per stage, end to end, and the process's peak resident memory so far.
 //! Surveys: jittered grid, 28% missing on each side, 25% new, noise 1% of the spacing, rotation
 //! 37°, scale 2.7. Signature options: what the tool chooses for that survey size. `TIEMARK_K=5` changes the neighbours per signature, `TIEMARK_LEAVE_OUT=1`
-//! the subset depth; `TIEMARK_MISSING`, `TIEMARK_EXTRA`, `TIEMARK_NOISE` the surveys;
+//! the subset depth, `TIEMARK_KEY_SPACE=disc` or `sphere` the key space; `TIEMARK_MISSING`, `TIEMARK_EXTRA`, `TIEMARK_NOISE` the surveys;
 //! `TIEMARK_BENCH_VERBOSE=1` prints the robust fit's steps with their times.
 
 use std::time::Instant;
@@ -81,6 +81,12 @@ fn main() {
             .and_then(|v| v.parse().ok())
         {
             choice.leave_out = Some(l);
+        }
+        match std::env::var("TIEMARK_KEY_SPACE").as_deref() {
+            Ok("disc") => choice.key_space = signatures::KeySpace::Disc,
+            Ok("sphere") => choice.key_space = signatures::KeySpace::Sphere,
+            Ok(other) => panic!("TIEMARK_KEY_SPACE must be disc or sphere (got {other})"),
+            Err(_) => {}
         }
         let params = choice.resolve(p.reference.len().min(p.target.len()));
         let rs = signatures::compute("reference", &p.reference, &ri, &params, &mut |_| {})
