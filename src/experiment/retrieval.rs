@@ -13,12 +13,16 @@
 //!    on a 1000 × 1000 px canvas, each spanning about the canvas. Ten vertices are what a
 //!    landmark's neighbourhood of nine neighbours gives, and leave harmonics 1 and 2 both
 //!    informative (j < n/2).
-//! 2. **Keys.** Each polygon is turned into a vertex sequence by one of two orders, then
+//! 2. **Keys.** Each polygon is turned into a vertex sequence by one of three orders, then
 //!    optionally permuted, then keyed:
 //!    - order `given`: the generated order, starting at vertex 0;
 //!    - order `walk`: the nearest-neighbour walk over the polygon's own vertex set from vertex
 //!      0 ([`crate::signatures::neighbourhood::order_polygon`] with [`VertexOrder::Walk`]; the
 //!      neighbour list is vertices 1..n sorted by distance from vertex 0, ties by index);
+//!    - order `walk-ambiguous`: the same walk, also following the other step wherever two
+//!      are within [`AMBIGUITY_MARGIN`] of each other
+//!      ([`crate::signatures::neighbourhood::order_polygons`], at most [`MAX_ORDERS`] orders,
+//!      the plain walk first); each order gives a key, so a polygon can have several;
 //!    - `permuted`: the sequence is reordered by [`fixed_permutation`]`(10)`, the same for
 //!      indexed and query polygons;
 //!    - signature ([`SIGNATURES`]): the ratios r_j = Z_j / Z_{−j} from [`RatioPlan`] (RustFFT
@@ -30,7 +34,8 @@
 //!      coordinates of all harmonics laid side by side: keys of 2, 3, 4, 6, 8 and 12
 //!      dimensions.
 //! 3. **Index.** Per class and variant, the keys of all polygons go into one kiddo
-//!    `ImmutableKdTree` (squared Euclidean distance in the key space).
+//!    `ImmutableKdTree` (squared Euclidean distance in the key space), each key remembering
+//!    its polygon.
 //! 4. **Queries.** The first [`FULL_QUERIES`] polygons of each class (quick: [`QUICK_QUERIES`];
 //!    the polygons are independent draws, so these are a random sample) are perturbed: every
 //!    coordinate of every vertex gets σ·g, g standard normal, σ = the noise level in px. The
@@ -38,9 +43,10 @@
 //!    by σ only, not by a new draw) and shared by all variants. The perturbed polygon is
 //!    ordered afresh (the walk may change under noise), permuted and keyed like the indexed
 //!    ones; noise levels: [`FULL_NOISE_LEVELS_PX`] (quick: [`QUICK_NOISE_LEVELS_PX`]).
-//! 5. **Scores.** recall@1: the fraction of queries whose nearest indexed key is the
-//!    original polygon's; recall@5: the fraction whose original is among the five nearest. A
-//!    query whose key is not finite counts as a miss.
+//! 5. **Scores.** The polygons owning the keys nearest to any of the query's keys, nearest
+//!    first, each polygon counted once: recall@1 is the fraction of queries whose first such
+//!    polygon is the original, recall@5 the fraction whose original is among the first five.
+//!    A query key that is not finite is dropped; a query left without keys counts as a miss.
 //! 6. **Randomness.** `ChaCha8Rng::seed_from_u64(seed)` with stream 1 + c for the polygons of
 //!    class c (c = 0..3 in [`PolygonClass::ALL`] order) and stream 11 + c for its noise; the
 //!    run is deterministic.
@@ -82,8 +88,9 @@
 //!   (25 against 40 px). With one harmonic it does not help (one fixed permutation sends all
 //!   convex outlines to similar keys: their key spacing halves).
 //! - **The walk order is limited by the walk**: re-walking a noisy polygon changes its order at
-//!   a few pixels (tolerance 2-10 px with two or more harmonics), which is why the landmark signatures
-//!   add subset and ambiguity-aware variants ([`super::landmarks`]).
+//!   a few pixels (tolerance 2-10 px with two or more harmonics). The ambiguity-aware walk
+//!   recovers much of it: with `sphere-all`, 3 → 10-15 px for star-shaped, simple and general
+//!   polygons, 10 → 15 px for convex ones (20 px permuted); with two harmonics 3 → 5-7 px.
 //!
 //! Where the numbers differ from the expected ones, the generators are why: the convex
 //! outlines are ellipse points at uniform random angles, far from regular, so Z_{−1} is not
@@ -93,7 +100,7 @@
 use super::polygons::{self, PolygonClass};
 use super::ExperimentError;
 use crate::signatures::fourier::{bounded, spherical, KeySpace, RatioPlan};
-use crate::signatures::neighbourhood::order_polygon;
+use crate::signatures::neighbourhood::{order_polygons, MAX_ORDERS};
 use crate::signatures::permutation::{apply, fixed_permutation};
 use crate::signatures::VertexOrder;
 use crate::spatial::dist2;
@@ -124,7 +131,12 @@ pub const FULL_NOISE_LEVELS_PX: [f64; 14] = [
 /// Noise levels σ (px per coordinate), quick run.
 pub const QUICK_NOISE_LEVELS_PX: [f64; 10] = [0.0, 1.0, 2.0, 3.0, 5.0, 7.0, 12.0, 20.0, 25.0, 40.0];
 /// Vertex orders compared, as named in the outputs.
-pub const ORDERS: [&str; 2] = ["given", "walk"];
+pub const ORDERS: [&str; 3] = ["given", "walk", "walk-ambiguous"];
+
+/// Relative margin of the ambiguity-aware walk (order `walk-ambiguous`): a step branches where
+/// the second-nearest unvisited vertex is within this factor of the nearest (the landmark
+/// experiment's `walk-ambiguous` variant uses the same).
+pub const AMBIGUITY_MARGIN: f64 = 0.05;
 /// One signature variant of the experiment: which ratios go into the key, and how.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub struct SignatureKind {
@@ -229,7 +241,7 @@ impl RetrievalOptions {
 pub struct RetrievalRow {
     /// Shape class of the polygons.
     pub class: PolygonClass,
-    /// Vertex order: `given` or `walk` ([`ORDERS`]).
+    /// Vertex order: `given`, `walk` or `walk-ambiguous` ([`ORDERS`]).
     pub order: &'static str,
     /// Whether the fixed permutation was applied (to indexed and query polygons alike).
     pub permuted: bool,
@@ -248,19 +260,20 @@ pub struct RetrievalRow {
 /// One vertex order × permutation × signature combination.
 #[derive(Debug, Clone, Copy)]
 struct Variant {
-    walk: bool,
+    /// Position in [`ORDERS`].
+    order: usize,
     permuted: bool,
     signature: usize,
 }
 
 impl Variant {
     fn all() -> Vec<Variant> {
-        let mut v = Vec::with_capacity(4 * SIGNATURES.len());
-        for walk in [false, true] {
+        let mut v = Vec::with_capacity(2 * ORDERS.len() * SIGNATURES.len());
+        for order in 0..ORDERS.len() {
             for permuted in [false, true] {
                 for signature in 0..SIGNATURES.len() {
                     v.push(Variant {
-                        walk,
+                        order,
                         permuted,
                         signature,
                     });
@@ -271,7 +284,7 @@ impl Variant {
     }
 
     fn order(self) -> &'static str {
-        ORDERS[usize::from(self.walk)]
+        ORDERS[self.order]
     }
 
     fn kind(self) -> &'static SignatureKind {
@@ -292,7 +305,8 @@ struct Keyer {
     plans: Vec<RatioPlan>,
     perm: Vec<usize>,
     nbrs: Vec<u32>,
-    walk: Vec<u32>,
+    /// The vertex orders of the last [`Keyer::arrange`], `n` indices each, end to end.
+    orders: Vec<u32>,
     verts: Vec<[f64; 2]>,
     scratch: Vec<[f64; 2]>,
     buf: Vec<Complex64>,
@@ -308,7 +322,7 @@ impl Keyer {
                 .collect(),
             perm: fixed_permutation(n),
             nbrs: Vec::with_capacity(n),
-            walk: Vec::with_capacity(n),
+            orders: Vec::with_capacity(MAX_ORDERS * n),
             verts: Vec::with_capacity(n),
             scratch: Vec::with_capacity(n),
             buf: Vec::with_capacity(n),
@@ -316,29 +330,38 @@ impl Keyer {
         }
     }
 
-    /// Puts the vertices of `poly` into `self.verts` in the variant's order.
-    fn arrange(&mut self, poly: &[[f64; 2]], v: Variant) {
-        self.verts.clear();
-        if v.walk {
-            self.nbrs.clear();
-            self.nbrs.extend(1..poly.len() as u32);
-            let d = |i: u32| dist2(poly[0], poly[i as usize]);
-            self.nbrs
-                .sort_by(|&a, &b| d(a).total_cmp(&d(b)).then(a.cmp(&b)));
-            order_polygon(VertexOrder::Walk, poly, 0, &self.nbrs, &mut self.walk);
-            self.verts
-                .extend(self.walk.iter().map(|&i| poly[i as usize]));
-        } else {
-            self.verts.extend_from_slice(poly);
+    /// Puts the variant's vertex orders of `poly` into `self.orders` (one, or up to
+    /// [`MAX_ORDERS`] for the ambiguity-aware walk, the plain walk first) and returns how many.
+    fn arrange(&mut self, poly: &[[f64; 2]], v: Variant) -> usize {
+        self.orders.clear();
+        if v.order == 0 {
+            self.orders.extend(0..poly.len() as u32);
+            return 1;
         }
+        self.nbrs.clear();
+        self.nbrs.extend(1..poly.len() as u32);
+        let d = |i: u32| dist2(poly[0], poly[i as usize]);
+        self.nbrs
+            .sort_by(|&a, &b| d(a).total_cmp(&d(b)).then(a.cmp(&b)));
+        let margin = if v.order == 2 { AMBIGUITY_MARGIN } else { 0.0 };
+        order_polygons(
+            VertexOrder::Walk,
+            poly,
+            0,
+            &self.nbrs,
+            margin,
+            &mut self.orders,
+        )
+    }
+
+    /// The key of `poly` in vertex order `order` (indices into `poly`), permuted if the
+    /// variant says so.
+    fn key_in_order(&mut self, poly: &[[f64; 2]], order: &[u32], v: Variant) -> Key {
+        self.verts.clear();
+        self.verts.extend(order.iter().map(|&i| poly[i as usize]));
         if v.permuted {
             apply(&self.perm, &mut self.verts, &mut self.scratch);
         }
-    }
-
-    /// The variant's key of `poly`.
-    fn key(&mut self, poly: &[[f64; 2]], v: Variant) -> Key {
-        self.arrange(poly, v);
         let o = self.verts[0];
         self.buf.clear();
         self.buf.extend(
@@ -350,13 +373,33 @@ impl Keyer {
         self.plans[v.signature].ratios(&mut self.buf, &mut self.ratios);
         let mut key = [0.0; MAX_KEY_DIMS];
         let map = v.kind().map;
+        let d = map.dims();
         for (k, &r) in self.ratios.iter().enumerate() {
-            let d = map.dims();
             match map {
                 KeySpace::Disc => key[d * k..d * k + d].copy_from_slice(&bounded(r)),
                 KeySpace::Sphere => key[d * k..d * k + d].copy_from_slice(&spherical(r)),
             }
         }
+        key
+    }
+
+    /// Appends the variant's keys of `poly` to `out` (one per vertex order).
+    fn keys(&mut self, poly: &[[f64; 2]], v: Variant, out: &mut Vec<Key>) {
+        let count = self.arrange(poly, v);
+        let orders = std::mem::take(&mut self.orders);
+        let n = poly.len();
+        for o in orders[..count * n].chunks_exact(n) {
+            out.push(self.key_in_order(poly, o, v));
+        }
+        self.orders = orders;
+    }
+
+    /// The variant's first key of `poly` (for the walks: the plain walk's).
+    fn key(&mut self, poly: &[[f64; 2]], v: Variant) -> Key {
+        self.arrange(poly, v);
+        let orders = std::mem::take(&mut self.orders);
+        let key = self.key_in_order(poly, &orders[..poly.len()], v);
+        self.orders = orders;
         key
     }
 }
@@ -479,8 +522,10 @@ pub fn run_retrieval(
 /// One class's polygons, their keys and k-d trees per variant, and the queries' noise.
 struct ClassIndex {
     polys: Vec<Vec<[f64; 2]>>,
-    /// keys[variant][polygon]
+    /// keys[variant]: every polygon's keys, polygon by polygon.
     keys: Vec<Vec<Key>>,
+    /// owners[variant][key]: the polygon a key belongs to.
+    owners: Vec<Vec<u32>>,
     trees: Vec<KeyTree>,
     /// Standard-normal perturbation per query and vertex (module doc, point 4).
     directions: Vec<Vec<[f64; 2]>>,
@@ -500,10 +545,20 @@ impl ClassIndex {
             "queries are drawn from the indexed polygons"
         );
         let polys = generate_class(class, polygons, seed);
-        let keys: Vec<Vec<Key>> = variants
-            .iter()
-            .map(|&v| polys.iter().map(|p| keyer.key(p, v)).collect())
-            .collect();
+        let mut keys: Vec<Vec<Key>> = Vec::with_capacity(variants.len());
+        let mut owners: Vec<Vec<u32>> = Vec::with_capacity(variants.len());
+        for &v in variants {
+            let (mut k, mut o) = (
+                Vec::with_capacity(polys.len()),
+                Vec::with_capacity(polys.len()),
+            );
+            for (i, p) in polys.iter().enumerate() {
+                keyer.keys(p, v, &mut k);
+                o.resize(k.len(), i as u32);
+            }
+            keys.push(k);
+            owners.push(o);
+        }
         let trees = variants
             .iter()
             .zip(&keys)
@@ -524,8 +579,43 @@ impl ClassIndex {
         ClassIndex {
             polys,
             keys,
+            owners,
             trees,
             directions,
+        }
+    }
+
+    /// The polygons owning the keys nearest to any of `query` in variant `vi`, nearest
+    /// first, each polygon once, at most `k` of them.
+    fn ranked(
+        &self,
+        vi: usize,
+        query: &[Key],
+        k: usize,
+        found: &mut Vec<(u32, f64)>,
+        merged: &mut Vec<(f64, u32)>,
+        out: &mut Vec<u32>,
+    ) {
+        merged.clear();
+        // Enough keys per query key that k distinct polygons survive the merge.
+        let per = if query.len() > 1 || self.keys[vi].len() > self.polys.len() {
+            k * MAX_ORDERS
+        } else {
+            k
+        };
+        for key in query {
+            self.trees[vi].nearest(key, per, found);
+            merged.extend(found.iter().map(|&(i, d)| (d, self.owners[vi][i as usize])));
+        }
+        merged.sort_by(|a, b| a.0.total_cmp(&b.0));
+        out.clear();
+        for &(_, owner) in merged.iter() {
+            if out.len() == k {
+                break;
+            }
+            if !out.contains(&owner) {
+                out.push(owner);
+            }
         }
     }
 
@@ -562,7 +652,10 @@ fn run_variants(
     let mut keyer = Keyer::new(VERTICES);
     let mut rows = Vec::with_capacity(PolygonClass::ALL.len() * variants.len() * levels.len());
     let mut noisy = Vec::with_capacity(VERTICES);
-    let mut found = Vec::with_capacity(5);
+    let mut found = Vec::with_capacity(5 * MAX_ORDERS);
+    let mut merged = Vec::with_capacity(5 * MAX_ORDERS * MAX_ORDERS);
+    let mut best = Vec::with_capacity(5);
+    let mut qkeys = Vec::with_capacity(MAX_ORDERS);
     for class in PolygonClass::ALL {
         progress(&format!(
             "retrieval: {class}: indexing {polygons} polygons in {} variants",
@@ -578,16 +671,18 @@ fn run_variants(
             for q in 0..queries {
                 index.perturbed(q, sigma, &mut noisy);
                 for (vi, &v) in variants.iter().enumerate() {
-                    let key = keyer.key(&noisy, v);
-                    if !key.iter().all(|x| x.is_finite()) {
+                    qkeys.clear();
+                    keyer.keys(&noisy, v, &mut qkeys);
+                    qkeys.retain(|k: &Key| k.iter().all(|x| x.is_finite()));
+                    if qkeys.is_empty() {
                         continue;
                     }
-                    index.trees[vi].nearest(&key, 5, &mut found);
+                    index.ranked(vi, &qkeys, 5, &mut found, &mut merged, &mut best);
                     let target = q as u32;
-                    if found.first().map(|f| f.0) == Some(target) {
+                    if best.first() == Some(&target) {
                         hits[vi][l].0 += 1;
                     }
-                    if found.iter().any(|f| f.0 == target) {
+                    if best.contains(&target) {
                         hits[vi][l].1 += 1;
                     }
                 }
@@ -653,7 +748,7 @@ pub fn key_diagnostics(options: &RetrievalOptions) -> Vec<KeyDiagnostic> {
     let (polygons, queries) = (options.polygons_per_class(), options.queries_per_class());
     let mut out = Vec::with_capacity(PolygonClass::ALL.len() * variants.len());
     let mut noisy = Vec::with_capacity(VERTICES);
-    let mut found = Vec::with_capacity(2);
+    let mut found = Vec::with_capacity(1 + MAX_ORDERS);
     for class in PolygonClass::ALL {
         let index = ClassIndex::new(
             class,
@@ -664,19 +759,27 @@ pub fn key_diagnostics(options: &RetrievalOptions) -> Vec<KeyDiagnostic> {
             &mut keyer,
         );
         for (vi, &v) in variants.iter().enumerate() {
-            let keys = &index.keys[vi];
+            let (keys, owners) = (&index.keys[vi], &index.owners[vi]);
+            // The nearest key of another polygon (an ambiguity-aware polygon's other orders
+            // do not count).
             let spacing: Vec<f64> = keys
                 .iter()
-                .filter_map(|k| {
-                    index.trees[vi].nearest(k, 2, &mut found);
-                    found.get(1).map(|f| f.1.sqrt())
+                .zip(owners)
+                .filter_map(|(k, &own)| {
+                    index.trees[vi].nearest(k, 1 + MAX_ORDERS, &mut found);
+                    found
+                        .iter()
+                        .find(|f| owners[f.0 as usize] != own)
+                        .map(|f| f.1.sqrt())
                 })
                 .collect();
+            // First (plain-walk) key of the noisy query against its original's first key.
             let shift: Vec<f64> = (0..queries)
                 .filter_map(|q| {
                     index.perturbed(q, 1.0, &mut noisy);
                     let k = keyer.key(&noisy, v);
-                    let d2: f64 = (0..v.dims()).map(|d| (k[d] - keys[q][d]).powi(2)).sum();
+                    let first = &keys[owners.partition_point(|&o| o < q as u32)];
+                    let d2: f64 = (0..v.dims()).map(|d| (k[d] - first[d]).powi(2)).sum();
                     d2.is_finite().then(|| d2.sqrt())
                 })
                 .collect();
@@ -923,7 +1026,7 @@ fn draw_plot(
 ) -> Result<(), Box<dyn std::error::Error>> {
     use plotters::element::DashedPathElement;
     use plotters::prelude::*;
-    const W: u32 = 2000;
+    const W: u32 = 2700;
     const H: u32 = 1800;
     const FONT: &str = "sans-serif";
     // One row of panels per set of harmonics; within a panel the disc key is solid and the
@@ -1140,7 +1243,7 @@ mod tests {
         // If the permutation (or the walk) were applied to one side only, the keys would
         // differ and recall would collapse.
         let rows = run_sized(5, 300, 60, &[0.0], &mut quiet());
-        assert_eq!(rows.len(), 4 * 4 * SIGNATURES.len());
+        assert_eq!(rows.len(), 4 * 2 * ORDERS.len() * SIGNATURES.len());
         for r in &rows {
             assert_eq!(r.recall_at_1, 1.0, "{r:?}");
             assert_eq!(r.recall_at_5, 1.0, "{r:?}");
@@ -1153,7 +1256,7 @@ mod tests {
         let mut keyer = Keyer::new(VERTICES);
         for p in &polys {
             let base = Variant {
-                walk: false,
+                order: 0,
                 permuted: false,
                 signature: 1,
             };
@@ -1178,10 +1281,10 @@ mod tests {
                     ]
                 })
                 .collect();
-            for walk in [false, true] {
+            for order in 0..ORDERS.len() {
                 for signature in 0..SIGNATURES.len() {
                     let v = Variant {
-                        walk,
+                        order,
                         permuted: true,
                         signature,
                     };
@@ -1201,24 +1304,64 @@ mod tests {
         let polys = generate_class(PolygonClass::General, 10, 3);
         let mut keyer = Keyer::new(VERTICES);
         let v = Variant {
-            walk: true,
+            order: 1,
             permuted: false,
             signature: 0,
         };
         for p in &polys {
-            keyer.arrange(p, v);
-            assert_eq!(keyer.walk[0], 0);
-            let mut seen = keyer.walk.clone();
+            assert_eq!(keyer.arrange(p, v), 1);
+            let walk = keyer.orders.clone();
+            assert_eq!(walk[0], 0);
+            let mut seen = walk.clone();
             seen.sort();
             assert_eq!(seen, (0..VERTICES as u32).collect::<Vec<_>>());
             // Each step goes to the nearest vertex not yet visited.
             for s in 1..VERTICES - 1 {
-                let here = p[keyer.walk[s - 1] as usize];
-                let next = dist2(here, p[keyer.walk[s] as usize]);
-                for &later in &keyer.walk[s + 1..] {
+                let here = p[walk[s - 1] as usize];
+                let next = dist2(here, p[walk[s] as usize]);
+                for &later in &walk[s + 1..] {
                     assert!(next <= dist2(here, p[later as usize]));
                 }
             }
+            // The ambiguity-aware walk starts with the same order and adds at most
+            // MAX_ORDERS - 1 others, each visiting every vertex once.
+            let count = keyer.arrange(p, Variant { order: 2, ..v });
+            assert!((1..=MAX_ORDERS).contains(&count));
+            assert_eq!(keyer.orders.len(), count * VERTICES);
+            assert_eq!(keyer.orders[..VERTICES], walk[..]);
+            for o in keyer.orders.chunks_exact(VERTICES) {
+                let mut seen = o.to_vec();
+                seen.sort();
+                assert_eq!(seen, (0..VERTICES as u32).collect::<Vec<_>>());
+            }
+        }
+    }
+
+    #[test]
+    fn ambiguity_aware_walk_branches_on_some_polygons_and_helps_under_noise() {
+        // Branching needs two nearly equal steps; random points give them now and then.
+        let polys = generate_class(PolygonClass::General, 300, 4);
+        let mut keyer = Keyer::new(VERTICES);
+        let v = Variant {
+            order: 2,
+            permuted: false,
+            signature: signature_index("sphere-all"),
+        };
+        let branched = polys.iter().filter(|p| keyer.arrange(p, v) > 1).count();
+        assert!(
+            branched > 30 && branched < 300,
+            "{branched} of 300 branched"
+        );
+        let plain = Variant { order: 1, ..v };
+        let rows = run_variants(2, 2000, 100, &[3.0, 7.0], &[plain, v], &mut quiet());
+        for class in PolygonClass::ALL {
+            let r = |order| {
+                series(&rows, class, order, false, "sphere-all")
+                    .iter()
+                    .map(|r| r.recall_at_1)
+                    .sum::<f64>()
+            };
+            assert!(r("walk-ambiguous") >= r("walk"), "{class}");
         }
     }
 
@@ -1236,7 +1379,7 @@ mod tests {
         // 0.007-0.036), the others far apart; the assertions use seed 1.
         let sig = signature_index("sphere-all");
         let variants = [false, true].map(|permuted| Variant {
-            walk: false,
+            order: 0,
             permuted,
             signature: sig,
         });
@@ -1285,7 +1428,7 @@ mod tests {
         assert!(lines > 4);
         assert_eq!(
             rows.len(),
-            4 * 4 * SIGNATURES.len() * QUICK_NOISE_LEVELS_PX.len()
+            4 * 2 * ORDERS.len() * SIGNATURES.len() * QUICK_NOISE_LEVELS_PX.len()
         );
         use PolygonClass::*;
         for class in PolygonClass::ALL {
@@ -1389,9 +1532,9 @@ mod tests {
         );
         let md = std::fs::read_to_string(&paths[1]).unwrap();
         assert!(md.contains("| class | order | permuted | signature | tolerance (px) |"));
-        // 16 rows per signature in the results table and 16 in the key diagnostics.
+        // 24 rows per signature in the results table and 24 in the key diagnostics.
         for kind in SIGNATURES {
-            assert_eq!(md.matches(&format!("| {} |", kind.name)).count(), 32);
+            assert_eq!(md.matches(&format!("| {} |", kind.name)).count(), 48);
         }
         assert!(md.contains("independent checkpoints"));
         let svg = std::fs::read_to_string(&paths[2]).unwrap();
