@@ -277,4 +277,18 @@ mod tests {
         assert_eq!(c.target.path, PathBuf::from("/abs/b.gpkg"));
         assert_eq!(c.signatures, SignatureChoice::default());
     }
+
+    #[test]
+    fn key_space_is_read_and_a_wrong_one_is_named() {
+        let dir = tempfile::tempdir().unwrap();
+        let p = dir.path().join("p.toml");
+        let head = "[reference]\npath = \"a.gpkg\"\n[target]\npath = \"b.gpkg\"\n[output]\ndir = \"o\"\n[signatures]\n";
+        std::fs::write(&p, format!("{head}key_space = \"disc\"\n")).unwrap();
+        let c = MatchConfig::from_file(&p).unwrap();
+        assert_eq!(c.signatures.key_space, crate::signatures::KeySpace::Disc);
+        std::fs::write(&p, format!("{head}key_space = \"cube\"\n")).unwrap();
+        let e = MatchConfig::from_file(&p).unwrap_err().to_string();
+        assert!(e.contains("line 8"), "{e}");
+        assert!(e.contains("cube") && e.contains("sphere"), "{e}");
+    }
 }
