@@ -1031,11 +1031,7 @@ fn draw_plot(
     const FONT: &str = "sans-serif";
     // One row of panels per set of harmonics; within a panel the disc key is solid and the
     // sphere key dashed.
-    const GROUPS: [(&str, &[usize]); 3] = [
-        ("j = 1", &[1]),
-        ("j = 1, 2", &[1, 2]),
-        ("j = 1 to 4", &[1, 2, 3, 4]),
-    ];
+    const GROUPS: [(&str, &[usize]); 3] = [("1", &[1]), ("1, 2", &[1, 2]), ("1-4", &[1, 2, 3, 4])];
     let root = SVGBackend::with_string(svg, (W, H)).into_drawing_area();
     root.fill(&WHITE)?;
     let (title, rest) = root.split_vertically(70);
@@ -1065,11 +1061,11 @@ fn draw_plot(
         for order in ORDERS {
             for permuted in [false, true] {
                 let caption = format!(
-                    "{group}; order {order}; {}",
-                    if permuted { "permuted" } else { "not permuted" }
+                    "j = {group}, {order}{}",
+                    if permuted { ", permuted" } else { "" }
                 );
                 let mut chart = ChartBuilder::on(&panels[p])
-                    .caption(caption, (FONT, 22))
+                    .caption(caption, (FONT, 21))
                     .margin(14)
                     .x_label_area_size(50)
                     .y_label_area_size(60)
@@ -1167,7 +1163,7 @@ fn draw_plot(
 ///   tolerance (module doc) and recall@1 at [`REPORT_NOISE_PX`], and a census of the
 ///   generated shapes.
 /// - `retrieval.svg`: recall@1 against noise; one panel column per order × permutation, one colour
-///   per class; one row of panels per set of harmonics (j = 1; 1, 2; 1 to 4), solid lines
+///   per class; one row of panels per set of harmonics (j = 1; 1, 2; 1-4), solid lines
 ///   for the disc keys (`ratio-…`) and dashed for the sphere keys (`sphere-…`).
 ///
 /// Everything is rendered in memory first; each file is then written under a temporary name
