@@ -18,6 +18,8 @@
 //! - `signatures_per_landmark`: index size per reference landmark.
 //!
 //! Each trial's match runs with at most [`MAX_ROUNDS`] RANSAC rounds.
+//!
+#![doc = include_str!("landmark-robustness.md")]
 
 use crate::fit::{FitOutcome, FitParams, Similarity};
 use crate::matching::{self, Rank};
