@@ -47,6 +47,10 @@
 //!    first, each polygon counted once: recall@1 is the fraction of queries whose first such
 //!    polygon is the original, recall@5 the fraction whose original is among the first five.
 //!    A query key that is not finite is dropped; a query left without keys counts as a miss.
+//!    Ranking `distance` orders by key distance; ranking `sensitivity` (the match pipeline's
+//!    `--rank sensitivity`) takes the 5 × [`MAX_ORDERS`] nearest keys of each query key and
+//!    orders them by key distance over √(s_q² + s_i²), s the first-order noise sensitivity of
+//!    the query's and the indexed key ([`key_sensitivity`]). The plot shows ranking `distance`.
 //! 6. **Randomness.** `ChaCha8Rng::seed_from_u64(seed)` with stream 1 + c for the polygons of
 //!    class c (c = 0..3 in [`PolygonClass::ALL`] order) and stream 11 + c for its noise; the
 //!    run is deterministic.
@@ -87,6 +91,10 @@
 //!   one; it brings convex polygons past unpermuted simple ones but not up to general ones
 //!   (25 against 40 px). With one harmonic it does not help (one fixed permutation sends all
 //!   convex outlines to similar keys: their key spacing halves).
+//! - **Ranking by sensitivity does not help**: it lowers the tolerance wherever it changes
+//!   it (`sphere-all`, given order: star-shaped 15 → 12 px, simple 25 → 20, general 40 → 30;
+//!   `ratio-all`: convex 10 → 5, general 25 → 15), because dividing by the indexed key's own
+//!   predicted noise favours the unstable keys, which then win queries that are not theirs.
 //! - **The walk order is limited by the walk**: re-walking a noisy polygon changes its order at
 //!   a few pixels (tolerance 2-10 px with two or more harmonics). The ambiguity-aware walk
 //!   recovers much of it: with `sphere-all`, 3 → 10-15 px for star-shaped, simple and general
@@ -99,7 +107,7 @@
 
 use super::polygons::{self, PolygonClass};
 use super::ExperimentError;
-use crate::signatures::fourier::{bounded, spherical, KeySpace, RatioPlan};
+use crate::signatures::fourier::{bounded, key_sensitivity, spherical, KeySpace, RatioPlan};
 use crate::signatures::neighbourhood::{order_polygons, MAX_ORDERS};
 use crate::signatures::permutation::{apply, fixed_permutation};
 use crate::signatures::VertexOrder;
@@ -132,6 +140,10 @@ pub const FULL_NOISE_LEVELS_PX: [f64; 14] = [
 pub const QUICK_NOISE_LEVELS_PX: [f64; 10] = [0.0, 1.0, 2.0, 3.0, 5.0, 7.0, 12.0, 20.0, 25.0, 40.0];
 /// Vertex orders compared, as named in the outputs.
 pub const ORDERS: [&str; 3] = ["given", "walk", "walk-ambiguous"];
+
+/// Candidate rankings compared, as named in the outputs: by key distance, or by key distance
+/// over the predicted noise of the two keys (module doc, point 5).
+pub const RANKS: [&str; 2] = ["distance", "sensitivity"];
 
 /// Relative margin of the ambiguity-aware walk (order `walk-ambiguous`): a step branches where
 /// the second-nearest unvisited vertex is within this factor of the nearest (the landmark
@@ -247,6 +259,8 @@ pub struct RetrievalRow {
     pub permuted: bool,
     /// Signature variant, by name ([`SIGNATURES`]).
     pub signature: &'static str,
+    /// Candidate ranking, by name ([`RANKS`]).
+    pub rank: &'static str,
     /// Noise σ, px per coordinate.
     pub noise_px: f64,
     /// Number of queries.
@@ -355,8 +369,8 @@ impl Keyer {
     }
 
     /// The key of `poly` in vertex order `order` (indices into `poly`), permuted if the
-    /// variant says so.
-    fn key_in_order(&mut self, poly: &[[f64; 2]], order: &[u32], v: Variant) -> Key {
+    /// variant says so, and its first-order noise sensitivity ([`key_sensitivity`]).
+    fn key_in_order(&mut self, poly: &[[f64; 2]], order: &[u32], v: Variant) -> (Key, f64) {
         self.verts.clear();
         self.verts.extend(order.iter().map(|&i| poly[i as usize]));
         if v.permuted {
@@ -370,6 +384,7 @@ impl Keyer {
                 .map(|p| Complex64::new(p[0] - o[0], p[1] - o[1])),
         );
         self.ratios.clear();
+        // The plan transforms `buf` in place: afterwards it holds the spectrum.
         self.plans[v.signature].ratios(&mut self.buf, &mut self.ratios);
         let mut key = [0.0; MAX_KEY_DIMS];
         let map = v.kind().map;
@@ -380,16 +395,19 @@ impl Keyer {
                 KeySpace::Sphere => key[d * k..d * k + d].copy_from_slice(&spherical(r)),
             }
         }
-        key
+        (key, key_sensitivity(&self.buf, v.kind().harmonics, map))
     }
 
-    /// Appends the variant's keys of `poly` to `out` (one per vertex order).
-    fn keys(&mut self, poly: &[[f64; 2]], v: Variant, out: &mut Vec<Key>) {
+    /// Appends the variant's keys of `poly` to `out` (one per vertex order) and their noise
+    /// sensitivities to `sens`.
+    fn keys(&mut self, poly: &[[f64; 2]], v: Variant, out: &mut Vec<Key>, sens: &mut Vec<f64>) {
         let count = self.arrange(poly, v);
         let orders = std::mem::take(&mut self.orders);
         let n = poly.len();
         for o in orders[..count * n].chunks_exact(n) {
-            out.push(self.key_in_order(poly, o, v));
+            let (key, s) = self.key_in_order(poly, o, v);
+            out.push(key);
+            sens.push(s);
         }
         self.orders = orders;
     }
@@ -398,7 +416,7 @@ impl Keyer {
     fn key(&mut self, poly: &[[f64; 2]], v: Variant) -> Key {
         self.arrange(poly, v);
         let orders = std::mem::take(&mut self.orders);
-        let key = self.key_in_order(poly, &orders[..poly.len()], v);
+        let (key, _) = self.key_in_order(poly, &orders[..poly.len()], v);
         self.orders = orders;
         key
     }
@@ -526,6 +544,8 @@ struct ClassIndex {
     keys: Vec<Vec<Key>>,
     /// owners[variant][key]: the polygon a key belongs to.
     owners: Vec<Vec<u32>>,
+    /// sens[variant][key]: the key's noise sensitivity.
+    sens: Vec<Vec<f64>>,
     trees: Vec<KeyTree>,
     /// Standard-normal perturbation per query and vertex (module doc, point 4).
     directions: Vec<Vec<[f64; 2]>>,
@@ -547,17 +567,20 @@ impl ClassIndex {
         let polys = generate_class(class, polygons, seed);
         let mut keys: Vec<Vec<Key>> = Vec::with_capacity(variants.len());
         let mut owners: Vec<Vec<u32>> = Vec::with_capacity(variants.len());
+        let mut sens: Vec<Vec<f64>> = Vec::with_capacity(variants.len());
         for &v in variants {
             let (mut k, mut o) = (
                 Vec::with_capacity(polys.len()),
                 Vec::with_capacity(polys.len()),
             );
+            let mut sv = Vec::with_capacity(polys.len());
             for (i, p) in polys.iter().enumerate() {
-                keyer.keys(p, v, &mut k);
+                keyer.keys(p, v, &mut k, &mut sv);
                 o.resize(k.len(), i as u32);
             }
             keys.push(k);
             owners.push(o);
+            sens.push(sv);
         }
         let trees = variants
             .iter()
@@ -580,32 +603,49 @@ impl ClassIndex {
             polys,
             keys,
             owners,
+            sens,
             trees,
             directions,
         }
     }
 
-    /// The polygons owning the keys nearest to any of `query` in variant `vi`, nearest
-    /// first, each polygon once, at most `k` of them.
+    /// The polygons owning the keys nearest to any of `query` (with sensitivities `qsens`) in
+    /// variant `vi`, best first, each polygon once, at most `k` of them. By key distance, or
+    /// with `by_sensitivity` by key distance over √(s_q² + s_i²), among the
+    /// `k` × [`MAX_ORDERS`] nearest keys of each query key.
+    #[allow(clippy::too_many_arguments)]
     fn ranked(
         &self,
         vi: usize,
         query: &[Key],
+        qsens: &[f64],
         k: usize,
+        by_sensitivity: bool,
         found: &mut Vec<(u32, f64)>,
         merged: &mut Vec<(f64, u32)>,
         out: &mut Vec<u32>,
     ) {
         merged.clear();
-        // Enough keys per query key that k distinct polygons survive the merge.
-        let per = if query.len() > 1 || self.keys[vi].len() > self.polys.len() {
+        // Enough keys per query key that k distinct polygons survive the merge (and the
+        // re-ranking has a choice).
+        let several = query.len() > 1 || self.keys[vi].len() > self.polys.len();
+        let per = if several || by_sensitivity {
             k * MAX_ORDERS
         } else {
             k
         };
-        for key in query {
+        for (key, &sq) in query.iter().zip(qsens) {
             self.trees[vi].nearest(key, per, found);
-            merged.extend(found.iter().map(|&(i, d)| (d, self.owners[vi][i as usize])));
+            merged.extend(found.iter().map(|&(i, d2)| {
+                let i = i as usize;
+                let score = if by_sensitivity {
+                    let si = self.sens[vi][i];
+                    d2 / (sq * sq + si * si).max(f64::MIN_POSITIVE)
+                } else {
+                    d2
+                };
+                (score, self.owners[vi][i])
+            }));
         }
         merged.sort_by(|a, b| a.0.total_cmp(&b.0));
         out.clear();
@@ -656,14 +696,16 @@ fn run_variants(
     let mut merged = Vec::with_capacity(5 * MAX_ORDERS * MAX_ORDERS);
     let mut best = Vec::with_capacity(5);
     let mut qkeys = Vec::with_capacity(MAX_ORDERS);
+    let mut qsens = Vec::with_capacity(MAX_ORDERS);
     for class in PolygonClass::ALL {
         progress(&format!(
             "retrieval: {class}: indexing {polygons} polygons in {} variants",
             variants.len()
         ));
         let index = ClassIndex::new(class, seed, polygons, queries, variants, &mut keyer);
-        // hits[variant][level] = (recall@1 hits, recall@5 hits)
-        let mut hits = vec![vec![(0usize, 0usize); levels.len()]; variants.len()];
+        // hits[variant][rank][level] = (recall@1 hits, recall@5 hits)
+        let mut hits =
+            vec![vec![vec![(0usize, 0usize); levels.len()]; RANKS.len()]; variants.len()];
         for (l, &sigma) in levels.iter().enumerate() {
             progress(&format!(
                 "retrieval: {class}: {queries} queries at noise {sigma} px"
@@ -672,35 +714,59 @@ fn run_variants(
                 index.perturbed(q, sigma, &mut noisy);
                 for (vi, &v) in variants.iter().enumerate() {
                     qkeys.clear();
-                    keyer.keys(&noisy, v, &mut qkeys);
-                    qkeys.retain(|k: &Key| k.iter().all(|x| x.is_finite()));
+                    qsens.clear();
+                    keyer.keys(&noisy, v, &mut qkeys, &mut qsens);
+                    let mut j = 0;
+                    while j < qkeys.len() {
+                        if qkeys[j].iter().all(|x| x.is_finite()) && qsens[j].is_finite() {
+                            j += 1;
+                        } else {
+                            qkeys.swap_remove(j);
+                            qsens.swap_remove(j);
+                        }
+                    }
                     if qkeys.is_empty() {
                         continue;
                     }
-                    index.ranked(vi, &qkeys, 5, &mut found, &mut merged, &mut best);
-                    let target = q as u32;
-                    if best.first() == Some(&target) {
-                        hits[vi][l].0 += 1;
-                    }
-                    if best.contains(&target) {
-                        hits[vi][l].1 += 1;
+                    for (ri, rank) in RANKS.iter().enumerate() {
+                        let by_sensitivity = *rank == "sensitivity";
+                        index.ranked(
+                            vi,
+                            &qkeys,
+                            &qsens,
+                            5,
+                            by_sensitivity,
+                            &mut found,
+                            &mut merged,
+                            &mut best,
+                        );
+                        let target = q as u32;
+                        if best.first() == Some(&target) {
+                            hits[vi][ri][l].0 += 1;
+                        }
+                        if best.contains(&target) {
+                            hits[vi][ri][l].1 += 1;
+                        }
                     }
                 }
             }
         }
         for (vi, &v) in variants.iter().enumerate() {
-            for (l, &sigma) in levels.iter().enumerate() {
-                let (h1, h5) = hits[vi][l];
-                rows.push(RetrievalRow {
-                    class,
-                    order: v.order(),
-                    permuted: v.permuted,
-                    signature: v.kind().name,
-                    noise_px: sigma,
-                    queries,
-                    recall_at_1: h1 as f64 / queries.max(1) as f64,
-                    recall_at_5: h5 as f64 / queries.max(1) as f64,
-                });
+            for (ri, &rank) in RANKS.iter().enumerate() {
+                for (l, &sigma) in levels.iter().enumerate() {
+                    let (h1, h5) = hits[vi][ri][l];
+                    rows.push(RetrievalRow {
+                        class,
+                        order: v.order(),
+                        permuted: v.permuted,
+                        signature: v.kind().name,
+                        rank,
+                        noise_px: sigma,
+                        queries,
+                        recall_at_1: h1 as f64 / queries.max(1) as f64,
+                        recall_at_5: h5 as f64 / queries.max(1) as f64,
+                    });
+                }
             }
         }
     }
@@ -796,13 +862,25 @@ pub fn key_diagnostics(options: &RetrievalOptions) -> Vec<KeyDiagnostic> {
     out
 }
 
-/// The rows of one class and variant, noise ascending.
+/// The rows of one class and variant, ranked by key distance, noise ascending.
 fn series<'a>(
     rows: &'a [RetrievalRow],
     class: PolygonClass,
     order: &str,
     permuted: bool,
     signature: &str,
+) -> Vec<&'a RetrievalRow> {
+    ranked_series(rows, class, order, permuted, signature, RANKS[0])
+}
+
+/// The rows of one class, variant and ranking, noise ascending.
+fn ranked_series<'a>(
+    rows: &'a [RetrievalRow],
+    class: PolygonClass,
+    order: &str,
+    permuted: bool,
+    signature: &str,
+    rank: &str,
 ) -> Vec<&'a RetrievalRow> {
     let mut s: Vec<&RetrievalRow> = rows
         .iter()
@@ -811,6 +889,7 @@ fn series<'a>(
                 && r.order == order
                 && r.permuted == permuted
                 && r.signature == signature
+                && r.rank == rank
         })
         .collect();
     s.sort_by(|a, b| a.noise_px.total_cmp(&b.noise_px));
@@ -868,7 +947,8 @@ pub fn census(options: &RetrievalOptions) -> Vec<ClassCensus> {
         .collect()
 }
 
-const CSV_HEADER: &str = "class,order,permuted,noise_px,queries,recall_at_1,recall_at_5,signature";
+const CSV_HEADER: &str =
+    "class,order,permuted,noise_px,queries,recall_at_1,recall_at_5,signature,rank";
 
 fn csv_text(rows: &[RetrievalRow]) -> String {
     let mut s = String::with_capacity(64 * (rows.len() + 1));
@@ -877,7 +957,7 @@ fn csv_text(rows: &[RetrievalRow]) -> String {
     for r in rows {
         let _ = writeln!(
             s,
-            "{},{},{},{},{},{:.4},{:.4},{}",
+            "{},{},{},{},{},{:.4},{:.4},{},{}",
             r.class,
             r.order,
             r.permuted,
@@ -885,7 +965,8 @@ fn csv_text(rows: &[RetrievalRow]) -> String {
             r.queries,
             r.recall_at_1,
             r.recall_at_5,
-            r.signature
+            r.signature,
+            r.rank
         );
     }
     s
@@ -920,32 +1001,42 @@ fn markdown_text(rows: &[RetrievalRow], options: &RetrievalOptions) -> String {
     );
     let _ = writeln!(
         s,
-        "| class | order | permuted | signature | tolerance (px) | recall@1 at {} px |",
+        "| class | order | permuted | signature | tolerance (px) | recall@1 at {} px | \
+         ranked by sensitivity: tolerance (px) | recall@1 at {} px |",
+        px(REPORT_NOISE_PX),
         px(REPORT_NOISE_PX)
     );
-    s.push_str("|---|---|---|---|---:|---:|\n");
+    s.push_str("|---|---|---|---|---:|---:|---:|---:|\n");
     for signature in SIGNATURES.map(|k| k.name) {
         for order in ORDERS {
             for permuted in [false, true] {
                 for class in PolygonClass::ALL {
-                    let ser = series(rows, class, order, permuted, signature);
-                    if ser.is_empty() {
-                        continue;
-                    }
-                    let tol = match tolerance(&ser, RECALL_TARGET) {
-                        None => "none".to_string(),
-                        Some(v) if v == top && ser.len() == options.noise_levels().len() => {
-                            format!("≥ {}", px(v))
+                    let cells = |rank| {
+                        let ser = ranked_series(rows, class, order, permuted, signature, rank);
+                        if ser.is_empty() {
+                            return None;
                         }
-                        Some(v) => px(v),
+                        let tol = match tolerance(&ser, RECALL_TARGET) {
+                            None => "none".to_string(),
+                            Some(v) if v == top && ser.len() == options.noise_levels().len() => {
+                                format!("≥ {}", px(v))
+                            }
+                            Some(v) => px(v),
+                        };
+                        let at = ser
+                            .iter()
+                            .find(|r| r.noise_px == REPORT_NOISE_PX)
+                            .map_or("n/a".to_string(), |r| format!("{:.2}", r.recall_at_1));
+                        Some(format!("{tol} | {at}"))
                     };
-                    let at = ser
-                        .iter()
-                        .find(|r| r.noise_px == REPORT_NOISE_PX)
-                        .map_or("n/a".to_string(), |r| format!("{:.2}", r.recall_at_1));
+                    let (Some(by_distance), Some(by_sensitivity)) =
+                        (cells(RANKS[0]), cells(RANKS[1]))
+                    else {
+                        continue;
+                    };
                     let _ = writeln!(
                         s,
-                        "| {class} | {order} | {} | {signature} | {tol} | {at} |",
+                        "| {class} | {order} | {} | {signature} | {by_distance} | {by_sensitivity} |",
                         if permuted { "yes" } else { "no" }
                     );
                 }
@@ -1239,7 +1330,10 @@ mod tests {
         // If the permutation (or the walk) were applied to one side only, the keys would
         // differ and recall would collapse.
         let rows = run_sized(5, 300, 60, &[0.0], &mut quiet());
-        assert_eq!(rows.len(), 4 * 2 * ORDERS.len() * SIGNATURES.len());
+        assert_eq!(
+            rows.len(),
+            4 * 2 * ORDERS.len() * SIGNATURES.len() * RANKS.len()
+        );
         for r in &rows {
             assert_eq!(r.recall_at_1, 1.0, "{r:?}");
             assert_eq!(r.recall_at_5, 1.0, "{r:?}");
@@ -1424,7 +1518,7 @@ mod tests {
         assert!(lines > 4);
         assert_eq!(
             rows.len(),
-            4 * 2 * ORDERS.len() * SIGNATURES.len() * QUICK_NOISE_LEVELS_PX.len()
+            4 * 2 * ORDERS.len() * SIGNATURES.len() * RANKS.len() * QUICK_NOISE_LEVELS_PX.len()
         );
         use PolygonClass::*;
         for class in PolygonClass::ALL {
@@ -1447,6 +1541,23 @@ mod tests {
                     "{class} {name}: {plain} -> {permuted}"
                 );
             }
+        }
+        // Ranking by predicted noise loses against plain distance with every harmonic.
+        for name in ["ratio-all", "sphere-all"] {
+            let mean = |rank| {
+                PolygonClass::ALL
+                    .iter()
+                    .map(|&c| {
+                        let s = ranked_series(&rows, c, "given", false, name, rank);
+                        s.iter().map(|r| r.recall_at_1).sum::<f64>() / s.len() as f64
+                    })
+                    .sum::<f64>()
+            };
+            let (by_distance, by_sensitivity) = (mean("distance"), mean("sensitivity"));
+            assert!(
+                by_sensitivity + 0.05 < by_distance,
+                "{name}: {by_distance} {by_sensitivity}"
+            );
         }
         // General and simple polygons stay ahead of convex and star-shaped ones.
         for name in ["ratio-all", "sphere-all"] {
@@ -1482,6 +1593,7 @@ mod tests {
             order: "given",
             permuted: false,
             signature: "ratio-1",
+            rank: "distance",
             noise_px,
             queries: 10,
             recall_at_1,
@@ -1519,12 +1631,12 @@ mod tests {
         let mut lines = csv.lines();
         assert_eq!(
             lines.next(),
-            Some("class,order,permuted,noise_px,queries,recall_at_1,recall_at_5,signature")
+            Some("class,order,permuted,noise_px,queries,recall_at_1,recall_at_5,signature,rank")
         );
         assert_eq!(lines.clone().count(), rows.len());
         assert_eq!(
             lines.next(),
-            Some("convex,given,false,0,40,1.0000,1.0000,ratio-1")
+            Some("convex,given,false,0,40,1.0000,1.0000,ratio-1,distance")
         );
         let md = std::fs::read_to_string(&paths[1]).unwrap();
         assert!(md.contains("| class | order | permuted | signature | tolerance (px) |"));
