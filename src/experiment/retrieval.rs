@@ -29,8 +29,10 @@
 //!      forward DFT of the vertices as complex numbers x + iy, taken relative to the first
 //!      vertex of the sequence) for j = 1 (`…-1`), j = 1, 2 (`…-1-2`) or j = 1 … 4 (`…-all`,
 //!      every informative harmonic of ten vertices), each mapped into the unit disc by
-//!      [`bounded`] (`ratio-…`, two coordinates per harmonic; the match pipeline's map) or onto
-//!      the unit sphere by [`spherical`] (`sphere-…`, three coordinates per harmonic), the
+//!      [`bounded`](crate::signatures::fourier::bounded) (`ratio-…`, two coordinates per
+//!      harmonic) or onto the unit sphere by
+//!      [`spherical`](crate::signatures::fourier::spherical) (`sphere-…`, three coordinates
+//!      per harmonic; the match pipeline's default, [`KeySpace::Sphere`]), the
 //!      coordinates of all harmonics laid side by side: keys of 2, 3, 4, 6, 8 and 12
 //!      dimensions.
 //! 3. **Index.** Per class and variant, the keys of all polygons go into one kiddo
@@ -79,7 +81,8 @@
 //!   simple and 40 px for general polygons (recall@1 at 25 px: 0.58, 0.63, 0.94, 1.00); with
 //!   the permutation 25, 25, 40 and 40 px. `ratio-all` (the same ratios in the disc) reaches
 //!   10, 10, 15, 25 px (permuted 15, 12, 25, 25). The sphere helps because the ratio of two
-//!   coefficients of similar spread is uniform on it ([`spherical`]), whereas the disc map
+//!   coefficients of similar spread is uniform on it
+//!   ([`spherical`](crate::signatures::fourier::spherical)), whereas the disc map
 //!   crowds large ratios against its rim.
 //! - **The ordering is the expected one with `sphere-all`**: convex least tolerant, then
 //!   star-shaped, simple, general, over seeds 1 to 4; convex and star-shaped are close (their
@@ -107,7 +110,7 @@
 
 use super::polygons::{self, PolygonClass};
 use super::ExperimentError;
-use crate::signatures::fourier::{bounded, key_sensitivity, spherical, KeySpace, RatioPlan};
+use crate::signatures::fourier::{key_sensitivity, KeySpace, RatioPlan};
 use crate::signatures::neighbourhood::{order_polygons, MAX_ORDERS};
 use crate::signatures::permutation::{apply, fixed_permutation};
 use crate::signatures::VertexOrder;
@@ -390,10 +393,7 @@ impl Keyer {
         let map = v.kind().map;
         let d = map.dims();
         for (k, &r) in self.ratios.iter().enumerate() {
-            match map {
-                KeySpace::Disc => key[d * k..d * k + d].copy_from_slice(&bounded(r)),
-                KeySpace::Sphere => key[d * k..d * k + d].copy_from_slice(&spherical(r)),
-            }
+            map.write(r, &mut key[d * k..d * k + d]);
         }
         (key, key_sensitivity(&self.buf, v.kind().harmonics, map))
     }

@@ -145,13 +145,21 @@ impl KeySpace {
         }
     }
 
+    /// Writes the coordinates of ratio `r` into `out`, which holds [`KeySpace::dims`] values.
+    #[inline]
+    pub fn write(self, r: Complex64, out: &mut [f64]) {
+        match self {
+            KeySpace::Disc => out.copy_from_slice(&bounded(r)),
+            KeySpace::Sphere => out.copy_from_slice(&spherical(r)),
+        }
+    }
+
     /// Appends the coordinates of ratio `r` to `key`.
     #[inline]
     pub fn push(self, r: Complex64, key: &mut Vec<f64>) {
-        match self {
-            KeySpace::Disc => key.extend_from_slice(&bounded(r)),
-            KeySpace::Sphere => key.extend_from_slice(&spherical(r)),
-        }
+        let start = key.len();
+        key.resize(start + self.dims(), 0.0);
+        self.write(r, &mut key[start..]);
     }
 
     /// Name in files and reports: `disc` or `sphere`.
@@ -337,6 +345,7 @@ mod tests {
             let (pa, pb) = (spherical(a), spherical(b));
             assert!((norm(pa) - 1.0).abs() < 1e-12);
             let chord = norm([pa[0] - pb[0], pa[1] - pb[1], pa[2] - pb[2]]);
+            // The chordal metric (Ahlfors, Complex Analysis, 3rd ed., ch. 1 — from memory).
             let expected =
                 2.0 * (a - b).norm() / ((1.0 + a.norm_sqr()) * (1.0 + b.norm_sqr())).sqrt();
             assert!((chord - expected).abs() < 1e-12, "{chord} {expected}");
