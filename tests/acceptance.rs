@@ -12,6 +12,9 @@
 //! TIEMARK_H (e.g. "1,2"), TIEMARK_LEAVE_OUT and TIEMARK_KEY_SPACE (disc or sphere) change
 //! the neighbours, harmonics, subset depth and key space of the signatures, to compare.
 
+#[path = "common/overrides.rs"]
+mod overrides;
+
 use rand::{Rng, SeedableRng};
 use rand_distr::{Distribution, Normal};
 use std::collections::HashSet;
@@ -44,25 +47,8 @@ fn airports_utm() -> Vec<[f64; 2]> {
 }
 
 fn config() -> MatchConfig {
-    let mut signatures = tiemark::signatures::SignatureChoice::default();
-    if let Some(k) = std::env::var("TIEMARK_K").ok().and_then(|v| v.parse().ok()) {
-        signatures.neighbours = Some(k);
-    }
-    if let Some(l) = std::env::var("TIEMARK_LEAVE_OUT")
-        .ok()
-        .and_then(|v| v.parse().ok())
-    {
-        signatures.leave_out = Some(l);
-    }
-    if let Ok(h) = std::env::var("TIEMARK_H") {
-        signatures.harmonics = h.split(',').map(|v| v.parse().unwrap()).collect();
-    }
-    if let Ok(space) = std::env::var("TIEMARK_KEY_SPACE") {
-        signatures.key_space = serde_json::from_value(serde_json::Value::String(space))
-            .expect("TIEMARK_KEY_SPACE must be disc or sphere");
-    }
     let mut config = MatchConfig::new("reference".into(), "target".into(), "unused".into());
-    config.signatures = signatures;
+    config.signatures = overrides::signature_choice();
     config
 }
 

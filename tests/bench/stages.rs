@@ -4,15 +4,20 @@
 //! `cargo bench --bench stages -- 100000` for chosen sizes. Prints one Markdown table row per
 //! size: seconds per stage, end to end, and the process's peak resident memory so far.
 //! Surveys: jittered grid, 28% missing on each side, 25% new, noise 1% of the spacing, rotation
-//! 37°, scale 2.7. Signature options: what the tool chooses for that survey size. `TIEMARK_K=5` changes the neighbours per signature, `TIEMARK_LEAVE_OUT=1`
-//! the subset depth, `TIEMARK_KEY_SPACE=disc` or `sphere` the key space; `TIEMARK_MISSING`, `TIEMARK_EXTRA`, `TIEMARK_NOISE` the surveys;
+//! 37°, scale 2.7. Signature options: what the tool chooses for that survey size,
+//! changed by `TIEMARK_K`, `TIEMARK_LEAVE_OUT`, `TIEMARK_H` and `TIEMARK_KEY_SPACE`
+//! (`tests/common/overrides.rs`); `TIEMARK_MISSING`, `TIEMARK_EXTRA`, `TIEMARK_NOISE` the
+//! surveys;
 //! `TIEMARK_BENCH_VERBOSE=1` prints the robust fit's steps with their times.
+
+#[path = "../common/overrides.rs"]
+mod overrides;
 
 use std::time::Instant;
 use tiemark::fit::{self, Similarity};
 use tiemark::matching;
 use tiemark::pipeline::config::MatchingParams;
-use tiemark::signatures::{self, SignatureChoice};
+use tiemark::signatures;
 use tiemark::spatial::{median_spacing, PointIndex};
 use tiemark::synth::{make_pair, SynthParams};
 
@@ -72,22 +77,7 @@ fn main() {
         let spacing = median_spacing(&p.reference, &ri, 10_000).expect("spacing");
         let t1 = Instant::now();
         // What the tool would choose for surveys of this size, unless overridden.
-        let mut choice = SignatureChoice::default();
-        if let Some(k) = std::env::var("TIEMARK_K").ok().and_then(|v| v.parse().ok()) {
-            choice.neighbours = Some(k);
-        }
-        if let Some(l) = std::env::var("TIEMARK_LEAVE_OUT")
-            .ok()
-            .and_then(|v| v.parse().ok())
-        {
-            choice.leave_out = Some(l);
-        }
-        match std::env::var("TIEMARK_KEY_SPACE").as_deref() {
-            Ok("disc") => choice.key_space = signatures::KeySpace::Disc,
-            Ok("sphere") => choice.key_space = signatures::KeySpace::Sphere,
-            Ok(other) => panic!("TIEMARK_KEY_SPACE must be disc or sphere (got {other})"),
-            Err(_) => {}
-        }
+        let choice = overrides::signature_choice();
         let params = choice.resolve(p.reference.len().min(p.target.len()));
         let rs = signatures::compute("reference", &p.reference, &ri, &params, &mut |_| {})
             .expect("signatures");
