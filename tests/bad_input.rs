@@ -140,6 +140,14 @@ struct Outcome {
     stderr: String,
 }
 
+/// Arguments of `tiemark match REFERENCE TARGET --target-crs local EXTRA… --out out`.
+fn local_match<'a>(reference: &'a str, target: &'a str, extra: &[&'a str]) -> Vec<&'a str> {
+    let mut args = vec!["match", reference, target, "--target-crs", "local"];
+    args.extend_from_slice(extra);
+    args.extend_from_slice(&["--out", "out"]);
+    args
+}
+
 /// Every file in a folder tree (relative path → bytes; folders → `None`).
 type Snapshot = BTreeMap<PathBuf, Option<Vec<u8>>>;
 
@@ -268,19 +276,11 @@ fn positive_control_matches_and_writes_four_files() {
     let site = Site::new();
     let (reference, target) = site.valid_pair();
     let inputs = site.snapshot();
-    let out = site.run(&[
-        "match",
+    let out = site.run(&local_match(
         reference,
         target,
-        "--target-crs",
-        "local",
-        "--target-id",
-        "id",
-        "--reference-id",
-        "name",
-        "--out",
-        "out",
-    ]);
+        &["--target-id", "id", "--reference-id", "name"],
+    ));
     assert_eq!(out.code, Some(0), "{out:#?}");
     assert!(!out.stdout.trim().is_empty(), "no summary on stdout");
     for f in [
@@ -348,15 +348,7 @@ fn missing_reference_file() {
     let site = Site::new();
     let (_, target) = site.valid_pair();
     site.expect_failure(
-        &[
-            "match",
-            "no-such-survey.geojson",
-            target,
-            "--target-crs",
-            "local",
-            "--out",
-            "out",
-        ],
+        &local_match("no-such-survey.geojson", target, &[]),
         2,
         &["no-such-survey.geojson", "no such file"],
     );
@@ -367,15 +359,7 @@ fn missing_target_file() {
     let site = Site::new();
     let (reference, _) = site.valid_pair();
     site.expect_failure(
-        &[
-            "match",
-            reference,
-            "no-such-survey.csv",
-            "--target-crs",
-            "local",
-            "--out",
-            "out",
-        ],
+        &local_match(reference, "no-such-survey.csv", &[]),
         2,
         &["no-such-survey.csv", "no such file"],
     );
@@ -387,15 +371,7 @@ fn text_file_named_gpkg() {
     let (_, target) = site.valid_pair();
     let reference = site.write("survey.gpkg", "id,x,y\nthis is not a GeoPackage\n");
     site.expect_failure(
-        &[
-            "match",
-            reference,
-            target,
-            "--target-crs",
-            "local",
-            "--out",
-            "out",
-        ],
+        &local_match(reference, target, &[]),
         2,
         &["survey.gpkg", "not a vector dataset"],
     );
@@ -410,15 +386,7 @@ fn garbage_geojson() {
         "{\"type\": \"FeatureCollection\", \"features\": [ {{{ 12 ]\n",
     );
     site.expect_failure(
-        &[
-            "match",
-            reference,
-            target,
-            "--target-crs",
-            "local",
-            "--out",
-            "out",
-        ],
+        &local_match(reference, target, &[]),
         2,
         &["broken.geojson", "not a vector dataset"],
     );
@@ -458,17 +426,7 @@ fn unknown_layer_lists_the_layers() {
         }
     }
     site.expect_failure(
-        &[
-            "match",
-            "survey.gpkg",
-            target,
-            "--target-crs",
-            "local",
-            "--reference-layer",
-            "nope",
-            "--out",
-            "out",
-        ],
+        &local_match("survey.gpkg", target, &["--reference-layer", "nope"]),
         2,
         &["survey.gpkg", "'nope'", "buildings", "trees"],
     );
@@ -479,17 +437,7 @@ fn unknown_id_field_lists_the_fields() {
     let site = Site::new();
     let (reference, target) = site.valid_pair();
     site.expect_failure(
-        &[
-            "match",
-            reference,
-            target,
-            "--target-crs",
-            "local",
-            "--reference-id",
-            "nope",
-            "--out",
-            "out",
-        ],
+        &local_match(reference, target, &["--reference-id", "nope"]),
         2,
         &["reference.geojson", "'nope'", "name", "kind"],
     );
@@ -501,15 +449,7 @@ fn empty_feature_collection() {
     let (_, target) = site.valid_pair();
     let reference = site.write("empty.geojson", geojson(&[], &[], Some(UTM33)));
     site.expect_failure(
-        &[
-            "match",
-            reference,
-            target,
-            "--target-crs",
-            "local",
-            "--out",
-            "out",
-        ],
+        &local_match(reference, target, &[]),
         2,
         &["empty.geojson", "no features with a geometry"],
     );
@@ -530,15 +470,7 @@ fn features_all_without_geometry() {
         ),
     );
     site.expect_failure(
-        &[
-            "match",
-            reference,
-            target,
-            "--target-crs",
-            "local",
-            "--out",
-            "out",
-        ],
+        &local_match(reference, target, &[]),
         2,
         &["nulls.geojson", "no features with a geometry", "3 skipped"],
     );
@@ -554,15 +486,7 @@ fn fewer_landmarks_than_one_neighbourhood() {
         geojson(&four, &reference_ids(4), Some(UTM33)),
     );
     site.expect_failure(
-        &[
-            "match",
-            reference,
-            target,
-            "--target-crs",
-            "local",
-            "--out",
-            "out",
-        ],
+        &local_match(reference, target, &[]),
         2,
         &["reference", "4 landmarks", "--neighbours"],
     );
@@ -596,17 +520,7 @@ fn csv_nan_coordinate() {
     let site = Site::new();
     let (reference, bad_id) = target_with_bad_row(&site, "target-nan.csv", 17, Some("nan"), None);
     site.expect_failure(
-        &[
-            "match",
-            reference,
-            "target-nan.csv",
-            "--target-crs",
-            "local",
-            "--target-id",
-            "id",
-            "--out",
-            "out",
-        ],
+        &local_match(reference, "target-nan.csv", &["--target-id", "id"]),
         2,
         &[
             "target-nan.csv",
@@ -623,17 +537,7 @@ fn csv_inf_coordinate() {
     let site = Site::new();
     let (reference, bad_id) = target_with_bad_row(&site, "target-inf.csv", 40, None, Some("-inf"));
     site.expect_failure(
-        &[
-            "match",
-            reference,
-            "target-inf.csv",
-            "--target-crs",
-            "local",
-            "--target-id",
-            "id",
-            "--out",
-            "out",
-        ],
+        &local_match(reference, "target-inf.csv", &["--target-id", "id"]),
         2,
         &[
             "target-inf.csv",
@@ -650,17 +554,7 @@ fn csv_overflowing_coordinate() {
     let site = Site::new();
     let (reference, bad_id) = target_with_bad_row(&site, "target-huge.csv", 3, Some("1e999"), None);
     site.expect_failure(
-        &[
-            "match",
-            reference,
-            "target-huge.csv",
-            "--target-crs",
-            "local",
-            "--target-id",
-            "id",
-            "--out",
-            "out",
-        ],
+        &local_match(reference, "target-huge.csv", &["--target-id", "id"]),
         2,
         &[
             "target-huge.csv",
@@ -683,15 +577,7 @@ fn csv_two_columns_for_one_axis() {
     }
     let target = site.write("two-x.csv", text);
     site.expect_failure(
-        &[
-            "match",
-            reference,
-            target,
-            "--target-crs",
-            "local",
-            "--out",
-            "out",
-        ],
+        &local_match(reference, target, &[]),
         2,
         &["two-x.csv", "'x'", "'X'", "rename"],
     );
@@ -709,15 +595,7 @@ fn csv_attribute_named_like_a_coordinate_is_not_taken_for_one() {
         text.push_str(&format!("{id},{},{},{}\n", k % 7, p[0], p[1]));
     }
     let target = site.write("with-n.csv", text);
-    let out = site.run(&[
-        "match",
-        reference,
-        target,
-        "--target-crs",
-        "local",
-        "--out",
-        "out",
-    ]);
+    let out = site.run(&local_match(reference, target, &[]));
     assert_eq!(out.code, Some(0), "{out:#?}");
     assert!(site.path("out/transform.json").is_file());
 }
@@ -732,17 +610,7 @@ fn duplicate_positions() {
     ids.push("r5-copy".into());
     let reference = site.write("dup.geojson", geojson(&r, &ids, Some(UTM33)));
     site.expect_failure(
-        &[
-            "match",
-            reference,
-            target,
-            "--target-crs",
-            "local",
-            "--reference-id",
-            "name",
-            "--out",
-            "out",
-        ],
+        &local_match(reference, target, &["--reference-id", "name"]),
         2,
         &["dup.geojson", "duplicated positions", "'r5'", "'r5-copy'"],
     );
@@ -768,15 +636,7 @@ fn all_points_collinear() {
             geojson(&line, &reference_ids(line.len()), Some(UTM33)),
         );
         site.expect_failure(
-            &[
-                "match",
-                &name,
-                target,
-                "--target-crs",
-                "local",
-                "--out",
-                "out",
-            ],
+            &local_match(&name, target, &[]),
             2,
             &[&name, "one straight line"],
         );
@@ -793,15 +653,7 @@ fn reference_csv_without_crs() {
         csv_text(&csv_rows(&r, &reference_ids(r.len()))),
     );
     site.expect_failure(
-        &[
-            "match",
-            reference,
-            target,
-            "--target-crs",
-            "local",
-            "--out",
-            "out",
-        ],
+        &local_match(reference, target, &[]),
         2,
         &["reference.csv", "declares no CRS", "--reference-crs"],
     );
@@ -847,29 +699,13 @@ fn output_folder_not_empty() {
     let (reference, target) = site.valid_pair();
     site.write("out/keep.txt", "precious\n");
     site.expect_failure(
-        &[
-            "match",
-            reference,
-            target,
-            "--target-crs",
-            "local",
-            "--out",
-            "out",
-        ],
+        &local_match(reference, target, &[]),
         2,
         &["out", "not empty", "--force"],
     );
     // Refused before any work: before the (here missing) inputs are even looked at.
     site.expect_failure(
-        &[
-            "match",
-            "no-such-survey.geojson",
-            target,
-            "--target-crs",
-            "local",
-            "--out",
-            "out",
-        ],
+        &local_match("no-such-survey.geojson", target, &[]),
         2,
         &["out", "not empty", "--force"],
     );
@@ -880,17 +716,7 @@ fn neighbours_too_small() {
     let site = Site::new();
     let (reference, target) = site.valid_pair();
     site.expect_failure(
-        &[
-            "match",
-            reference,
-            target,
-            "--target-crs",
-            "local",
-            "--neighbours",
-            "2",
-            "--out",
-            "out",
-        ],
+        &local_match(reference, target, &["--neighbours", "2"]),
         2,
         &["--neighbours", "(got 2)"],
     );
@@ -901,16 +727,7 @@ fn negative_tolerance() {
     let site = Site::new();
     let (reference, target) = site.valid_pair();
     site.expect_failure(
-        &[
-            "match",
-            reference,
-            target,
-            "--target-crs",
-            "local",
-            "--tolerance=-1",
-            "--out",
-            "out",
-        ],
+        &local_match(reference, target, &["--tolerance=-1"]),
         2,
         &["tolerance", "positive", "(got -1)"],
     );
@@ -923,17 +740,7 @@ fn negative_tolerance_as_separate_argument() {
     let site = Site::new();
     let (reference, target) = site.valid_pair();
     site.expect_failure(
-        &[
-            "match",
-            reference,
-            target,
-            "--target-crs",
-            "local",
-            "--tolerance",
-            "-1",
-            "--out",
-            "out",
-        ],
+        &local_match(reference, target, &["--tolerance", "-1"]),
         2,
         &["tolerance", "positive", "(got -1)"],
     );
