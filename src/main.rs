@@ -301,8 +301,8 @@ fn run_experiment(e: ExperimentCommand, quiet: bool) -> ExitCode {
     let written = match e {
         ExperimentCommand::Retrieval { out, quick } => {
             let options = retrieval::RetrievalOptions { quick, seed: 1 };
-            let rows = retrieval::run_retrieval(&options, &mut say);
-            retrieval::write_retrieval(&rows, &options, &out)
+            let run = retrieval::run_retrieval(&options, &mut say);
+            retrieval::write_retrieval(&run, &options, &out)
         }
         ExperimentCommand::Landmarks {
             out,

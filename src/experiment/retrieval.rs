@@ -516,18 +516,22 @@ pub fn generate_class(class: PolygonClass, count: usize, seed: u64) -> Vec<Vec<[
         .collect()
 }
 
+/// What a run measured.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Retrieval {
+    /// Scores, grouped by class ([`PolygonClass::ALL`] order), then order, permutation,
+    /// signature and ranking, with noise ascending within a group.
+    pub rows: Vec<RetrievalRow>,
+    /// Key spacing and noise sensitivity per class and variant, from the same indexes.
+    pub diagnostics: Vec<KeyDiagnostic>,
+}
+
 /// Runs the experiment (module doc). `progress` receives one line per class and noise level.
-///
-/// Rows come grouped by class ([`PolygonClass::ALL`] order), then order, permutation and
-/// signature, with noise ascending within a group.
 ///
 /// # Panics
 /// When a generated polygon has a non-finite key or kiddo refuses the keys (bugs, not input
 /// errors: there is no user input).
-pub fn run_retrieval(
-    options: &RetrievalOptions,
-    progress: &mut dyn FnMut(&str),
-) -> Vec<RetrievalRow> {
+pub fn run_retrieval(options: &RetrievalOptions, progress: &mut dyn FnMut(&str)) -> Retrieval {
     run_sized(
         options.seed,
         options.polygons_per_class(),
@@ -677,7 +681,7 @@ fn run_sized(
     queries: usize,
     levels: &[f64],
     progress: &mut dyn FnMut(&str),
-) -> Vec<RetrievalRow> {
+) -> Retrieval {
     run_variants(seed, polygons, queries, levels, &Variant::all(), progress)
 }
 
@@ -688,9 +692,10 @@ fn run_variants(
     levels: &[f64],
     variants: &[Variant],
     progress: &mut dyn FnMut(&str),
-) -> Vec<RetrievalRow> {
+) -> Retrieval {
     let mut keyer = Keyer::new(VERTICES);
     let mut rows = Vec::with_capacity(PolygonClass::ALL.len() * variants.len() * levels.len());
+    let mut diagnostics = Vec::with_capacity(PolygonClass::ALL.len() * variants.len());
     let mut noisy = Vec::with_capacity(VERTICES);
     let mut found = Vec::with_capacity(5 * MAX_ORDERS);
     let mut merged = Vec::with_capacity(5 * MAX_ORDERS * MAX_ORDERS);
@@ -769,8 +774,9 @@ fn run_variants(
                 }
             }
         }
+        diagnostics.extend(diagnose(class, &index, variants, queries, &mut keyer));
     }
-    rows
+    Retrieval { rows, diagnostics }
 }
 
 /// Why a class tolerates the noise it does: how crowded its keys are and how far noise moves
@@ -805,59 +811,52 @@ fn median(mut v: Vec<f64>) -> f64 {
     }
 }
 
-/// Key spacing and noise sensitivity per class and variant, for the polygons and noise draws
-/// of a run with `options` (recomputed from the seed; deterministic). A query whose key at
-/// 1 px is not finite is left out of the median.
-pub fn key_diagnostics(options: &RetrievalOptions) -> Vec<KeyDiagnostic> {
-    let variants = Variant::all();
-    let mut keyer = Keyer::new(VERTICES);
-    let (polygons, queries) = (options.polygons_per_class(), options.queries_per_class());
-    let mut out = Vec::with_capacity(PolygonClass::ALL.len() * variants.len());
+/// Key spacing and noise sensitivity of one class's index, per variant, from the run's own
+/// polygons and noise draws. A query whose key at 1 px is not finite is left out of the
+/// median.
+fn diagnose(
+    class: PolygonClass,
+    index: &ClassIndex,
+    variants: &[Variant],
+    queries: usize,
+    keyer: &mut Keyer,
+) -> Vec<KeyDiagnostic> {
     let mut noisy = Vec::with_capacity(VERTICES);
     let mut found = Vec::with_capacity(1 + MAX_ORDERS);
-    for class in PolygonClass::ALL {
-        let index = ClassIndex::new(
+    let mut out = Vec::with_capacity(variants.len());
+    for (vi, &v) in variants.iter().enumerate() {
+        let (keys, owners) = (&index.keys[vi], &index.owners[vi]);
+        // The nearest key of another polygon (an ambiguity-aware polygon's other orders do
+        // not count).
+        let spacing: Vec<f64> = keys
+            .iter()
+            .zip(owners)
+            .filter_map(|(k, &own)| {
+                index.trees[vi].nearest(k, 1 + MAX_ORDERS, &mut found);
+                found
+                    .iter()
+                    .find(|f| owners[f.0 as usize] != own)
+                    .map(|f| f.1.sqrt())
+            })
+            .collect();
+        // First (plain-walk) key of the noisy query against its original's first key.
+        let shift: Vec<f64> = (0..queries)
+            .filter_map(|q| {
+                index.perturbed(q, 1.0, &mut noisy);
+                let k = keyer.key(&noisy, v);
+                let first = &keys[owners.partition_point(|&o| o < q as u32)];
+                let d2: f64 = (0..v.dims()).map(|d| (k[d] - first[d]).powi(2)).sum();
+                d2.is_finite().then(|| d2.sqrt())
+            })
+            .collect();
+        out.push(KeyDiagnostic {
             class,
-            options.seed,
-            polygons,
-            queries,
-            &variants,
-            &mut keyer,
-        );
-        for (vi, &v) in variants.iter().enumerate() {
-            let (keys, owners) = (&index.keys[vi], &index.owners[vi]);
-            // The nearest key of another polygon (an ambiguity-aware polygon's other orders
-            // do not count).
-            let spacing: Vec<f64> = keys
-                .iter()
-                .zip(owners)
-                .filter_map(|(k, &own)| {
-                    index.trees[vi].nearest(k, 1 + MAX_ORDERS, &mut found);
-                    found
-                        .iter()
-                        .find(|f| owners[f.0 as usize] != own)
-                        .map(|f| f.1.sqrt())
-                })
-                .collect();
-            // First (plain-walk) key of the noisy query against its original's first key.
-            let shift: Vec<f64> = (0..queries)
-                .filter_map(|q| {
-                    index.perturbed(q, 1.0, &mut noisy);
-                    let k = keyer.key(&noisy, v);
-                    let first = &keys[owners.partition_point(|&o| o < q as u32)];
-                    let d2: f64 = (0..v.dims()).map(|d| (k[d] - first[d]).powi(2)).sum();
-                    d2.is_finite().then(|| d2.sqrt())
-                })
-                .collect();
-            out.push(KeyDiagnostic {
-                class,
-                order: v.order(),
-                permuted: v.permuted,
-                signature: v.kind().name,
-                median_spacing: median(spacing),
-                median_shift_1px: median(shift),
-            });
-        }
+            order: v.order(),
+            permuted: v.permuted,
+            signature: v.kind().name,
+            median_spacing: median(spacing),
+            median_shift_1px: median(shift),
+        });
     }
     out
 }
@@ -976,7 +975,8 @@ fn px(v: f64) -> String {
     format!("{v}")
 }
 
-fn markdown_text(rows: &[RetrievalRow], options: &RetrievalOptions) -> String {
+fn markdown_text(run: &Retrieval, options: &RetrievalOptions) -> String {
+    let rows = &run.rows;
     let levels: Vec<String> = options.noise_levels().iter().map(|&v| px(v)).collect();
     let top = options.noise_levels().last().copied().unwrap_or(0.0);
     let mut s = String::new();
@@ -1055,7 +1055,7 @@ fn markdown_text(rows: &[RetrievalRow], options: &RetrievalOptions) -> String {
         "| class | order | permuted | signature | key spacing | key shift at 1 px | spacing ÷ shift (px) |\n\
          |---|---|---|---|---:|---:|---:|\n",
     );
-    let diagnostics = key_diagnostics(options);
+    let diagnostics = &run.diagnostics;
     for signature in SIGNATURES.map(|k| k.name) {
         for order in ORDERS {
             for permuted in [false, true] {
@@ -1260,10 +1260,11 @@ fn draw_plot(
 /// Everything is rendered in memory first; each file is then written under a temporary name
 /// and renamed, so a failure leaves no partial result file (temporary files are removed).
 pub fn write_retrieval(
-    rows: &[RetrievalRow],
+    run: &Retrieval,
     options: &RetrievalOptions,
     out_dir: &Path,
 ) -> Result<Vec<PathBuf>, ExperimentError> {
+    let rows = &run.rows;
     let io = |path: &Path| {
         let path = path.to_path_buf();
         move |source: std::io::Error| ExperimentError::Io { path, source }
@@ -1276,7 +1277,7 @@ pub fn write_retrieval(
     })?;
     let files = [
         (out_dir.join("retrieval.csv"), csv_text(rows)),
-        (out_dir.join("retrieval.md"), markdown_text(rows, options)),
+        (out_dir.join("retrieval.md"), markdown_text(run, options)),
         (svg_path, svg),
     ];
     let temp = |p: &Path| {
@@ -1329,7 +1330,7 @@ mod tests {
     fn noise_free_queries_retrieve_themselves_in_every_variant() {
         // If the permutation (or the walk) were applied to one side only, the keys would
         // differ and recall would collapse.
-        let rows = run_sized(5, 300, 60, &[0.0], &mut quiet());
+        let rows = run_sized(5, 300, 60, &[0.0], &mut quiet()).rows;
         assert_eq!(
             rows.len(),
             4 * 2 * ORDERS.len() * SIGNATURES.len() * RANKS.len()
@@ -1443,7 +1444,7 @@ mod tests {
             "{branched} of 300 branched"
         );
         let plain = Variant { order: 1, ..v };
-        let rows = run_variants(2, 2000, 100, &[3.0, 7.0], &[plain, v], &mut quiet());
+        let rows = run_variants(2, 2000, 100, &[3.0, 7.0], &[plain, v], &mut quiet()).rows;
         for class in PolygonClass::ALL {
             let r = |order| {
                 series(&rows, class, order, false, "sphere-all")
@@ -1480,7 +1481,8 @@ mod tests {
             &FULL_NOISE_LEVELS_PX,
             &variants,
             &mut quiet(),
-        );
+        )
+        .rows;
         use PolygonClass::*;
         let [convex, star, simple, general] =
             [Convex, Star, Simple, General].map(|c| score(&rows, c, false, "sphere-all"));
@@ -1514,7 +1516,7 @@ mod tests {
             seed: 1,
         };
         let mut lines = 0;
-        let rows = run_retrieval(&options, &mut |_| lines += 1);
+        let rows = run_retrieval(&options, &mut |_| lines += 1).rows;
         assert!(lines > 4);
         assert_eq!(
             rows.len(),
@@ -1618,10 +1620,11 @@ mod tests {
             quick: true,
             seed: 1,
         };
-        let rows = run_sized(1, 200, 40, &QUICK_NOISE_LEVELS_PX, &mut quiet());
+        let run = run_sized(1, 200, 40, &QUICK_NOISE_LEVELS_PX, &mut quiet());
+        let rows = &run.rows;
         let dir = tempfile::tempdir().unwrap();
         let out = dir.path().join("nested").join("out");
-        let paths = write_retrieval(&rows, &options, &out).unwrap();
+        let paths = write_retrieval(&run, &options, &out).unwrap();
         let names: Vec<String> = paths
             .iter()
             .map(|p| p.file_name().unwrap().to_string_lossy().into_owned())
@@ -1672,14 +1675,14 @@ mod tests {
             quick: true,
             seed: 1,
         };
-        let rows = run_sized(1, 50, 5, &[0.0], &mut quiet());
-        match write_retrieval(&rows, &options, &file) {
+        let run = run_sized(1, 50, 5, &[0.0], &mut quiet());
+        match write_retrieval(&run, &options, &file) {
             Err(ExperimentError::Io { path, .. }) => assert_eq!(path, file),
             other => panic!("expected an I/O error, got {other:?}"),
         }
     }
 
-    /// The full run behind the figures in the report (release mode, a few seconds):
+    /// The full run behind the figures in the report (release mode, under a minute):
     /// `TIEMARK_RETRIEVAL_OUT=dir cargo test --release --lib retrieval::tests::full_run -- --ignored --nocapture`
     #[test]
     #[ignore]
@@ -1689,15 +1692,15 @@ mod tests {
             seed: 1,
         };
         let start = std::time::Instant::now();
-        let rows = run_retrieval(&options, &mut |line| eprintln!("{line}"));
-        let run = start.elapsed();
+        let run = run_retrieval(&options, &mut |line| eprintln!("{line}"));
+        let took = start.elapsed();
         let out = std::env::var_os("TIEMARK_RETRIEVAL_OUT")
             .map(PathBuf::from)
             .unwrap_or_else(|| std::env::temp_dir().join("tiemark-retrieval"));
-        let paths = write_retrieval(&rows, &options, &out).unwrap();
+        let paths = write_retrieval(&run, &options, &out).unwrap();
         eprintln!(
             "run {:.2} s, total {:.2} s: {paths:?}",
-            run.as_secs_f64(),
+            took.as_secs_f64(),
             start.elapsed().as_secs_f64()
         );
         println!("{}", std::fs::read_to_string(&paths[1]).unwrap());
