@@ -9,7 +9,7 @@
 //! | stage | module | in | out |
 //! |---|---|---|---|
 //! | 1 | [`ingest`] | a GDAL vector dataset | [`ingest::LandmarkSet`]: ids, positions, CRS |
-//! | 2 | [`landmarks`] | two landmark sets, CRS choices | [`landmarks::WorkingFrame`]: both in one projected CRS |
+//! | 2 | [`frame`] | two landmark sets, CRS choices | [`frame::WorkingFrame`]: both in one projected CRS |
 //! | 3 | [`signatures`] | positions | [`signatures::Signatures`]: one invariant key per neighbourhood |
 //! | 4 | [`matching`] | two signature sets | [`matching::Candidate`]s |
 //! | 5 | [`fit`] | candidates, positions | [`fit::FitOutcome`]: transform, control points, significance |
@@ -26,8 +26,8 @@
 pub mod emit;
 pub mod experiment;
 pub mod fit;
+pub mod frame;
 pub mod ingest;
-pub mod landmarks;
 pub mod matching;
 pub mod pipeline;
 pub mod report;

@@ -5,7 +5,7 @@
 //! the cautions.
 
 use crate::fit::Rejection;
-use crate::landmarks::WorkingFrame;
+use crate::frame::WorkingFrame;
 use crate::pipeline::{MatchConfig, MatchResult};
 use std::fmt::Write;
 use std::path::PathBuf;

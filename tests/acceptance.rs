@@ -19,7 +19,7 @@ use rand::{Rng, SeedableRng};
 use rand_distr::{Distribution, Normal};
 use std::collections::HashSet;
 use tiemark::fit::Similarity;
-use tiemark::landmarks::crs::{Converter, Crs};
+use tiemark::frame::crs::{Converter, Crs};
 use tiemark::pipeline::config::MatchConfig;
 use tiemark::pipeline::progress::Progress;
 use tiemark::pipeline::{solve_points, Solved};

@@ -9,7 +9,7 @@ use std::collections::{HashMap, HashSet};
 use std::path::{Path, PathBuf};
 use std::process::Command;
 use tiemark::fit::Similarity;
-use tiemark::landmarks::crs::{Converter, Crs};
+use tiemark::frame::crs::{Converter, Crs};
 
 fn root() -> PathBuf {
     PathBuf::from(env!("CARGO_MANIFEST_DIR"))

@@ -26,7 +26,7 @@ pub fn transform_document(result: &MatchResult) -> serde_json::Value {
         let q = result.frame.target[p.target as usize];
         [a[0] + q[0] / n, a[1] + q[1] / n]
     });
-    let crs_doc = |c: &crate::landmarks::crs::Crs| json!({"authority": c.authority, "name": c.name, "wkt": c.wkt});
+    let crs_doc = |c: &crate::frame::crs::Crs| json!({"authority": c.authority, "name": c.name, "wkt": c.wkt});
     json!({
         "tool": "tiemark",
         "version": env!("CARGO_PKG_VERSION"),

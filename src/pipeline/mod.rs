@@ -12,7 +12,7 @@ pub use config::{ConfigError, MatchConfig};
 use crate::emit::{self, EmitError};
 use crate::fit::{self, FitError, FitOutcome, Rejection, Solution};
 use crate::ingest::{self, IngestError, IngestOptions, LandmarkSet};
-use crate::landmarks::{self, FrameError, FrameOptions, WorkingFrame};
+use crate::frame::{self, FrameError, FrameOptions, WorkingFrame};
 use crate::matching;
 use crate::signatures::{self, SignatureError};
 use crate::spatial::{median_spacing, PointIndex};
@@ -119,7 +119,7 @@ pub fn run_match(config: &MatchConfig, quiet: bool) -> Result<MatchOutcome, Erro
         ingest::read_landmarks(&config.reference.path, &ingest_options(&config.reference))?;
     let target = ingest::read_landmarks(&config.target.path, &ingest_options(&config.target))?;
     spin.finish_and_clear();
-    let frame = landmarks::working_frame(
+    let frame = frame::working_frame(
         &reference,
         &target,
         &FrameOptions {

@@ -1,4 +1,4 @@
-//! Stage 2 — landmarks in one working frame.
+//! Stage 2 — the working frame: both surveys in one projected CRS.
 //!
 //! **In:** the reference and target [`LandmarkSet`]s and [`FrameOptions`] (CRS overrides,
 //! optional working CRS).
