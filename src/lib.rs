@@ -12,24 +12,32 @@
 //! | 2 | [`frame`] | two landmark sets, CRS choices | [`frame::WorkingFrame`]: both in one projected CRS |
 //! | 3 | [`signatures`] | positions | [`signatures::Signatures`]: one invariant key per neighbourhood |
 //! | 4 | [`matching`] | two signature sets | [`matching::Candidate`]s |
-//! | 5 | [`fit`] | candidates, positions | [`fit::FitOutcome`]: transform, control points, significance |
-//! | 6 | [`emit`], [`report`] | a [`pipeline::MatchResult`] | control-point files, transform, report |
+//! | 5 | [`fit`] | candidates, positions | [`fit::Solution`] (transform, control points, significance) or [`fit::Rejection`] |
+//! | 6 | [`emit`], [`report`] | an [`outcome::MatchOutcome`] | control-point files, transform, report |
 //!
-//! [`pipeline`] holds the configuration shared by the command line and pipeline files, and
-//! runs the stages in order. [`synth`] makes seeded synthetic surveys for tests, benchmarks
-//! and experiments.
+//! [`engine`] runs stages 1-5 in order and returns a [`outcome::MatchOutcome`]; it writes
+//! nothing ([`engine::match_surveys`]; [`engine::solve_points`] for points already in a working
+//! frame). [`config`] holds the configuration shared by the command line and pipeline files,
+//! every option with its one default. [`progress`] is how stages report progress. The writers
+//! ([`emit`], [`report`]) sit on top of the outcome, never the other way round. [`synth`] makes
+//! seeded synthetic surveys for tests, benchmarks and experiments; [`experiment`] (cargo feature
+//! `experiments`) measures the signature stage.
 //!
 //! Automatically found control points must be verified against independent checkpoints
 //! before use; legal or engineering survey work defers to local regulations and licensed
 //! surveyors.
 
+pub mod config;
 pub mod emit;
+pub mod engine;
+#[cfg(feature = "experiments")]
 pub mod experiment;
 pub mod fit;
 pub mod frame;
 pub mod ingest;
 pub mod matching;
-pub mod pipeline;
+pub mod outcome;
+pub mod progress;
 pub mod report;
 pub mod signatures;
 pub mod spatial;

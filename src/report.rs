@@ -1,12 +1,11 @@
 //! Stage 6 (text) — the report: a plain-text summary for the terminal and `report.txt`.
 //!
-//! **In:** a [`MatchResult`] (or a rejection). **Out:** text: counts, the transform with its
-//! standard errors, RMSE, how well the control points cover the overlap, the significance, and
-//! the cautions.
+//! **In:** a [`MatchOutcome`]. **Out:** text: counts, the transform with its standard errors,
+//! RMSE, how well the control points cover the overlap, the significance, and the cautions; or,
+//! for a rejected match, why (the robust fit's [`RejectReason`] put into words) and what to try.
 
-use crate::fit::Rejection;
-use crate::frame::WorkingFrame;
-use crate::pipeline::{MatchConfig, MatchResult};
+use crate::fit::{RejectReason, Rejection, Solution};
+use crate::outcome::MatchOutcome;
 use std::fmt::Write;
 use std::path::PathBuf;
 
@@ -19,13 +18,7 @@ pub fn coverage(points: &[[f64; 2]]) -> (f64, usize) {
     if points.is_empty() {
         return (0.0, 0);
     }
-    let (mut lo, mut hi) = ([f64::INFINITY; 2], [f64::NEG_INFINITY; 2]);
-    for p in points {
-        for d in 0..2 {
-            lo[d] = lo[d].min(p[d]);
-            hi[d] = hi[d].max(p[d]);
-        }
-    }
+    let crate::spatial::Extent { min: lo, max: hi } = crate::spatial::Extent::of(points);
     let cell = |p: &[f64; 2], d: usize, n: f64| {
         (((p[d] - lo[d]) / (hi[d] - lo[d]).max(1e-12)) * n).min(n - 1.0) as usize
     };
@@ -41,9 +34,16 @@ pub fn coverage(points: &[[f64; 2]]) -> (f64, usize) {
     )
 }
 
+/// The summary of a match: [`accepted`] or [`rejection`].
+pub fn summary(r: &MatchOutcome) -> String {
+    match &r.fit {
+        Ok(s) => accepted(r, s),
+        Err(rejection) => self::rejection(r, rejection),
+    }
+}
+
 /// The summary of an accepted match.
-pub fn summary(r: &MatchResult) -> String {
-    let s = &r.solution;
+pub fn accepted(r: &MatchOutcome, s: &Solution) -> String {
     let f = &s.fit;
     let t = f.transform;
     let mpu = r.frame.metres_per_unit();
@@ -102,9 +102,13 @@ pub fn summary(r: &MatchResult) -> String {
         );
     }
     if r.config.fit.tolerance_m.is_none() {
-        let _ = writeln!(o, "tolerance        search {:.3} m (a quarter of the reference's median spacing); inliers {:.3} m (99.9% of the residual spread)", s.search_tolerance * mpu, s.tolerance * mpu);
+        let _ = writeln!(o, "tolerance        search {:.3} m (a quarter of the reference's median spacing); inliers {:.3} m (99.9% of the residual spread)", s.search_tolerance * mpu, s.inlier_tolerance * mpu);
     } else {
-        let _ = writeln!(o, "tolerance        {:.3} m (as given)", s.tolerance * mpu);
+        let _ = writeln!(
+            o,
+            "tolerance        {:.3} m (as given)",
+            s.inlier_tolerance * mpu
+        );
     }
     let _ = writeln!(o);
     let _ = writeln!(
@@ -139,7 +143,7 @@ pub fn summary(r: &MatchResult) -> String {
     let _ = writeln!(o, "spread           {:.0}% of a 4x4 grid over the control points' extent; fewest in a quadrant: {}", cov * 100.0, minq);
     let sig = &s.significance;
     let _ = writeln!(o, "significance     {} of {} covered target landmarks paired; chance would pair {:.1}%; expected false detections < 10^{:.0}", sig.inliers, sig.trials, 100.0 * sig.chance_rate_poisson.max(sig.chance_rate_decoys), sig.log10_false_alarms.ceil());
-    let c = &r.counts;
+    let c = &r.search;
     let _ = writeln!(
         o,
         "signatures       {} reference, {} target ({} neighbours, {} order, leave-out {}, {} keys); {} candidates; {} RANSAC rounds",
@@ -161,14 +165,28 @@ pub fn with_files(summary: &str, files: &[PathBuf]) -> String {
     o
 }
 
+/// Why no transform was accepted, in words.
+pub fn reason(r: &RejectReason) -> String {
+    match *r {
+        RejectReason::NoHypothesis => "no candidate correspondence produced a transform: the neighbourhoods of the two surveys never agreed".into(),
+        RejectReason::ChanceOnSubset { paired, sampled, chance_rate } => format!(
+            "the best transform pairs {paired} of {sampled} sampled landmarks, which chance alone explains (chance rate {:.1}%)",
+            100.0 * chance_rate
+        ),
+        RejectReason::TooFewControlPoints { paired, required } => format!(
+            "the best transform pairs only {paired} landmarks (at least {required} are required)"
+        ),
+        RejectReason::NotSignificant { paired, trials, chance_rate, log10_false_alarms, level } => format!(
+            "the best transform pairs {paired} of {trials} landmarks, which chance alone explains (chance rate {:.1}%, expected false detections 10^{log10_false_alarms:.1} ≥ {level})",
+            100.0 * chance_rate
+        ),
+        RejectReason::DegenerateControlPoints => "the control points are degenerate (all at one place)".into(),
+    }
+}
+
 /// The summary of a run that found no consistent transform.
-pub fn rejection(
-    cfg: &MatchConfig,
-    frame: &WorkingFrame,
-    r: &Rejection,
-    spacing: f64,
-    counts: &crate::pipeline::Counts,
-) -> String {
+pub fn rejection(r: &MatchOutcome, rejection: &Rejection) -> String {
+    let (cfg, frame, counts) = (&r.config, &r.frame, &r.search);
     let mpu = frame.metres_per_unit();
     let mut o = String::new();
     let _ = writeln!(
@@ -191,10 +209,10 @@ pub fn rejection(
     );
     let _ = writeln!(o, "working    {}", frame.crs.label());
     let _ = writeln!(o);
-    let _ = writeln!(o, "why: {}", r.reason);
-    let _ = writeln!(o, "tolerance {:.3} m; reference median spacing {:.3} m; {} reference and {} target signatures; {} candidates; {} RANSAC rounds", r.tolerance * mpu, spacing * mpu, counts.reference_signatures, counts.target_signatures, counts.candidates, r.ransac_rounds);
+    let _ = writeln!(o, "why: {}", reason(&rejection.reason));
+    let _ = writeln!(o, "tolerance {:.3} m; reference median spacing {:.3} m; {} reference and {} target signatures; {} candidates; {} RANSAC rounds", rejection.search_tolerance * mpu, counts.reference_spacing * mpu, counts.reference_signatures, counts.target_signatures, counts.candidates, rejection.ransac_rounds);
     let _ = writeln!(o);
-    let _ = writeln!(o, "No control points were written. If the surveys should match: check that they cover the same place (CRS of each file), that the landmarks are the same kind of feature, and try --tolerance with the expected disagreement in metres, or more --neighbours.");
+    let _ = writeln!(o, "No control points were written. If the surveys should match: check that they cover the same place (CRS of each file), that the landmarks are the same kind of feature, and try fit.tolerance_m with the expected disagreement in metres, or more signatures.neighbours.");
     o
 }
 

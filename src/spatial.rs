@@ -1,5 +1,7 @@
-//! Small spatial helpers shared by the stages: a k-d tree over points, spatial ordering of
-//! queries, and brute-force oracles for tests.
+//! Small spatial helpers shared by the stages: a k-d tree over points ([`PointIndex`]), a
+//! survey's points with their tree and Morton order ([`Survey`]), spatial ordering of queries,
+//! bounding boxes ([`Extent`]) and the median spacing. The k-d tree is checked against brute
+//! force in this file's tests.
 //!
 //! kiddo's `SquaredEuclidean` metric returns *squared* distances; every function here says
 //! whether it takes or gives squared values.
@@ -64,16 +66,78 @@ impl PointIndex {
     }
 }
 
+/// One survey's landmarks in the working frame with what every stage reuses: their k-d tree
+/// and their Morton order (computed once per run).
+pub struct Survey<'a> {
+    /// Positions, working frame.
+    pub points: &'a [[f64; 2]],
+    /// k-d tree of `points`.
+    pub index: &'a PointIndex,
+    /// Indices of `points` in Morton order ([`morton_order`]).
+    pub order: &'a [u32],
+}
+
+/// An axis-aligned bounding box.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Extent {
+    /// Smallest x and y.
+    pub min: [f64; 2],
+    /// Largest x and y.
+    pub max: [f64; 2],
+}
+
+impl Extent {
+    /// The bounding box of `points`; for an empty slice min is +∞ and max −∞.
+    pub fn of<'a>(points: impl IntoIterator<Item = &'a [f64; 2]>) -> Extent {
+        let mut e = Extent {
+            min: [f64::INFINITY; 2],
+            max: [f64::NEG_INFINITY; 2],
+        };
+        for p in points {
+            for d in 0..2 {
+                e.min[d] = e.min[d].min(p[d]);
+                e.max[d] = e.max[d].max(p[d]);
+            }
+        }
+        e
+    }
+
+    /// Width and height.
+    pub fn size(&self) -> [f64; 2] {
+        [self.max[0] - self.min[0], self.max[1] - self.min[1]]
+    }
+
+    /// The centre.
+    pub fn centre(&self) -> [f64; 2] {
+        [
+            (self.min[0] + self.max[0]) / 2.0,
+            (self.min[1] + self.max[1]) / 2.0,
+        ]
+    }
+
+    /// The four corners, counter-clockwise from (min x, min y).
+    pub fn corners(&self) -> [[f64; 2]; 4] {
+        [
+            [self.min[0], self.min[1]],
+            [self.max[0], self.min[1]],
+            [self.max[0], self.max[1]],
+            [self.min[0], self.max[1]],
+        ]
+    }
+
+    /// True when the two boxes share at least a point.
+    pub fn overlaps(&self, other: &Extent) -> bool {
+        self.min[0] <= other.max[0]
+            && other.min[0] <= self.max[0]
+            && self.min[1] <= other.max[1]
+            && other.min[1] <= self.max[1]
+    }
+}
+
 /// Indices of `points` in Morton (Z-curve) order, so that consecutive queries touch nearby
 /// parts of a k-d tree (several times faster on large sets than random order).
 pub fn morton_order(points: &[[f64; 2]]) -> Vec<u32> {
-    let (mut lo, mut hi) = ([f64::INFINITY; 2], [f64::NEG_INFINITY; 2]);
-    for p in points {
-        for d in 0..2 {
-            lo[d] = lo[d].min(p[d]);
-            hi[d] = hi[d].max(p[d]);
-        }
-    }
+    let Extent { min: lo, max: hi } = Extent::of(points);
     let span = [(hi[0] - lo[0]).max(1e-300), (hi[1] - lo[1]).max(1e-300)];
     let mut keyed: Vec<(u64, u32)> = points
         .iter()

@@ -16,14 +16,14 @@
 mod overrides;
 
 use rand::{Rng, SeedableRng};
-use rand_distr::{Distribution, Normal};
 use std::collections::HashSet;
+use tiemark::config::MatchConfig;
+use tiemark::engine::solve_pair;
 use tiemark::fit::Similarity;
 use tiemark::frame::crs::{Converter, Crs};
-use tiemark::pipeline::config::MatchConfig;
-use tiemark::pipeline::progress::Progress;
-use tiemark::pipeline::{solve_points, Solved};
-use tiemark::spatial::{median_spacing, PointIndex};
+use tiemark::progress::Silent;
+use tiemark::spatial::{median_spacing, Extent, PointIndex};
+use tiemark::synth::{split_base, Split};
 
 fn airports_utm() -> Vec<[f64; 2]> {
     let text = std::fs::read_to_string(concat!(
@@ -47,7 +47,7 @@ fn airports_utm() -> Vec<[f64; 2]> {
 }
 
 fn config() -> MatchConfig {
-    let mut config = MatchConfig::new("reference".into(), "target".into(), "unused".into());
+    let mut config = MatchConfig::new("reference".into(), "target".into());
     config.signatures = overrides::signature_choice();
     config
 }
@@ -68,59 +68,26 @@ fn trial(base: &[[f64; 2]], spacing: f64, seed: u64) -> Option<Trial> {
         rng.gen_range(-1e6..1e6),
         rng.gen_range(-1e6..1e6),
     );
-    let to_local = truth.inverse();
     let sigma = 0.01 * spacing;
-    let noise = Normal::new(0.0, sigma).unwrap();
-    let (miss_r, miss_t) = (rng.gen_range(0.25..0.30), rng.gen_range(0.25..0.30));
-    let (mut reference, mut target, mut pairs) = (Vec::new(), Vec::new(), HashSet::new());
-    for p in base {
-        let (in_r, in_t) = (rng.gen::<f64>() >= miss_r, rng.gen::<f64>() >= miss_t);
-        if in_r && in_t {
-            pairs.insert((reference.len() as u32, target.len() as u32));
-        }
-        if in_r {
-            reference.push(*p);
-        }
-        if in_t {
-            target.push(
-                to_local.apply([p[0] + noise.sample(&mut rng), p[1] + noise.sample(&mut rng)]),
-            );
-        }
-    }
-    let (lo, hi) = base
-        .iter()
-        .fold(([f64::MAX; 2], [f64::MIN; 2]), |(lo, hi), p| {
-            (
-                [lo[0].min(p[0]), lo[1].min(p[1])],
-                [hi[0].max(p[0]), hi[1].max(p[1])],
-            )
-        });
-    for _ in 0..base.len() / 10 {
-        reference.push([rng.gen_range(lo[0]..hi[0]), rng.gen_range(lo[1]..hi[1])]);
-        target.push(to_local.apply([rng.gen_range(lo[0]..hi[0]), rng.gen_range(lo[1]..hi[1])]));
-    }
-    let (ri, ti) = (
-        PointIndex::new(&reference).unwrap(),
-        PointIndex::new(&target).unwrap(),
-    );
-    let labels = ["reference".to_string(), "target".to_string()];
-    let out = solve_points(
-        &config(),
-        &reference,
-        &target,
-        &ri,
-        &ti,
-        1.0,
-        &Progress::new(true),
-        &labels,
-    )
-    .unwrap();
-    let solution = match out {
-        Solved::Found { solution, .. } => solution,
-        Solved::NotFound { rejection, .. } => {
+    let missing = [rng.gen_range(0.25..0.30), rng.gen_range(0.25..0.30)];
+    let split = Split {
+        missing,
+        sigma,
+        truth,
+        extra: base.len() / 10,
+        area: Extent::of(base),
+    };
+    let p = split_base(base, &split, &mut rng);
+    let (reference, target) = (&p.reference, &p.target);
+    let pairs: HashSet<(u32, u32)> = p.pairs.iter().copied().collect();
+    let (_, fit) = solve_pair(&config(), reference, target, &Silent).unwrap();
+    let solution = match fit {
+        Ok(s) => s,
+        Err(rejection) => {
             eprintln!(
                 "seed {seed}: {} ({} RANSAC rounds)",
-                rejection.reason, rejection.ransac_rounds
+                tiemark::report::reason(&rejection.reason),
+                rejection.ransac_rounds
             );
             return None;
         }

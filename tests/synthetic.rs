@@ -3,23 +3,14 @@
 //! scale 0.2-5, 25-30% missing on each side, new landmarks, noise about 1% of the spacing.
 
 use std::collections::HashSet;
+use tiemark::config::MatchConfig;
+use tiemark::engine::solve_pair;
 use tiemark::fit::Similarity;
-use tiemark::pipeline::config::MatchConfig;
-use tiemark::pipeline::progress::Progress;
-use tiemark::pipeline::{solve_points, Solved};
-use tiemark::spatial::PointIndex;
+use tiemark::progress::Silent;
 use tiemark::synth::{make_pair, SynthParams};
 
-fn labels() -> [String; 2] {
-    ["reference".into(), "target".into()]
-}
-
 fn config() -> MatchConfig {
-    MatchConfig::new(
-        "synthetic-reference".into(),
-        "synthetic-target".into(),
-        "unused".into(),
-    )
+    MatchConfig::new("synthetic-reference".into(), "synthetic-target".into())
 }
 
 /// (found fraction of true pairs, wrong fraction among control points, transform error).
@@ -33,22 +24,8 @@ fn run(seed: u64, scale: f64, angle: f64, missing: f64, n: usize) -> Option<(f64
         truth,
         seed,
     });
-    let ri = PointIndex::new(&p.reference).unwrap();
-    let ti = PointIndex::new(&p.target).unwrap();
-    let out = solve_points(
-        &config(),
-        &p.reference,
-        &p.target,
-        &ri,
-        &ti,
-        1.0,
-        &Progress::new(true),
-        &labels(),
-    )
-    .unwrap();
-    let Solved::Found { solution, .. } = out else {
-        return None;
-    };
+    let (_, fit) = solve_pair(&config(), &p.reference, &p.target, &Silent).unwrap();
+    let solution = fit.ok()?;
     let truth_set: HashSet<(u32, u32)> = p.pairs.iter().copied().collect();
     let right = solution
         .pairs
@@ -104,21 +81,13 @@ fn unrelated_surveys_give_no_transform() {
             .reference
         };
         let (a, b) = (mk(100 + seed), mk(200 + seed));
-        let (ai, bi) = (PointIndex::new(&a).unwrap(), PointIndex::new(&b).unwrap());
-        let out = solve_points(
-            &config(),
-            &a,
-            &b,
-            &ai,
-            &bi,
-            1.0,
-            &Progress::new(true),
-            &labels(),
-        )
-        .unwrap();
-        match out {
-            Solved::NotFound { rejection, .. } => eprintln!("seed {seed}: {}", rejection.reason),
-            Solved::Found { solution, .. } => panic!(
+        let (_, fit) = solve_pair(&config(), &a, &b, &Silent).unwrap();
+        match fit {
+            Err(rejection) => eprintln!(
+                "seed {seed}: {}",
+                tiemark::report::reason(&rejection.reason)
+            ),
+            Ok(solution) => panic!(
                 "seed {seed}: chance transform with {} pairs, {:?}",
                 solution.pairs.len(),
                 solution.significance

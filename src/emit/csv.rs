@@ -1,8 +1,9 @@
 //! `control-points.csv` and landmark CSV files (RFC 4180 quoting).
 
 use super::{io_err, EmitError};
+use crate::fit::Solution;
 use crate::ingest::LandmarkSet;
-use crate::pipeline::MatchResult;
+use crate::outcome::MatchOutcome;
 use std::io::Write;
 use std::path::Path;
 
@@ -29,10 +30,13 @@ pub const HEADER: &str =
     "reference_id,target_id,reference_x,reference_y,target_x,target_y,residual_m,residual_dx_m,residual_dy_m";
 
 /// Writes `control-points.csv` (see the module doc of [`crate::emit`]).
-pub fn write_control_points(result: &MatchResult, path: &Path) -> Result<(), EmitError> {
+pub fn write_control_points(
+    result: &MatchOutcome,
+    s: &Solution,
+    path: &Path,
+) -> Result<(), EmitError> {
     let f = std::fs::File::create(path).map_err(io_err(path))?;
     let mut w = std::io::BufWriter::new(f);
-    let s = &result.solution;
     let t = s.fit.transform;
     let mpu = result.frame.metres_per_unit();
     let rd = coordinate_decimals(result.frame.reference_crs.geographic);

@@ -5,8 +5,9 @@
 //! closed explicitly so that an error while finishing (spatial index, flush) is reported.
 
 use super::EmitError;
+use crate::fit::Solution;
 use crate::ingest::LandmarkSet;
-use crate::pipeline::MatchResult;
+use crate::outcome::MatchOutcome;
 use gdal::spatial_ref::{AxisMappingStrategy, SpatialRef};
 use gdal::vector::{
     Feature, FieldDefn, Geometry, LayerAccess, LayerOptions, OGRFieldType, OGRwkbGeometryType,
@@ -53,11 +54,57 @@ fn line(a: [f64; 2], b: [f64; 2]) -> gdal::errors::Result<Geometry> {
     Ok(g)
 }
 
+/// Creates one layer of `control-points.gpkg` whose features are control points: fields
+/// `reference_id`, `target_id` and one real field `measure`, one geometry each.
+fn write_pair_layer(
+    ds: &mut Dataset,
+    name: &str,
+    ty: OGRwkbGeometryType::Type,
+    measure: &str,
+    srs: &SpatialRef,
+    rows: impl Iterator<Item = gdal::errors::Result<(usize, usize, f64, Geometry)>>,
+    result: &MatchOutcome,
+    path: &Path,
+) -> Result<(), EmitError> {
+    let e = gdal_err(path);
+    let layer = ds
+        .create_layer(LayerOptions {
+            name,
+            srs: Some(srs),
+            ty,
+            options: None,
+        })
+        .map_err(&e)?;
+    add_fields(
+        &layer,
+        &[
+            ("reference_id", OGRFieldType::OFTString),
+            ("target_id", OGRFieldType::OFTString),
+            (measure, OGRFieldType::OFTReal),
+        ],
+        path,
+    )?;
+    for row in rows {
+        let (r, t, value, geometry) = row.map_err(&e)?;
+        let mut f = Feature::new(layer.defn()).map_err(&e)?;
+        f.set_field_string(0, &result.reference.ids[r])
+            .map_err(&e)?;
+        f.set_field_string(1, &result.target.ids[t]).map_err(&e)?;
+        f.set_field_double(2, value).map_err(&e)?;
+        f.set_geometry(geometry).map_err(&e)?;
+        f.create(&layer).map_err(&e)?;
+    }
+    Ok(())
+}
+
 /// Writes `control-points.gpkg` (see the module doc of [`crate::emit`]).
-pub fn write_control_points(result: &MatchResult, path: &Path) -> Result<(), EmitError> {
+pub fn write_control_points(
+    result: &MatchOutcome,
+    s: &Solution,
+    path: &Path,
+) -> Result<(), EmitError> {
     let e = gdal_err(path);
     let srs = srs_from_wkt(&result.frame.reference_crs.wkt, path)?;
-    let s = &result.solution;
     let t = s.fit.transform;
     let mpu = result.frame.metres_per_unit();
     // Where the target puts each control point, in the reference CRS.
@@ -76,75 +123,49 @@ pub fn write_control_points(result: &MatchResult, path: &Path) -> Result<(), Emi
     let starts = result
         .frame
         .to_reference_crs(&starts_working)
-        .map_err(|err| EmitError::Frame(err.to_string()))?;
+        .map_err(EmitError::Frame)?;
     let driver = DriverManager::get_driver_by_name("GPKG").map_err(&e)?;
     let mut ds = driver.create_vector_only(path).map_err(&e)?;
     {
         let mut txn = ds.start_transaction().map_err(&e)?;
-        {
-            let layer = txn
-                .create_layer(LayerOptions {
-                    name: "control_points",
-                    srs: Some(&srs),
-                    ty: OGRwkbGeometryType::wkbPoint,
-                    options: None,
-                })
-                .map_err(&e)?;
-            add_fields(
-                &layer,
-                &[
-                    ("reference_id", OGRFieldType::OFTString),
-                    ("target_id", OGRFieldType::OFTString),
-                    ("residual_m", OGRFieldType::OFTReal),
-                ],
-                path,
-            )?;
-            for p in &s.pairs {
-                let mut f = Feature::new(layer.defn()).map_err(&e)?;
-                f.set_field_string(0, &result.reference.ids[p.reference as usize])
-                    .map_err(&e)?;
-                f.set_field_string(1, &result.target.ids[p.target as usize])
-                    .map_err(&e)?;
-                f.set_field_double(2, p.residual * mpu).map_err(&e)?;
-                f.set_geometry(point(result.reference.points[p.reference as usize]).map_err(&e)?)
-                    .map_err(&e)?;
-                f.create(&layer).map_err(&e)?;
-            }
-        }
-        {
-            let layer = txn
-                .create_layer(LayerOptions {
-                    name: "displacements",
-                    srs: Some(&srs),
-                    ty: OGRwkbGeometryType::wkbLineString,
-                    options: None,
-                })
-                .map_err(&e)?;
-            add_fields(
-                &layer,
-                &[
-                    ("reference_id", OGRFieldType::OFTString),
-                    ("target_id", OGRFieldType::OFTString),
-                    ("length_m", OGRFieldType::OFTReal),
-                ],
-                path,
-            )?;
-            for ((p, start), start_w) in s.pairs.iter().zip(&starts).zip(&starts_working) {
-                let end_w = result.frame.reference[p.reference as usize];
-                let len = crate::spatial::dist2(*start_w, end_w).sqrt() * mpu;
-                let mut f = Feature::new(layer.defn()).map_err(&e)?;
-                f.set_field_string(0, &result.reference.ids[p.reference as usize])
-                    .map_err(&e)?;
-                f.set_field_string(1, &result.target.ids[p.target as usize])
-                    .map_err(&e)?;
-                f.set_field_double(2, len).map_err(&e)?;
-                f.set_geometry(
-                    line(*start, result.reference.points[p.reference as usize]).map_err(&e)?,
-                )
-                .map_err(&e)?;
-                f.create(&layer).map_err(&e)?;
-            }
-        }
+        let reference_point = |p: &crate::fit::Pair| result.reference.points[p.reference as usize];
+        let points = s.pairs.iter().map(|p| {
+            let g = point(reference_point(p))?;
+            Ok((p.reference as usize, p.target as usize, p.residual * mpu, g))
+        });
+        let ty = OGRwkbGeometryType::wkbPoint;
+        write_pair_layer(
+            &mut txn,
+            "control_points",
+            ty,
+            "residual_m",
+            &srs,
+            points,
+            result,
+            path,
+        )?;
+        let lines =
+            s.pairs
+                .iter()
+                .zip(&starts)
+                .zip(&starts_working)
+                .map(|((p, start), start_w)| {
+                    let end_w = result.frame.reference[p.reference as usize];
+                    let len = crate::spatial::dist2(*start_w, end_w).sqrt() * mpu;
+                    let g = line(*start, reference_point(p))?;
+                    Ok((p.reference as usize, p.target as usize, len, g))
+                });
+        let ty = OGRwkbGeometryType::wkbLineString;
+        write_pair_layer(
+            &mut txn,
+            "displacements",
+            ty,
+            "length_m",
+            &srs,
+            lines,
+            result,
+            path,
+        )?;
         txn.commit().map_err(&e)?;
     }
     ds.close().map_err(&e)?;

@@ -10,13 +10,13 @@
 //! error is smallest (σ̂/√n per coordinate).
 
 use super::{io_err, EmitError};
-use crate::pipeline::MatchResult;
+use crate::fit::Solution;
+use crate::outcome::MatchOutcome;
 use serde_json::json;
 use std::path::Path;
 
 /// Builds the JSON document.
-pub fn transform_document(result: &MatchResult) -> serde_json::Value {
-    let s = &result.solution;
+pub fn transform_document(result: &MatchOutcome, s: &Solution) -> serde_json::Value {
     let f = &s.fit;
     let t = f.transform;
     let mpu = result.frame.metres_per_unit();
@@ -63,21 +63,21 @@ pub fn transform_document(result: &MatchResult) -> serde_json::Value {
             "target": {"path": result.target.source, "layer": result.target.layer, "landmarks": result.target.points.len()},
         },
         "thresholds": {
-            "tolerance_m": s.tolerance * mpu,
+            "tolerance_m": s.inlier_tolerance * mpu,
             "search_tolerance_m": s.search_tolerance * mpu,
             "tolerance_default": cfg.fit.tolerance_m.is_none(),
-            "reference_spacing_m": result.reference_spacing * mpu,
+            "reference_spacing_m": result.search.reference_spacing * mpu,
             "confidence": cfg.fit.confidence,
             "max_rounds": cfg.fit.max_rounds,
             "false_alarm_level": cfg.fit.false_alarm_level,
             "min_control_points": cfg.fit.min_control_points,
-            "neighbours": result.counts.signatures.neighbours,
-            "leave_out": result.counts.signatures.leave_out,
-            "permuted": result.counts.signatures.permuted,
-            "ambiguity": result.counts.signatures.ambiguity,
-            "order": result.counts.signatures.order.to_string(),
-            "harmonics": result.counts.signatures.harmonics,
-            "key_space": result.counts.signatures.key_space,
+            "neighbours": result.search.signatures.neighbours,
+            "leave_out": result.search.signatures.leave_out,
+            "permuted": result.search.signatures.permuted,
+            "ambiguity": result.search.signatures.ambiguity,
+            "order": result.search.signatures.order.to_string(),
+            "harmonics": result.search.signatures.harmonics,
+            "key_space": result.search.signatures.key_space,
             "rank": cfg.matching.rank,
             "candidates": cfg.matching.candidates,
         },
@@ -90,8 +90,12 @@ pub fn transform_document(result: &MatchResult) -> serde_json::Value {
 }
 
 /// Writes `transform.json`.
-pub fn write_transform(result: &MatchResult, path: &Path) -> Result<(), EmitError> {
-    let text =
-        serde_json::to_string_pretty(&transform_document(result)).expect("JSON values serialise");
+pub fn write_transform(
+    result: &MatchOutcome,
+    solution: &Solution,
+    path: &Path,
+) -> Result<(), EmitError> {
+    let text = serde_json::to_string_pretty(&transform_document(result, solution))
+        .expect("JSON values serialise");
     std::fs::write(path, text + "\n").map_err(io_err(path))
 }

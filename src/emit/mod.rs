@@ -1,14 +1,16 @@
 //! Stage 6 — emit: write the control points, the transform and the report.
 //!
-//! **In:** a [`MatchResult`] and the report text.
+//! **In:** an accepted [`MatchOutcome`], the [`OutputOptions`] and the report text.
 //! **Out:** in the output folder:
 //!
 //! - `control-points.csv` ([`csv`]): one row per control point —
 //!   `reference_id,target_id,reference_x,reference_y,target_x,target_y,residual_m,residual_dx_m,residual_dy_m`.
 //!   Reference coordinates are in the reference's own CRS, target coordinates in the target's
 //!   own CRS (or local grid), exactly as read; residuals are after the final fit, in metres,
-//!   `dx, dy` = reference − mapped target along the working CRS's axes. Example row:
-//!   `B-00017,S26-4821,455012.310,5210044.870,15.3812055,47.0412210,0.412,0.301,-0.281`
+//!   `dx, dy` = reference − mapped target along the working CRS's axes; coordinates with 4
+//!   decimals in a projected CRS, 9 in a geographic one, residuals with 4. Example row (the
+//!   sample town):
+//!   `B-00001,S26-7988,455180.0000,5209670.0000,14.410252965,47.038975595,0.3609,-0.3437,-0.1101`
 //! - `control-points.gpkg` ([`gpkg`]): layer `control_points` (points at the reference
 //!   position, reference CRS, fields reference_id, target_id, residual_m) and layer
 //!   `displacements` (one line per control point from where the target puts the landmark to
@@ -28,8 +30,9 @@ pub mod csv;
 pub mod gpkg;
 pub mod json;
 
+use crate::config::OutputOptions;
 use crate::ingest::LandmarkSet;
-use crate::pipeline::MatchResult;
+use crate::outcome::MatchOutcome;
 use std::path::{Path, PathBuf};
 
 /// Names of the files a match writes.
@@ -44,13 +47,13 @@ pub const FILES: [&str; 4] = [
 #[derive(Debug, thiserror::Error)]
 pub enum EmitError {
     /// The output folder has files in it.
-    #[error("{0}: the output folder exists and is not empty; choose another --out, empty it, or pass --force to replace tiemark's files in it")]
+    #[error("{0}: the output folder exists and is not empty; choose another output.dir, empty it, or set output.force to replace tiemark's files in it")]
     NotEmpty(PathBuf),
     /// The output path is a file.
-    #[error("{0}: exists and is not a folder; choose another --out")]
+    #[error("{0}: exists and is not a folder; choose another output.dir")]
     NotADirectory(PathBuf),
     /// The output file exists.
-    #[error("{0}: exists; choose another output file or pass --force")]
+    #[error("{0}: exists; choose another output file or set output.force")]
     FileExists(PathBuf),
     /// File-system trouble.
     #[error("{path}: {source}")]
@@ -73,7 +76,11 @@ pub enum EmitError {
     UnknownFormat(PathBuf),
     /// Coordinates could not be converted back to the reference CRS.
     #[error("converting outputs to the reference CRS failed: {0}")]
-    Frame(String),
+    Frame(#[source] crate::frame::FrameError),
+    /// Asked to write the control points of a match that found none (a programmer error of
+    /// the front end).
+    #[error("no transform was accepted, so there are no control points to write")]
+    NothingAccepted,
 }
 
 pub(crate) fn io_err(path: &Path) -> impl FnOnce(std::io::Error) -> EmitError + '_ {
@@ -136,14 +143,20 @@ impl Drop for Staging {
     }
 }
 
-/// Writes every output file of a match; returns their final paths.
-pub fn write_all(result: &MatchResult, report: &str) -> Result<Vec<PathBuf>, EmitError> {
-    let out = &result.config.output.dir;
-    check_output_dir(out, result.config.output.force)?;
+/// Writes every output file of an accepted match into `output.dir`; returns their final
+/// paths.
+pub fn write_all(
+    outcome: &MatchOutcome,
+    output: &OutputOptions,
+    report: &str,
+) -> Result<Vec<PathBuf>, EmitError> {
+    let solution = outcome.solution().ok_or(EmitError::NothingAccepted)?;
+    let out = &output.dir;
+    check_output_dir(out, output.force)?;
     let mut staging = Staging::beside(out)?;
-    csv::write_control_points(result, &staging.path.join(FILES[0]))?;
-    gpkg::write_control_points(result, &staging.path.join(FILES[1]))?;
-    json::write_transform(result, &staging.path.join(FILES[2]))?;
+    csv::write_control_points(outcome, solution, &staging.path.join(FILES[0]))?;
+    gpkg::write_control_points(outcome, solution, &staging.path.join(FILES[1]))?;
+    json::write_transform(outcome, solution, &staging.path.join(FILES[2]))?;
     let report_path = staging.path.join(FILES[3]);
     std::fs::write(&report_path, report).map_err(io_err(&report_path))?;
     // Move into place.

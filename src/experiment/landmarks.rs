@@ -21,13 +21,15 @@
 //!
 #![doc = include_str!("landmark-robustness.md")]
 
-use crate::fit::{FitOutcome, FitParams, Similarity};
-use crate::matching::{self, Rank};
-use crate::pipeline::config::MatchingParams;
-use crate::signatures::{self, KeySpace, SignatureParams, VertexOrder};
-use crate::spatial::PointIndex;
+use crate::config::{MatchConfig, MatchingParams};
+use crate::engine::{find_candidates, fit_candidates};
+use crate::fit::Similarity;
+use crate::matching::Rank;
+use crate::progress::Silent;
+use crate::signatures::{KeySpace, SignatureParams, VertexOrder};
+use crate::spatial::{morton_order, Extent, PointIndex, Survey};
+use crate::synth::{split_base, Split};
 use rand::{Rng, SeedableRng};
-use rand_distr::{Distribution, Normal};
 use std::collections::HashMap;
 use std::io::Write;
 use std::path::{Path, PathBuf};
@@ -60,7 +62,7 @@ pub struct Variant {
 pub fn variants() -> Vec<Variant> {
     let base = SignatureParams {
         key_space: KeySpace::Disc,
-        ..SignatureParams::default()
+        ..SignatureParams::plain(5)
     };
     let v = |name, f: &dyn Fn(&mut SignatureParams), rank| {
         let mut s = base.clone();
@@ -192,33 +194,21 @@ fn make_trial(seed: u64, missing: f64, noise: f64) -> Trial {
         rng.gen_range(-1e4..1e4),
         rng.gen_range(-1e4..1e4),
     );
-    let to_target = truth.inverse();
-    let normal = Normal::new(0.0, noise * mean_spacing).expect("finite noise");
-    let (mut reference, mut target, mut partner) = (Vec::new(), Vec::new(), HashMap::new());
-    for p in &base {
-        let (in_r, in_t) = (rng.gen::<f64>() >= missing, rng.gen::<f64>() >= missing);
-        if in_r && in_t {
-            partner.insert(target.len() as u32, reference.len() as u32);
-        }
-        if in_r {
-            reference.push(*p);
-        }
-        if in_t {
-            target.push(to_target.apply([
-                p[0] + normal.sample(&mut rng),
-                p[1] + normal.sample(&mut rng),
-            ]));
-        }
-    }
-    let extra = (missing * LANDMARKS as f64) as usize;
-    for _ in 0..extra {
-        reference.push([rng.gen_range(0.0..side), rng.gen_range(0.0..side)]);
-        target.push(to_target.apply([rng.gen_range(0.0..side), rng.gen_range(0.0..side)]));
-    }
+    let split = Split {
+        missing: [missing; 2],
+        sigma: noise * mean_spacing,
+        truth,
+        extra: (missing * LANDMARKS as f64) as usize,
+        area: Extent {
+            min: [0.0, 0.0],
+            max: [side, side],
+        },
+    };
+    let pair = split_base(&base, &split, &mut rng);
     Trial {
-        reference,
-        target,
-        partner,
+        partner: pair.pairs.iter().map(|&(r, t)| (t, r)).collect(),
+        reference: pair.reference,
+        target: pair.target,
     }
 }
 
@@ -235,23 +225,36 @@ struct Tally {
 }
 
 fn run_trial(v: &Variant, t: &Trial, tally: &mut Tally) -> Result<(), ExperimentError> {
-    let bad = |e: String| ExperimentError::Pipeline(e);
+    let bad = |e: String| ExperimentError::Engine(e);
     let ri = PointIndex::new(&t.reference).ok_or_else(|| bad("reference tree".into()))?;
     let ti = PointIndex::new(&t.target).ok_or_else(|| bad("target tree".into()))?;
+    let (ro, to) = (morton_order(&t.reference), morton_order(&t.target));
+    let reference = Survey {
+        points: &t.reference,
+        index: &ri,
+        order: &ro,
+    };
+    let target = Survey {
+        points: &t.target,
+        index: &ti,
+        order: &to,
+    };
+    let mut config = MatchConfig::new("reference".into(), "target".into());
+    config.signatures = v.signatures.clone().into();
+    config.matching.rank = v.rank;
+    config.fit.max_rounds = MAX_ROUNDS;
+    let labels = ["reference".to_string(), "target".to_string()];
     let clock = Instant::now();
-    let rs = signatures::compute("reference", &t.reference, &ri, &v.signatures, &mut |_| {})
+    let found = find_candidates(&config, &reference, &target, &Silent, &labels)
         .map_err(|e| bad(e.to_string()))?;
-    let ts = signatures::compute("target", &t.target, &ti, &v.signatures, &mut |_| {})
-        .map_err(|e| bad(e.to_string()))?;
-    let per_query = MatchingParams::default().candidates;
-    let cands = matching::candidates(&rs, &ts, per_query, v.rank, &mut |_| {});
     tally.seconds += clock.elapsed().as_secs_f64();
+    let (rs, ts) = (&found.reference_signatures, &found.target_signatures);
     tally.target_landmarks += t.target.len();
     tally.signatures += rs.len();
     tally.reference_landmarks += t.reference.len();
-    // Per landmark: its candidates over all its signatures, best first (cands is sorted).
+    // Per landmark: its candidates over all its signatures, best first (sorted).
     let mut ranked: HashMap<u32, Vec<u32>> = HashMap::new();
-    for c in &cands {
+    for c in &found.candidates {
         let tl = ts.landmark(c.target as usize);
         let list = ranked.entry(tl).or_default();
         let rl = rs.landmark(c.reference as usize);
@@ -270,24 +273,8 @@ fn run_trial(v: &Variant, t: &Trial, tally: &mut Tally) -> Result<(), Experiment
             }
         }
     }
-    let spacing = crate::spatial::median_spacing(&t.reference, &ri, 10_000).unwrap_or(1.0);
-    let input = crate::fit::FitInput {
-        reference: &t.reference,
-        target: &t.target,
-        reference_index: &ri,
-        target_index: &ti,
-        reference_signatures: &rs,
-        target_signatures: &ts,
-        candidates: &cands,
-        metres_per_unit: 1.0,
-        reference_spacing: spacing,
-    };
-    let fit = FitParams {
-        max_rounds: MAX_ROUNDS,
-        ..FitParams::default()
-    };
-    match crate::fit::robust_fit(&input, &fit, &mut |_| {}) {
-        FitOutcome::Found(s) => {
+    match fit_candidates(&config, &reference, &target, &found, 1.0, &Silent) {
+        Ok(s) => {
             let right = s
                 .pairs
                 .iter()
@@ -304,9 +291,13 @@ fn run_trial(v: &Variant, t: &Trial, tally: &mut Tally) -> Result<(), Experiment
                 );
             }
         }
-        FitOutcome::NotFound(r) => {
+        Err(r) => {
             if std::env::var_os("TIEMARK_DEBUG").is_some() {
-                eprintln!("DEBUG {} rounds {}", r.reason, r.ransac_rounds);
+                eprintln!(
+                    "DEBUG {} rounds {}",
+                    crate::report::reason(&r.reason),
+                    r.ransac_rounds
+                );
             }
         }
     }
@@ -467,6 +458,7 @@ pub fn write_landmarks(
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::signatures;
 
     #[test]
     fn subset_signatures_survive_one_missing_neighbour() {
@@ -486,11 +478,22 @@ mod tests {
             .collect();
         let params = SignatureParams {
             leave_out: 1,
-            ..SignatureParams::default()
+            ..SignatureParams::plain(5)
         };
-        let a = signatures::compute("a", &pts, &index, &params, &mut |_| {}).unwrap();
+        let (po, fo) = (morton_order(&pts), morton_order(&fewer));
         let fi = PointIndex::new(&fewer).unwrap();
-        let b = signatures::compute("b", &fewer, &fi, &params, &mut |_| {}).unwrap();
+        let all = Survey {
+            points: &pts,
+            index: &index,
+            order: &po,
+        };
+        let some = Survey {
+            points: &fewer,
+            index: &fi,
+            order: &fo,
+        };
+        let a = signatures::compute("a", &all, &params, false, &mut |_| {}).unwrap();
+        let b = signatures::compute("b", &some, &params, false, &mut |_| {}).unwrap();
         let keys_of = |s: &signatures::Signatures, l: u32| -> Vec<Vec<f64>> {
             (0..s.len())
                 .filter(|&i| s.landmark(i) == l)
@@ -505,9 +508,9 @@ mod tests {
         });
         assert!(exact, "no exact common signature");
         // Without subsets the one signature changes.
-        let plain = SignatureParams::default();
-        let a = signatures::compute("a", &pts, &index, &plain, &mut |_| {}).unwrap();
-        let b = signatures::compute("b", &fewer, &fi, &plain, &mut |_| {}).unwrap();
+        let plain = SignatureParams::plain(5);
+        let a = signatures::compute("a", &all, &plain, false, &mut |_| {}).unwrap();
+        let b = signatures::compute("b", &some, &plain, false, &mut |_| {}).unwrap();
         let (ka, kb) = (keys_of(&a, 0), keys_of(&b, 0));
         assert!(ka[0].iter().zip(&kb[0]).any(|(p, q)| (p - q).abs() > 1e-6));
     }

@@ -29,6 +29,6 @@ pub enum ExperimentError {
         detail: String,
     },
     /// A stage failed on generated data (a bug, not a user error).
-    #[error("the experiment's own data failed in the pipeline: {0}")]
-    Pipeline(String),
+    #[error("the experiment's own data failed in the engine: {0}")]
+    Engine(String),
 }

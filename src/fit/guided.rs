@@ -101,7 +101,7 @@ pub struct Guided {
 /// Iterates pairing and refitting from `start` until the pairs are stable, or the transform
 /// moves less than a thousandth of the tolerance anywhere over the target's extent, or
 /// `max_rounds` is reached. Pairs are those under the final transform.
-pub fn guided(
+pub fn guided_match(
     frames: &Frames,
     start: Similarity,
     tolerance: f64,
@@ -151,19 +151,7 @@ pub fn guided(
 
 /// Corners of the bounding box of `points` (from a strided pass).
 pub fn extent_corners(points: &[[f64; 2]]) -> [[f64; 2]; 4] {
-    let (mut lo, mut hi) = ([f64::INFINITY; 2], [f64::NEG_INFINITY; 2]);
-    for p in points.iter().step_by((points.len() / 1000).max(1)) {
-        for d in 0..2 {
-            lo[d] = lo[d].min(p[d]);
-            hi[d] = hi[d].max(p[d]);
-        }
-    }
-    [
-        [lo[0], lo[1]],
-        [hi[0], lo[1]],
-        [hi[0], hi[1]],
-        [lo[0], hi[1]],
-    ]
+    crate::spatial::Extent::of(points.iter().step_by((points.len() / 1000).max(1))).corners()
 }
 
 #[cfg(test)]
@@ -190,7 +178,7 @@ mod tests {
         };
         // Start a little off: 0.3 degrees and 2 units.
         let rough = Similarity::from_params(0.5 * 1.002, 1.0 + 0.005, 302.0, -39.0);
-        let g = guided(&frames, rough, 8.0, 30.0, None, 20);
+        let g = guided_match(&frames, rough, 8.0, 30.0, None, 20);
         assert_eq!(g.pairs.len(), 2000);
         assert!(g.pairs.iter().all(|p| p.reference == p.target));
         assert!((g.transform.scale() - 0.5).abs() < 1e-9);

@@ -3,9 +3,9 @@
 //!
 //! **In:** both surveys' landmarks in the working frame with their k-d trees, their signatures,
 //! the candidates of the matching stage, and [`FitParams`].
-//! **Out:** [`FitOutcome`]: either a [`Solution`] (transform, standard errors, control-point
-//! pairs with residuals, significance) or a [`Rejection`] saying why no consistent transform
-//! was accepted.
+//! **Out:** either a [`Solution`] (transform, standard errors, control-point pairs with
+//! residuals, significance) or a [`Rejection`] saying why no consistent transform was
+//! accepted ([`RejectReason`]: data, rendered to words by the report).
 //!
 //! Steps: [`ransac`] over 1-signature and 2-point hypotheses; [`guided`] matching from the best
 //! few (coarse on a spread subset, then on every landmark); the [`significance`] test against
@@ -22,8 +22,8 @@ pub use similarity::{Similarity, SimilarityFit};
 
 use crate::matching::Candidate;
 use crate::signatures::Signatures;
-use crate::spatial::{morton_order, PointIndex};
-use guided::{guided, Frames};
+use crate::spatial::PointIndex;
+use guided::{guided_match, Frames};
 use serde::{Deserialize, Serialize};
 use significance::Significance;
 
@@ -63,20 +63,18 @@ impl Default for FitParams {
 #[derive(Debug, thiserror::Error, PartialEq)]
 pub enum FitError {
     /// Tolerance not a positive number.
-    #[error("--tolerance (tolerance_m in a pipeline file) must be a positive number of metres (got {0})")]
+    #[error("fit.tolerance_m must be a positive number of metres (got {0})")]
     InvalidTolerance(f64),
     /// Confidence outside (0, 1).
-    #[error(
-        "--confidence (confidence in a pipeline file) must be between 0 and 1, exclusive (got {0})"
-    )]
+    #[error("fit.confidence must be between 0 and 1, exclusive (got {0})")]
     InvalidConfidence(f64),
     /// False-alarm level outside (0, 1].
-    #[error(
-        "--false-alarm-level (false_alarm_level in a pipeline file) must be in (0, 1] (got {0})"
-    )]
+    #[error("fit.false_alarm_level must be in (0, 1] (got {0})")]
     InvalidFalseAlarmLevel(f64),
     /// Too few control points asked for.
-    #[error("--min-control-points (min_control_points in a pipeline file) must be at least 3: fewer leave a similarity unchecked (got {0})")]
+    #[error(
+        "fit.min_control_points must be at least 3: fewer leave a similarity unchecked (got {0})"
+    )]
     InvalidMinControlPoints(usize),
 }
 
@@ -111,6 +109,8 @@ pub struct FitInput<'a> {
     pub reference_index: &'a PointIndex,
     /// k-d tree of `target`.
     pub target_index: &'a PointIndex,
+    /// Indices of `target` in Morton order ([`crate::spatial::morton_order`]).
+    pub target_order: &'a [u32],
     /// Reference signatures.
     pub reference_signatures: &'a Signatures,
     /// Target signatures.
@@ -130,13 +130,14 @@ pub struct Solution {
     pub fit: SimilarityFit,
     /// Control points, residuals under `fit.transform` (working units).
     pub pairs: Vec<Pair>,
-    /// Inlier tolerance of the final control points, working units.
-    pub tolerance: f64,
+    /// Largest residual a control point may have, working units: the search tolerance, or
+    /// with the default tolerance 99.9% of the residual spread.
+    pub inlier_tolerance: f64,
     /// Tolerance of the search (RANSAC, guided matching, significance), working units.
     pub search_tolerance: f64,
     /// The significance test.
     pub significance: Significance,
-    /// RANSAC rounds and the consensus of the hypothesis that led here.
+    /// RANSAC rounds run.
     pub ransac_rounds: usize,
     /// Consensus of the RANSAC hypothesis that led here (of the scoring sample).
     pub ransac_consensus: usize,
@@ -146,26 +147,56 @@ pub struct Solution {
     pub guided_rounds: usize,
 }
 
+/// Why no transform was accepted: the ways the robust fit ends without one.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum RejectReason {
+    /// No candidate correspondence produced a hypothesis that passed the local pre-test: the
+    /// neighbourhoods of the two surveys never agreed.
+    NoHypothesis,
+    /// On a large survey, no hypothesis refined on the spread subset stood out from chance.
+    ChanceOnSubset {
+        /// Landmarks the best of them paired.
+        paired: usize,
+        /// Landmarks of the subset in the reference's coverage.
+        sampled: usize,
+        /// The chance rate (Poisson) at the reference's density.
+        chance_rate: f64,
+    },
+    /// The best transform pairs fewer landmarks than [`FitParams::min_control_points`].
+    TooFewControlPoints {
+        /// Landmarks paired.
+        paired: usize,
+        /// The least accepted.
+        required: usize,
+    },
+    /// Chance explains the best transform's pairs (the significance test failed).
+    NotSignificant {
+        /// Landmarks paired.
+        paired: usize,
+        /// Landmarks in the reference's coverage.
+        trials: usize,
+        /// The larger of the Poisson and the decoy chance rates.
+        chance_rate: f64,
+        /// log10 of the expected number of false detections.
+        log10_false_alarms: f64,
+        /// The level it had to be below ([`FitParams::false_alarm_level`]).
+        level: f64,
+    },
+    /// The control points are degenerate (all at one place): no similarity can be fitted.
+    DegenerateControlPoints,
+}
+
 /// No transform was accepted.
 #[derive(Debug, Clone)]
 pub struct Rejection {
-    /// Why, in words for the user.
-    pub reason: String,
-    /// Tolerance used, working units.
-    pub tolerance: f64,
+    /// Why.
+    pub reason: RejectReason,
+    /// Tolerance of the search, working units.
+    pub search_tolerance: f64,
     /// The best attempt's significance, if any attempt got that far.
     pub significance: Option<Significance>,
     /// RANSAC rounds run.
     pub ransac_rounds: usize,
-}
-
-/// What the robust fit concluded.
-#[derive(Debug, Clone)]
-pub enum FitOutcome {
-    /// A transform was accepted.
-    Found(Box<Solution>),
-    /// None was.
-    NotFound(Rejection),
 }
 
 /// Landmark count above which guided matching first converges on a spread subset.
@@ -177,12 +208,12 @@ const RAYLEIGH_999: f64 = 3.716_922;
 /// Mirrored decoys run for the empirical chance rate.
 const DECOYS: usize = 6;
 
-/// Runs RANSAC, guided matching and the significance test.
+/// Runs RANSAC, guided matching and the significance test. `progress` is told each step.
 pub fn robust_fit(
     input: &FitInput,
     params: &FitParams,
     progress: &mut dyn FnMut(&str),
-) -> FitOutcome {
+) -> Result<Solution, Rejection> {
     let tolerance = match params.tolerance_m {
         Some(t) => t / input.metres_per_unit,
         None => 0.25 * input.reference_spacing,
@@ -207,9 +238,9 @@ pub fn robust_fit(
     };
     let r = ransac::ransac(input, &rparams);
     if r.best.is_empty() {
-        return FitOutcome::NotFound(Rejection {
-            reason: "no candidate correspondence produced a transform: the neighbourhoods of the two surveys never agreed".into(),
-            tolerance,
+        return Err(Rejection {
+            reason: RejectReason::NoHypothesis,
+            search_tolerance: tolerance,
             significance: None,
             ransac_rounds: r.rounds,
         });
@@ -219,13 +250,13 @@ pub fn robust_fit(
     // if it stands out from chance there, is refined on every landmark. This keeps a wrong
     // hypothesis from costing full passes over a large survey.
     let coarse: Option<Vec<u32>> =
-        (input.target.len() > COARSE_ABOVE).then(|| spread_subset(input.target, COARSE_SIZE));
+        (input.target.len() > COARSE_ABOVE).then(|| spread_subset(input.target_order, COARSE_SIZE));
     let poisson = significance::poisson_chance_rate(tolerance, input.reference_spacing);
     let mut ranked: Vec<(usize, Similarity, &ransac::Hypothesis)> = Vec::new();
     for h in &r.best {
         match &coarse {
             Some(sub) => {
-                let g = guided(&frames, h.transform, tolerance, coverage, Some(sub), 20);
+                let g = guided_match(&frames, h.transform, tolerance, coverage, Some(sub), 20);
                 let quick =
                     Significance::new(g.covered, g.pairs.len(), poisson, 0.0, r.hypotheses.max(1));
                 if quick.is_significant(params.false_alarm_level) {
@@ -241,9 +272,9 @@ pub fn robust_fit(
     progress("guided matching on every landmark");
     // Every landmark, visited in Morton order: k-d tree queries in spatial order are several
     // times faster than in file order.
-    let everyone = morton_order(input.target);
+    let everyone = input.target_order;
     for (_, start, h) in ranked.into_iter().take(full_runs) {
-        let g = guided(&frames, start, tolerance, coverage, Some(&everyone), 20);
+        let g = guided_match(&frames, start, tolerance, coverage, Some(everyone), 20);
         if best
             .as_ref()
             .is_none_or(|(b, _)| g.pairs.len() > b.pairs.len())
@@ -254,49 +285,53 @@ pub fn robust_fit(
     let Some((g, h)) = best else {
         let h = &r.best[0];
         let sub = coarse.as_deref();
-        let g = guided(&frames, h.transform, tolerance, coverage, sub, 20);
+        let g = guided_match(&frames, h.transform, tolerance, coverage, sub, 20);
         let sig = Significance::new(g.covered, g.pairs.len(), poisson, 0.0, r.hypotheses.max(1));
-        return FitOutcome::NotFound(Rejection {
-            reason: format!(
-                "the best transform pairs {} of {} sampled landmarks, which chance alone explains (chance rate {:.1}%)",
-                g.pairs.len(),
-                g.covered,
-                100.0 * poisson
-            ),
-            tolerance,
+        return Err(Rejection {
+            reason: RejectReason::ChanceOnSubset {
+                paired: g.pairs.len(),
+                sampled: g.covered,
+                chance_rate: poisson,
+            },
+            search_tolerance: tolerance,
             significance: Some(sig),
             ransac_rounds: r.rounds,
         });
     };
     progress("testing significance against mirrored decoys");
-    let decoy_rate = decoy_chance_rate(&frames, &g.transform, tolerance, coverage, params.seed);
+    let decoy_rate = decoy_chance_rate(
+        &frames,
+        input.target_order,
+        &g.transform,
+        tolerance,
+        coverage,
+        params.seed,
+    );
     // Hypotheses: RANSAC's, the guided starts, and the decoys.
     let hypotheses = r.hypotheses + r.best.len() + DECOYS;
     let sig = Significance::new(g.covered, g.pairs.len(), poisson, decoy_rate, hypotheses);
-    let reject = |reason: String| {
-        FitOutcome::NotFound(Rejection {
+    let reject = |reason: RejectReason| {
+        Err(Rejection {
             reason,
-            tolerance,
+            search_tolerance: tolerance,
             significance: Some(sig),
             ransac_rounds: r.rounds,
         })
     };
     if g.pairs.len() < params.min_control_points {
-        return reject(format!(
-            "the best transform pairs only {} landmarks (at least {} are required)",
-            g.pairs.len(),
-            params.min_control_points
-        ));
+        return reject(RejectReason::TooFewControlPoints {
+            paired: g.pairs.len(),
+            required: params.min_control_points,
+        });
     }
     if !sig.is_significant(params.false_alarm_level) {
-        return reject(format!(
-            "the best transform pairs {} of {} landmarks, which chance alone explains (chance rate {:.1}%, expected false detections 10^{:.1} ≥ {})",
-            sig.inliers,
-            sig.trials,
-            100.0 * poisson.max(decoy_rate),
-            sig.log10_false_alarms,
-            params.false_alarm_level
-        ));
+        return reject(RejectReason::NotSignificant {
+            paired: sig.inliers,
+            trials: sig.trials,
+            chance_rate: poisson.max(decoy_rate),
+            log10_false_alarms: sig.log10_false_alarms,
+            level: params.false_alarm_level,
+        });
     }
     // With the default tolerance, tighten the inlier test to what the residuals show: 3.717 σ̂
     // is the 99.9% point of the Rayleigh law of a 2-D residual with σ per coordinate, and σ̂
@@ -312,12 +347,12 @@ pub fn robust_fit(
         let tightened = (RAYLEIGH_999 * sigma).clamp(0.02 * tolerance, tolerance);
         if tightened < tolerance {
             progress("tightening the inlier tolerance");
-            let g2 = guided(
+            let g2 = guided_match(
                 &frames,
                 g.transform,
                 tightened,
                 coverage,
-                Some(&everyone),
+                Some(everyone),
                 10,
             );
             if g2.pairs.len() >= params.min_control_points {
@@ -327,26 +362,25 @@ pub fn robust_fit(
         }
     }
     let Some(fit) = guided::refit(&frames, &g.pairs) else {
-        return reject("the control points are degenerate (all at one place)".into());
+        return reject(RejectReason::DegenerateControlPoints);
     };
-    FitOutcome::Found(Box::new(Solution {
+    Ok(Solution {
         fit,
         pairs: g.pairs,
-        tolerance: inlier_tolerance,
+        inlier_tolerance,
         search_tolerance: tolerance,
         significance: sig,
         ransac_rounds: r.rounds,
         ransac_consensus: h.consensus,
         ransac_sample: r.sample_size,
         guided_rounds: g.rounds,
-    }))
+    })
 }
 
-/// About `n` target landmarks spread evenly over the set (every m-th in Morton order).
-fn spread_subset(points: &[[f64; 2]], n: usize) -> Vec<u32> {
-    let order = morton_order(points);
-    let step = (points.len() / n.max(1)).max(1);
-    order.into_iter().step_by(step).collect()
+/// About `n` landmarks spread evenly over a set, from its Morton `order` (every m-th).
+fn spread_subset(order: &[u32], n: usize) -> Vec<u32> {
+    let step = (order.len() / n.max(1)).max(1);
+    order.iter().copied().step_by(step).collect()
 }
 
 /// The highest inlier rate guided matching reaches from mirror images of the target: a spread
@@ -354,6 +388,7 @@ fn spread_subset(points: &[[f64; 2]], n: usize) -> Vec<u32> {
 /// `s`. No similarity can align a mirror image of a real scene, so what it reaches is chance.
 fn decoy_chance_rate(
     frames: &Frames,
+    target_order: &[u32],
     s: &Similarity,
     tolerance: f64,
     coverage: f64,
@@ -361,7 +396,7 @@ fn decoy_chance_rate(
 ) -> f64 {
     use rand::{Rng, SeedableRng};
     let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed ^ 0x5eed_dec0);
-    let subset = spread_subset(frames.target, 5_000);
+    let subset = spread_subset(target_order, 5_000);
     let n = subset.len() as f64;
     let c = subset.iter().fold([0.0, 0.0], |a, &i| {
         let p = frames.target[i as usize];
@@ -388,7 +423,7 @@ fn decoy_chance_rate(
             reference_index: frames.reference_index,
             target_index: &index,
         };
-        let g = guided(&decoy, *s, tolerance, coverage, None, 10);
+        let g = guided_match(&decoy, *s, tolerance, coverage, None, 10);
         if g.covered > 0 {
             worst = worst.max(g.pairs.len() as f64 / g.covered as f64);
         }

@@ -1,7 +1,8 @@
 //! Stage 2 — the working frame: both surveys in one projected CRS.
 //!
-//! **In:** the reference and target [`LandmarkSet`]s and [`FrameOptions`] (CRS overrides,
-//! optional working CRS).
+//! **In:** the reference and target [`LandmarkSet`]s, each survey's CRS override (or
+//! [`LOCAL`] for a target in an unreferenced local grid), and [`FrameOptions`] (an optional
+//! working CRS).
 //! **Out:** a [`WorkingFrame`]: both surveys' positions in one projected CRS (or, for a target
 //! in an unreferenced local grid, the target's raw coordinates), plus what is needed to go back.
 //!
@@ -13,21 +14,20 @@
 pub mod crs;
 
 use crate::ingest::LandmarkSet;
+use crate::spatial::Extent;
 use crs::{utm_zone_for, Converter, Crs, CrsError};
 use serde::{Deserialize, Serialize};
 
 /// The word that marks a target in an unreferenced local grid.
 pub const LOCAL: &str = "local";
 
-/// CRS choices for the two surveys.
+/// Options of the working frame (`[frame]` in a pipeline file).
 #[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct FrameOptions {
-    /// Override of the reference's CRS (anything PROJ accepts).
-    pub reference_crs: Option<String>,
-    /// Override of the target's CRS, or "local" for an unreferenced local grid.
-    pub target_crs: Option<String>,
-    /// Working CRS to use instead of the automatic choice (must be projected).
+    /// Working CRS to use instead of the automatic choice (must be projected); `None`: the
+    /// reference's CRS when it is projected, else the WGS 84 / UTM zone of its centre.
+    #[serde(default)]
     pub working_crs: Option<String>,
 }
 
@@ -35,17 +35,17 @@ pub struct FrameOptions {
 #[derive(Debug, thiserror::Error)]
 pub enum FrameError {
     /// A survey has no CRS and none was given.
-    #[error("{path}: the file declares no CRS; give one with {option} (e.g. {option} EPSG:4326 for longitude/latitude){local_hint}")]
+    #[error("{path}: the file declares no CRS; set {option} (e.g. {option} = EPSG:4326 for longitude/latitude){local_hint}")]
     MissingCrs {
         /// File.
         path: String,
-        /// Option to use.
+        /// Option to set (`reference.crs` or `target.crs`).
         option: String,
         /// Extra hint for the target.
         local_hint: String,
     },
     /// The reference was declared local.
-    #[error("the reference must be georeferenced: '--reference-crs local' is not allowed (the target may be local)")]
+    #[error("the reference must be georeferenced: reference.crs = local is not allowed (the target may be local)")]
     LocalReference,
     /// CRS trouble.
     #[error(transparent)]
@@ -84,7 +84,7 @@ pub enum FrameError {
         to: String,
     },
     /// The surveys do not overlap.
-    #[error("the surveys do not overlap in {crs}: the reference covers x {rx0:.1}..{rx1:.1}, y {ry0:.1}..{ry1:.1}; the target covers x {tx0:.1}..{tx1:.1}, y {ty0:.1}..{ty1:.1}. Check each file's CRS (--reference-crs, --target-crs), or use --target-crs local if the target is in a local grid")]
+    #[error("the surveys do not overlap in {crs}: the reference covers x {rx0:.1}..{rx1:.1}, y {ry0:.1}..{ry1:.1}; the target covers x {tx0:.1}..{tx1:.1}, y {ty0:.1}..{ty1:.1}. Check each file's CRS (reference.crs, target.crs), or set target.crs = local if the target is in a local grid")]
     NoOverlap {
         /// Working CRS.
         crs: String,
@@ -153,7 +153,7 @@ impl WorkingFrame {
 
 fn crs_of(
     set: &LandmarkSet,
-    given: &Option<String>,
+    given: Option<&str>,
     option: &str,
     is_target: bool,
 ) -> Result<Option<Crs>, FrameError> {
@@ -162,7 +162,7 @@ fn crs_of(
         if is_target { "target" } else { "reference" },
         set.source.display()
     );
-    match given.as_deref() {
+    match given {
         Some(s) if s.eq_ignore_ascii_case(LOCAL) => {
             if is_target {
                 Ok(None)
@@ -177,7 +177,7 @@ fn crs_of(
                 path: set.source.display().to_string(),
                 option: option.to_string(),
                 local_hint: if is_target {
-                    ", or --target-crs local if it is in an unreferenced local grid".into()
+                    ", or target.crs = local if it is in an unreferenced local grid".into()
                 } else {
                     String::new()
                 },
@@ -227,34 +227,18 @@ fn convert_all(set: &LandmarkSet, from: &Crs, to: &Crs) -> Result<Vec<[f64; 2]>,
         .collect()
 }
 
-fn extent(pts: &[[f64; 2]]) -> [f64; 4] {
-    pts.iter().fold(
-        [
-            f64::INFINITY,
-            f64::NEG_INFINITY,
-            f64::INFINITY,
-            f64::NEG_INFINITY,
-        ],
-        |e, p| {
-            [
-                e[0].min(p[0]),
-                e[1].max(p[0]),
-                e[2].min(p[1]),
-                e[3].max(p[1]),
-            ]
-        },
-    )
-}
-
-/// Brings both surveys into the working frame.
+/// Brings both surveys into the working frame. `reference_crs` and `target_crs` override the
+/// files' own CRSs (anything PROJ accepts); `target_crs` may be [`LOCAL`].
 pub fn working_frame(
     reference: &LandmarkSet,
+    reference_crs: Option<&str>,
     target: &LandmarkSet,
+    target_crs: Option<&str>,
     options: &FrameOptions,
 ) -> Result<WorkingFrame, FrameError> {
-    let reference_crs = crs_of(reference, &options.reference_crs, "--reference-crs", false)?
+    let reference_crs = crs_of(reference, reference_crs, "reference.crs", false)?
         .expect("a reference CRS is never local");
-    let target_crs = crs_of(target, &options.target_crs, "--target-crs", true)?;
+    let target_crs = crs_of(target, target_crs, "target.crs", true)?;
     check_lon_lat(reference, &reference_crs)?;
     if let Some(t) = &target_crs {
         check_lon_lat(target, t)?;
@@ -265,8 +249,7 @@ pub fn working_frame(
             (reference_crs.clone(), "the reference's CRS".to_string())
         }
         None => {
-            let e = extent(&reference.points);
-            let (lon, lat) = ((e[0] + e[1]) / 2.0, (e[2] + e[3]) / 2.0);
+            let [lon, lat] = Extent::of(&reference.points).centre();
             let code = utm_zone_for(lon, lat);
             (
                 Crs::parse(&code, "working CRS")?,
@@ -283,18 +266,18 @@ pub fn working_frame(
         None => target.points.clone(),
     };
     if target_crs.is_some() {
-        let (r, t) = (extent(&ref_w), extent(&tgt_w));
-        if r[1] < t[0] || t[1] < r[0] || r[3] < t[2] || t[3] < r[2] {
+        let (r, t) = (Extent::of(&ref_w), Extent::of(&tgt_w));
+        if !r.overlaps(&t) {
             return Err(FrameError::NoOverlap {
                 crs: crs.label(),
-                rx0: r[0],
-                rx1: r[1],
-                ry0: r[2],
-                ry1: r[3],
-                tx0: t[0],
-                tx1: t[1],
-                ty0: t[2],
-                ty1: t[3],
+                rx0: r.min[0],
+                rx1: r.max[0],
+                ry0: r.min[1],
+                ry1: r.max[1],
+                tx0: t.min[0],
+                tx1: t.max[0],
+                ty0: t.min[1],
+                ty1: t.max[1],
             });
         }
     }

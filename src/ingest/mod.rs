@@ -24,6 +24,37 @@ pub use read::read_landmarks;
 use serde::{Deserialize, Serialize};
 use std::path::PathBuf;
 
+/// One input survey as the user names it: the dataset, and optionally its layer, id field and
+/// CRS override (`[reference]` / `[target]` in a pipeline file).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SurveyInput {
+    /// The dataset.
+    pub path: PathBuf,
+    /// Layer name; `None`: the only layer, or the first one.
+    #[serde(default)]
+    pub layer: Option<String>,
+    /// Attribute holding each landmark's id; `None`: the feature id.
+    #[serde(default)]
+    pub id: Option<String>,
+    /// CRS override (anything PROJ accepts), or "local" for an unreferenced local grid
+    /// (target only); `None`: the file's own CRS.
+    #[serde(default)]
+    pub crs: Option<String>,
+}
+
+impl SurveyInput {
+    /// A survey read with every option at its default.
+    pub fn new(path: PathBuf) -> SurveyInput {
+        SurveyInput {
+            path,
+            layer: None,
+            id: None,
+            crs: None,
+        }
+    }
+}
+
 /// Which layer and which id field to read.
 #[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]

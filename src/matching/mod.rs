@@ -7,6 +7,10 @@
 //! for two); every target key asks for its nearest few. Queries run in Morton order of the
 //! keys' first two coordinates, so that consecutive queries touch nearby leaves.
 
+mod params;
+
+pub use params::{MatchingError, MatchingParams, MatchingParamsError};
+
 use crate::signatures::Signatures;
 use crate::spatial::morton_order;
 use kiddo::{ImmutableKdTree, SquaredEuclidean};

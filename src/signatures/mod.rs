@@ -20,13 +20,13 @@ pub mod permutation;
 pub use fourier::KeySpace;
 pub use neighbourhood::VertexOrder;
 
-use crate::spatial::{morton_order, PointIndex};
+use crate::spatial::Survey;
 use rustfft::num_complex::Complex64;
 use serde::{Deserialize, Serialize};
 
 /// Options of the signature stage.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-#[serde(deny_unknown_fields, default)]
+#[serde(deny_unknown_fields)]
 pub struct SignatureParams {
     /// Neighbours per polygon (k); the polygon has k + 1 vertices.
     pub neighbours: usize,
@@ -70,11 +70,28 @@ pub struct SignatureChoice {
 }
 
 impl Default for SignatureChoice {
+    /// The tool's default: neighbours and subset depth by survey size
+    /// ([`SignatureChoice::resolve`]), the nearest-neighbour walk, harmonics 1 and 2, keys on
+    /// the sphere, no permutation, no ambiguity branching.
     fn default() -> Self {
-        let p = SignatureParams::default();
         SignatureChoice {
             neighbours: None,
             leave_out: None,
+            order: VertexOrder::Walk,
+            harmonics: vec![1, 2],
+            key_space: KeySpace::Sphere,
+            permuted: false,
+            ambiguity: 0.0,
+        }
+    }
+}
+
+impl From<SignatureParams> for SignatureChoice {
+    /// The choice that resolves to exactly `p` at every survey size.
+    fn from(p: SignatureParams) -> Self {
+        SignatureChoice {
+            neighbours: Some(p.neighbours),
+            leave_out: Some(p.leave_out),
             order: p.order,
             harmonics: p.harmonics,
             key_space: p.key_space,
@@ -95,19 +112,40 @@ pub const LEAVE_TWO_UP_TO: usize = 20_000;
 /// neighbourhoods.
 pub const LEAVE_ONE_UP_TO: usize = 50_000;
 
+/// The automatic choice by survey size, the one statement of it: (landmarks of the smaller
+/// survey up to, neighbours, leave-out), first match wins.
+const SIZE_RULE: [(usize, usize, usize); 3] = [
+    (LEAVE_TWO_UP_TO, 4, 2),
+    (LEAVE_ONE_UP_TO, 4, 1),
+    (usize::MAX, 5, 0),
+];
+
+/// The automatic choice in words, for help texts.
+pub fn size_rule() -> String {
+    let mut parts = Vec::new();
+    for (up_to, k, leave) in SIZE_RULE {
+        if up_to == usize::MAX {
+            parts.push(format!("else {k} and {leave}"));
+        } else {
+            parts.push(format!("{k} and {leave} up to {up_to} landmarks"));
+        }
+    }
+    format!(
+        "by the size of the smaller survey (neighbours and leave-out): {}",
+        parts.join(", ")
+    )
+}
+
 impl SignatureChoice {
     /// The concrete options for surveys whose smaller one has `landmarks` landmarks: what the
-    /// user fixed, and for the rest k = 4 leaving out two neighbours up to
-    /// [`LEAVE_TWO_UP_TO`] landmarks, k = 4 leaving out one up to [`LEAVE_ONE_UP_TO`], and
-    /// k = 5 without subsets above.
+    /// user fixed, and for the rest the size rule ([`size_rule`]: k = 4 leaving out two
+    /// neighbours up to [`LEAVE_TWO_UP_TO`] landmarks, k = 4 leaving out one up to
+    /// [`LEAVE_ONE_UP_TO`], k = 5 without subsets above).
     pub fn resolve(&self, landmarks: usize) -> SignatureParams {
-        let (k, leave) = if landmarks <= LEAVE_TWO_UP_TO {
-            (4, 2)
-        } else if landmarks <= LEAVE_ONE_UP_TO {
-            (4, 1)
-        } else {
-            (5, 0)
-        };
+        let (_, k, leave) = SIZE_RULE
+            .into_iter()
+            .find(|r| landmarks <= r.0)
+            .expect("the last rule takes every size");
         SignatureParams {
             neighbours: self.neighbours.unwrap_or(k),
             leave_out: self.leave_out.unwrap_or(leave),
@@ -128,10 +166,14 @@ impl SignatureChoice {
     }
 }
 
-impl Default for SignatureParams {
-    fn default() -> Self {
+impl SignatureParams {
+    /// Plain signatures of `neighbours` neighbours: the walk, harmonics 1 and 2, keys on the
+    /// sphere, no permutation, no subsets, no ambiguity branching. The base from which tests
+    /// and experiments vary one option; the tool's own default is
+    /// [`SignatureChoice::default`] resolved by survey size.
+    pub fn plain(neighbours: usize) -> SignatureParams {
         SignatureParams {
-            neighbours: 5,
+            neighbours,
             order: VertexOrder::Walk,
             harmonics: vec![1, 2],
             key_space: KeySpace::Sphere,
@@ -146,10 +188,10 @@ impl Default for SignatureParams {
 #[derive(Debug, thiserror::Error, PartialEq)]
 pub enum SignatureError {
     /// k is outside the supported range.
-    #[error("--neighbours (neighbours in a pipeline file) must be between 3 and 16 (got {0})")]
+    #[error("signatures.neighbours must be between 3 and 16 (got {0})")]
     InvalidNeighbours(usize),
     /// A harmonic does not give an informative ratio for this polygon length.
-    #[error("--harmonics (harmonics in a pipeline file): each must be at least 1 and less than half of neighbours + 1, one or two of them, no repeats (got {harmonics:?} for {vertices}-vertex polygons)")]
+    #[error("signatures.harmonics: each must be at least 1 and less than half of neighbours + 1, one or two of them, no repeats (got {harmonics:?} for {vertices}-vertex polygons)")]
     InvalidHarmonic {
         /// Harmonics asked for.
         harmonics: Vec<usize>,
@@ -157,13 +199,13 @@ pub enum SignatureError {
         vertices: usize,
     },
     /// Subset depth outside 0..=2.
-    #[error("--leave-out (leave_out in a pipeline file) must be 0, 1 or 2 (got {0})")]
+    #[error("signatures.leave_out must be 0, 1 or 2 (got {0})")]
     InvalidLeaveOut(usize),
     /// Ambiguity margin outside [0, 0.5].
-    #[error("--ambiguity (ambiguity in a pipeline file) must be between 0 and 0.5 (got {0})")]
+    #[error("signatures.ambiguity must be between 0 and 0.5 (got {0})")]
     InvalidAmbiguity(f64),
     /// Fewer landmarks than one neighbourhood needs.
-    #[error("{role} has {found} landmarks, but one neighbourhood needs {needed} (neighbours + 1); use a larger area or a smaller --neighbours")]
+    #[error("{role} has {found} landmarks, but one neighbourhood needs {needed} (neighbours + 1); use a larger area or a smaller signatures.neighbours")]
     TooFewLandmarks {
         /// "reference" or "target".
         role: String,
@@ -187,7 +229,7 @@ pub struct Signatures {
     /// disc or onto the unit sphere.
     pub keys: Vec<f64>,
     /// Predicted standard deviation of each key per unit of relative vertex noise
-    /// ([`fourier::key_sensitivity`]).
+    /// ([`fourier::key_sensitivity`]); empty unless asked for (see [`compute`]).
     pub sensitivity: Vec<f32>,
 }
 
@@ -244,16 +286,19 @@ impl SignatureParams {
     }
 }
 
-/// Builds the signatures of one survey. `index` must index `points`.
+/// Builds the signatures of one survey, visiting its landmarks in `survey.order`. The
+/// per-signature noise sensitivity ([`Signatures::sensitivity`]) is computed only when
+/// `with_sensitivity` is set (a ranking that reads it); otherwise it is left empty.
 ///
 /// `progress` is called with the number of landmarks done so far, in chunks.
 pub fn compute(
     role: &str,
-    points: &[[f64; 2]],
-    index: &PointIndex,
+    survey: &Survey,
     params: &SignatureParams,
+    with_sensitivity: bool,
     progress: &mut dyn FnMut(usize),
 ) -> Result<Signatures, SignatureError> {
+    let (points, index) = (survey.points, survey.index);
     params.validate()?;
     let k = params.neighbours;
     let n = k + 1;
@@ -267,14 +312,13 @@ pub fn compute(
     let mut plan = fourier::RatioPlan::new(n, &params.harmonics);
     let per = params.harmonics.len();
     let perm = params.permuted.then(|| permutation::fixed_permutation(n));
-    let order = morton_order(points);
     const CHUNK: usize = 1 << 14;
     let mut sigs = Signatures {
         vertices_per_polygon: n,
         polygons: Vec::with_capacity(points.len() * n),
         key_dims: params.key_space.dims() * per,
         keys: Vec::with_capacity(points.len() * params.key_space.dims() * per),
-        sensitivity: Vec::with_capacity(points.len()),
+        sensitivity: Vec::new(),
     };
     let pool = k + params.leave_out;
     let subsets = subsets(pool, params.leave_out);
@@ -288,7 +332,7 @@ pub fn compute(
     let mut chunk_polys: Vec<u32> = Vec::with_capacity(CHUNK * n);
     let mut vertices: Vec<Complex64> = Vec::with_capacity(n);
     let mut scratch = Vec::with_capacity(n);
-    for (done, chunk) in order.chunks(CHUNK).enumerate() {
+    for (done, chunk) in survey.order.chunks(CHUNK).enumerate() {
         buffer.clear();
         ratios.clear();
         sens.clear();
@@ -330,7 +374,11 @@ pub fn compute(
                 }
             }
         }
-        plan.ratios_and_sensitivity(&mut buffer, params.key_space, &mut ratios, &mut sens);
+        if with_sensitivity {
+            plan.ratios_and_sensitivity(&mut buffer, params.key_space, &mut ratios, &mut sens);
+        } else {
+            plan.ratios(&mut buffer, &mut ratios);
+        }
         for (i, rs) in ratios.chunks_exact(per).enumerate() {
             key.clear();
             for &r in rs {
@@ -338,7 +386,9 @@ pub fn compute(
             }
             if key.iter().all(|v| v.is_finite()) {
                 sigs.keys.extend_from_slice(&key);
-                sigs.sensitivity.push(sens[i]);
+                if with_sensitivity {
+                    sigs.sensitivity.push(sens[i]);
+                }
                 sigs.polygons
                     .extend_from_slice(&chunk_polys[i * n..(i + 1) * n]);
             }

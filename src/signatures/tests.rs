@@ -2,6 +2,7 @@
 
 use super::*;
 use crate::fit::similarity::Similarity;
+use crate::spatial::{morton_order, PointIndex};
 use proptest::prelude::*;
 use rand::{Rng, SeedableRng};
 
@@ -14,7 +15,13 @@ fn random_points(seed: u64, n: usize) -> Vec<[f64; 2]> {
 
 fn sigs_of(points: &[[f64; 2]], params: &SignatureParams) -> Signatures {
     let index = PointIndex::new(points).unwrap();
-    compute("test", points, &index, params, &mut |_| {}).unwrap()
+    let order = morton_order(points);
+    let survey = Survey {
+        points,
+        index: &index,
+        order: &order,
+    };
+    compute("test", &survey, params, true, &mut |_| {}).unwrap()
 }
 
 /// Key of each landmark, indexed by landmark.
@@ -42,7 +49,7 @@ proptest! {
         let moved: Vec<[f64; 2]> = pts.iter().map(|&p| s.apply(p)).collect();
         let params = SignatureParams {
             order: if angular { VertexOrder::Angular } else { VertexOrder::Walk },
-            ..SignatureParams::default()
+            ..SignatureParams::plain(5)
         };
         let a = key_by_landmark(&sigs_of(&pts, &params), pts.len());
         let b = key_by_landmark(&sigs_of(&moved, &params), pts.len());
@@ -62,7 +69,7 @@ fn planned_keys_agree_with_direct_dft() {
     for key_space in [KeySpace::Disc, KeySpace::Sphere] {
         let params = SignatureParams {
             key_space,
-            ..SignatureParams::default()
+            ..SignatureParams::plain(5)
         };
         let s = sigs_of(&pts, &params);
         assert_eq!(s.len(), pts.len());
@@ -95,7 +102,7 @@ fn mirror_maps_key_to_inverse_conjugate_for_the_walk() {
     let swapped: Vec<[f64; 2]> = pts.iter().map(|p| [p[1], p[0]]).collect();
     let params = SignatureParams {
         key_space: KeySpace::Disc,
-        ..SignatureParams::default()
+        ..SignatureParams::plain(5)
     };
     let a = sigs_of(&pts, &params);
     let b = sigs_of(&swapped, &params);
@@ -115,7 +122,7 @@ fn mirror_maps_key_to_inverse_conjugate_for_the_walk() {
     // On the sphere, 1/conj(r) is the mirror image in the equator: (x, y, z) -> (x, y, -z).
     let params = SignatureParams {
         key_space: KeySpace::Sphere,
-        ..SignatureParams::default()
+        ..SignatureParams::plain(5)
     };
     let a = sigs_of(&pts, &params);
     let kb = key_by_landmark(&sigs_of(&swapped, &params), pts.len());
@@ -132,11 +139,17 @@ fn mirror_maps_key_to_inverse_conjugate_for_the_walk() {
 fn too_few_landmarks_is_an_error() {
     let pts = random_points(1, 5);
     let index = PointIndex::new(&pts).unwrap();
+    let order = morton_order(&pts);
+    let survey = Survey {
+        points: &pts,
+        index: &index,
+        order: &order,
+    };
     let err = compute(
         "reference",
-        &pts,
-        &index,
-        &SignatureParams::default(),
+        &survey,
+        &SignatureParams::plain(5),
+        false,
         &mut |_| {},
     );
     assert!(matches!(
@@ -153,18 +166,18 @@ fn too_few_landmarks_is_an_error() {
 fn options_are_validated() {
     let bad = SignatureParams {
         neighbours: 2,
-        ..Default::default()
+        ..SignatureParams::plain(5)
     };
     assert!(bad.validate().is_err());
     let with = |neighbours: usize, harmonics: Vec<usize>| SignatureParams {
         neighbours,
         harmonics,
-        ..Default::default()
+        ..SignatureParams::plain(5)
     };
     assert!(with(5, vec![3]).validate().is_err());
     assert!(with(5, vec![1, 1]).validate().is_err());
     assert!(with(3, vec![1, 2]).validate().is_err());
     assert!(with(5, vec![1, 2, 3]).validate().is_err());
     assert!(with(3, vec![1]).validate().is_ok());
-    assert!(SignatureParams::default().validate().is_ok());
+    assert!(SignatureParams::plain(5).validate().is_ok());
 }

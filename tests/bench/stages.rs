@@ -1,4 +1,7 @@
-//! Stage and end-to-end timings on seeded synthetic surveys (ingest excluded).
+//! Stage and end-to-end timings on seeded synthetic surveys (ingest excluded): the trees and
+//! Morton orders, then the engine's own [`solve_points`], timed stage by stage through its
+//! progress reports (so the benchmark measures what ships). "trees" includes the Morton
+//! orders; "end to end" also the median spacing.
 //!
 //! Run: `cargo bench --bench stages` (sizes 10k, 100k, 1M landmarks per survey), or
 //! `cargo bench --bench stages -- 100000` for chosen sizes. Prints one Markdown table row per
@@ -13,13 +16,49 @@
 #[path = "../common/overrides.rs"]
 mod overrides;
 
+use std::cell::RefCell;
+use std::collections::HashMap;
 use std::time::Instant;
-use tiemark::fit::{self, Similarity};
-use tiemark::matching;
-use tiemark::pipeline::config::MatchingParams;
-use tiemark::signatures;
-use tiemark::spatial::{median_spacing, PointIndex};
+use tiemark::config::MatchConfig;
+use tiemark::engine::solve_points;
+use tiemark::fit::Similarity;
+use tiemark::progress::Progress;
+use tiemark::spatial::{morton_order, PointIndex, Survey};
 use tiemark::synth::{make_pair, SynthParams};
+
+/// Records how long each stage of the engine takes (seconds, summed by stage name).
+struct StageClock {
+    started: RefCell<Option<(String, Instant)>>,
+    seconds: RefCell<HashMap<String, f64>>,
+    verbose: bool,
+}
+
+impl Progress for StageClock {
+    fn begin(&self, stage: &str, _total: Option<u64>) {
+        *self.started.borrow_mut() = Some((stage.to_string(), Instant::now()));
+    }
+    fn advance(&self, _done: u64) {}
+    fn message(&self, message: &str) {
+        if let (true, Some((_, t))) = (self.verbose, self.started.borrow().as_ref()) {
+            eprintln!("  {:>7.2} s  {message}", t.elapsed().as_secs_f64());
+        }
+    }
+    fn end(&self) {
+        if let Some((stage, t)) = self.started.borrow_mut().take() {
+            *self.seconds.borrow_mut().entry(stage).or_default() += t.elapsed().as_secs_f64();
+        }
+    }
+}
+
+impl StageClock {
+    fn of(&self, stages: &[&str]) -> f64 {
+        let s = self.seconds.borrow();
+        stages
+            .iter()
+            .map(|n| s.get(*n).copied().unwrap_or(0.0))
+            .sum()
+    }
+}
 
 fn peak_rss_mb() -> f64 {
     std::fs::read_to_string("/proc/self/status")
@@ -74,57 +113,49 @@ fn main() {
         let t0 = Instant::now();
         let ri = PointIndex::new(&p.reference).expect("tree");
         let ti = PointIndex::new(&p.target).expect("tree");
-        let spacing = median_spacing(&p.reference, &ri, 10_000).expect("spacing");
+        let (ro, to) = (morton_order(&p.reference), morton_order(&p.target));
         let t1 = Instant::now();
         // What the tool would choose for surveys of this size, unless overridden.
-        let choice = overrides::signature_choice();
-        let params = choice.resolve(p.reference.len().min(p.target.len()));
-        let rs = signatures::compute("reference", &p.reference, &ri, &params, &mut |_| {})
-            .expect("signatures");
-        let ts = signatures::compute("target", &p.target, &ti, &params, &mut |_| {})
-            .expect("signatures");
-        let t2 = Instant::now();
-        let cands = matching::candidates(
-            &rs,
-            &ts,
-            MatchingParams::default().candidates,
-            MatchingParams::default().rank,
-            &mut |_| {},
-        );
-        let t3 = Instant::now();
-        let input = fit::FitInput {
-            reference: &p.reference,
-            target: &p.target,
-            reference_index: &ri,
-            target_index: &ti,
-            reference_signatures: &rs,
-            target_signatures: &ts,
-            candidates: &cands,
-            metres_per_unit: 1.0,
-            reference_spacing: spacing,
+        let mut config = MatchConfig::new("reference".into(), "target".into());
+        config.signatures = overrides::signature_choice();
+        let clock = StageClock {
+            started: RefCell::new(None),
+            seconds: RefCell::new(HashMap::new()),
+            verbose: std::env::var_os("TIEMARK_BENCH_VERBOSE").is_some(),
         };
-        let clock = Instant::now();
-        let verbose = std::env::var_os("TIEMARK_BENCH_VERBOSE").is_some();
-        let out = fit::robust_fit(&input, &fit::FitParams::default(), &mut |m| {
-            if verbose {
-                eprintln!("  {:>7.2} s  {m}", clock.elapsed().as_secs_f64());
-            }
-        });
-        let t4 = Instant::now();
-        let cps = match out {
-            fit::FitOutcome::Found(s) => s.pairs.len().to_string(),
-            fit::FitOutcome::NotFound(r) => format!("none ({})", r.reason),
+        let (search, fit) = solve_points(
+            &config,
+            &Survey {
+                points: &p.reference,
+                index: &ri,
+                order: &ro,
+            },
+            &Survey {
+                points: &p.target,
+                index: &ti,
+                order: &to,
+            },
+            1.0,
+            &clock,
+            &["reference".into(), "target".into()],
+        )
+        .expect("synthetic surveys are valid");
+        let end_to_end = t0.elapsed().as_secs_f64();
+        let params = search.signatures;
+        let cps = match fit {
+            Ok(s) => s.pairs.len().to_string(),
+            Err(r) => format!("none ({})", tiemark::report::reason(&r.reason)),
         };
-        let s = |a: Instant, b: Instant| format!("{:.2} s", (b - a).as_secs_f64());
+        let s = |x: f64| format!("{x:.2} s");
         println!(
             "| {n} | {}, {} | {} | {} | {} | {} | {} | {cps} | {:.0} MB |",
             params.neighbours,
             params.leave_out,
-            s(t0, t1),
-            s(t1, t2),
-            s(t2, t3),
-            s(t3, t4),
-            s(t0, t4),
+            s((t1 - t0).as_secs_f64()),
+            s(clock.of(&["reference signatures", "target signatures"])),
+            s(clock.of(&["matching signatures"])),
+            s(clock.of(&["robust fit"])),
+            s(end_to_end),
             peak_rss_mb()
         );
     }

@@ -1,136 +1,93 @@
-//! The configuration of one match, shared by the command line and pipeline files.
+//! The configuration of one match, shared by the command line and pipeline files: one home
+//! for every option and its default.
 //!
-//! A pipeline file is TOML with these tables (unknown keys are an error, with line and
-//! column); relative paths are taken from the pipeline file's folder:
+//! [`MatchConfig`] is what the engine ([`crate::engine::match_surveys`]) needs: the two surveys
+//! and the options of each stage. Each stage's options live with the stage
+//! ([`FrameOptions`], [`SignatureChoice`], [`MatchingParams`], [`FitParams`]); their `Default`
+//! is the tool's default, and the command line and pipeline files take their defaults from it.
+//! Where the outputs go ([`OutputOptions`]) is not part of the match: the front ends decide
+//! what to write.
+//!
+//! A pipeline file ([`PipelineFile`]) is TOML with the tables `[reference]`, `[target]`,
+//! `[output]`, `[frame]`, `[signatures]`, `[matching]` and `[fit]`; every key is listed in the
+//! README ("Pipeline files"). Unknown keys are an error with line and column; relative paths
+//! are taken from the pipeline file's folder. Errors name options by their pipeline-file key
+//! (`fit.tolerance_m`); the command line renders those as its flags.
 //!
 //! ```toml
 //! [reference]
 //! path = "../sample-data/town-footprints-2019.gpkg"
-//! layer = "buildings"        # optional: default the only/first layer
-//! id = "bldg_id"             # optional: default the feature id
-//! crs = "EPSG:32633"         # optional: default the file's CRS
+//! id = "bldg_id"
 //!
 //! [target]
 //! path = "../sample-data/town-survey-2026.geojson"
 //! id = "uid"
-//! crs = "local"              # "local": an unreferenced local grid
 //!
 //! [output]
 //! dir = "../target/demo-output"
-//! force = false
-//!
-//! [frame]
-//! working_crs = "EPSG:32633" # optional
-//!
-//! [signatures]
-//! neighbours = 4            # optional: default by size (4 up to 50 000 landmarks, else 5)
-//! order = "walk"             # or "angular"
-//! harmonics = [1, 2]       # one or two harmonics
-//! key_space = "sphere"     # or "disc"
-//! permuted = false         # fixed pseudo-random permutation of the vertex order
-//! leave_out = 1            # optional: subset signatures, leave out 0, 1 or 2 neighbours
-//!                          # (default by size: 2 up to 20 000 landmarks, 1 up to 50 000, else 0)
-//! ambiguity = 0.0          # walk branches where two steps are within this margin
-//!
-//! [matching]
-//! candidates = 3
-//! rank = "distance"        # or "sensitivity"
-//!
-//! [fit]
-//! tolerance_m = 2.0          # optional: default a quarter of the reference's spacing
-//! confidence = 0.999
-//! max_rounds = 300000
-//! seed = 20261201
-//! false_alarm_level = 0.01
-//! min_control_points = 5
 //! ```
 
-use crate::fit::FitParams;
-use crate::signatures::SignatureChoice;
+pub use crate::fit::FitParams;
+pub use crate::frame::FrameOptions;
+pub use crate::ingest::SurveyInput;
+pub use crate::matching::MatchingParams;
+pub use crate::signatures::SignatureChoice;
 use serde::{Deserialize, Serialize};
 use std::path::{Path, PathBuf};
 
-/// One input survey.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct SurveyInput {
-    /// The dataset.
-    pub path: PathBuf,
-    /// Layer name.
-    #[serde(default)]
-    pub layer: Option<String>,
-    /// Id field.
-    #[serde(default)]
-    pub id: Option<String>,
-    /// CRS override, or "local" (target only).
-    #[serde(default)]
-    pub crs: Option<String>,
-}
-
-/// Where the outputs go.
+/// Where the outputs go (the front ends' business; the engine never writes).
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct OutputOptions {
     /// Output folder (created).
     pub dir: PathBuf,
-    /// Replace the files of an existing non-empty folder.
+    /// Replace tiemark's files in an existing non-empty folder.
     #[serde(default)]
     pub force: bool,
 }
 
-/// Working-frame options.
-#[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct FrameSection {
-    /// Working CRS instead of the automatic choice.
-    #[serde(default)]
-    pub working_crs: Option<String>,
-}
-
-/// Matching options.
-#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
-#[serde(deny_unknown_fields, default)]
-pub struct MatchingParams {
-    /// Reference signatures proposed per target signature.
-    pub candidates: usize,
-    /// How candidates are ranked.
-    pub rank: crate::matching::Rank,
-}
-
-impl Default for MatchingParams {
-    fn default() -> Self {
-        MatchingParams {
-            candidates: 3,
-            rank: crate::matching::Rank::Distance,
-        }
-    }
-}
-
 /// Everything one match needs.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
+#[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct MatchConfig {
     /// The older, trusted survey.
     pub reference: SurveyInput,
     /// The survey to bring onto the reference.
     pub target: SurveyInput,
-    /// Outputs.
-    pub output: OutputOptions,
     /// Working frame.
-    #[serde(default)]
-    pub frame: FrameSection,
+    pub frame: FrameOptions,
     /// Signature stage.
-    #[serde(default)]
     pub signatures: SignatureChoice,
     /// Matching stage.
-    #[serde(default)]
     pub matching: MatchingParams,
     /// Robust fit.
+    pub fit: FitParams,
+}
+
+/// A pipeline file: a match and where its outputs go.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct PipelineFile {
+    /// `[reference]`.
+    pub reference: SurveyInput,
+    /// `[target]`.
+    pub target: SurveyInput,
+    /// `[output]`.
+    pub output: OutputOptions,
+    /// `[frame]`.
+    #[serde(default)]
+    pub frame: FrameOptions,
+    /// `[signatures]`.
+    #[serde(default)]
+    pub signatures: SignatureChoice,
+    /// `[matching]`.
+    #[serde(default)]
+    pub matching: MatchingParams,
+    /// `[fit]`.
     #[serde(default)]
     pub fit: FitParams,
 }
 
-/// A pipeline file could not be used.
+/// A configuration could not be used.
 #[derive(Debug, thiserror::Error)]
 pub enum ConfigError {
     /// Not readable.
@@ -149,65 +106,83 @@ pub enum ConfigError {
         /// The parser's message, with line and column.
         message: String,
     },
-    /// Invalid candidate count.
-    #[error("candidates per query must be between 1 and 32 (got {0})")]
-    InvalidCandidates(usize),
+    /// A signature option is out of range.
+    #[error(transparent)]
+    Signatures(#[from] crate::signatures::SignatureError),
+    /// A matching option is out of range.
+    #[error(transparent)]
+    Matching(#[from] crate::matching::MatchingParamsError),
+    /// A fit option is out of range.
+    #[error(transparent)]
+    Fit(#[from] crate::fit::FitError),
 }
 
 impl MatchConfig {
     /// A configuration with every option at its default.
-    pub fn new(reference: PathBuf, target: PathBuf, out: PathBuf) -> MatchConfig {
-        let input = |path| SurveyInput {
-            path,
-            layer: None,
-            id: None,
-            crs: None,
-        };
+    pub fn new(reference: PathBuf, target: PathBuf) -> MatchConfig {
         MatchConfig {
-            reference: input(reference),
-            target: input(target),
-            output: OutputOptions {
-                dir: out,
-                force: false,
-            },
-            frame: FrameSection::default(),
+            reference: SurveyInput::new(reference),
+            target: SurveyInput::new(target),
+            frame: FrameOptions::default(),
             signatures: SignatureChoice::default(),
             matching: MatchingParams::default(),
             fit: FitParams::default(),
         }
     }
 
+    /// Checks every option that needs no data.
+    pub fn validate(&self) -> Result<(), ConfigError> {
+        self.signatures.validate()?;
+        self.matching.validate()?;
+        self.fit.validate()?;
+        Ok(())
+    }
+}
+
+impl PipelineFile {
     /// Reads a pipeline file; relative paths are resolved against its folder.
-    pub fn from_file(path: &Path) -> Result<MatchConfig, ConfigError> {
+    pub fn read(path: &Path) -> Result<PipelineFile, ConfigError> {
         let text = std::fs::read_to_string(path).map_err(|source| ConfigError::Read {
             path: path.to_path_buf(),
             source,
         })?;
-        let mut cfg: MatchConfig = toml::from_str(&text).map_err(|e| ConfigError::Parse {
+        let mut file: PipelineFile = toml::from_str(&text).map_err(|e| ConfigError::Parse {
             path: path.to_path_buf(),
             message: describe_toml_error(&text, &e),
         })?;
         let base = path.parent().unwrap_or(Path::new("."));
         for p in [
-            &mut cfg.reference.path,
-            &mut cfg.target.path,
-            &mut cfg.output.dir,
+            &mut file.reference.path,
+            &mut file.target.path,
+            &mut file.output.dir,
         ] {
             if p.is_relative() {
                 *p = lexical_clean(&base.join(&*p));
             }
         }
-        Ok(cfg)
+        Ok(file)
     }
 
-    /// Checks every option that needs no data.
-    pub fn validate(&self) -> Result<(), crate::pipeline::Error> {
-        self.signatures.validate()?;
-        self.fit.validate()?;
-        if !(1..=32).contains(&self.matching.candidates) {
-            return Err(ConfigError::InvalidCandidates(self.matching.candidates).into());
-        }
-        Ok(())
+    /// The match and the output options.
+    pub fn into_parts(self) -> (MatchConfig, OutputOptions) {
+        let PipelineFile {
+            reference,
+            target,
+            output,
+            frame,
+            signatures,
+            matching,
+            fit,
+        } = self;
+        let config = MatchConfig {
+            reference,
+            target,
+            frame,
+            signatures,
+            matching,
+            fit,
+        };
+        (config, output)
     }
 }
 
@@ -262,7 +237,7 @@ mod tests {
             "[reference]\npath = \"a.gpkg\"\n[target]\npath = \"b.gpkg\"\n[output]\ndir = \"o\"\n[fit]\ntolerence_m = 2\n",
         )
         .unwrap();
-        let e = MatchConfig::from_file(&p).unwrap_err().to_string();
+        let e = PipelineFile::read(&p).unwrap_err().to_string();
         assert!(e.contains("line 8, column 1"), "{e}");
         assert!(e.contains("tolerence_m"), "{e}");
     }
@@ -272,7 +247,7 @@ mod tests {
         let dir = tempfile::tempdir().unwrap();
         let p = dir.path().join("p.toml");
         std::fs::write(&p, "[reference]\npath = \"a.gpkg\"\n[target]\npath = \"/abs/b.gpkg\"\n[output]\ndir = \"o\"\n").unwrap();
-        let c = MatchConfig::from_file(&p).unwrap();
+        let c = PipelineFile::read(&p).unwrap();
         assert_eq!(c.reference.path, dir.path().join("a.gpkg"));
         assert_eq!(c.target.path, PathBuf::from("/abs/b.gpkg"));
         assert_eq!(c.signatures, SignatureChoice::default());
@@ -284,10 +259,10 @@ mod tests {
         let p = dir.path().join("p.toml");
         let head = "[reference]\npath = \"a.gpkg\"\n[target]\npath = \"b.gpkg\"\n[output]\ndir = \"o\"\n[signatures]\n";
         std::fs::write(&p, format!("{head}key_space = \"disc\"\n")).unwrap();
-        let c = MatchConfig::from_file(&p).unwrap();
+        let c = PipelineFile::read(&p).unwrap();
         assert_eq!(c.signatures.key_space, crate::signatures::KeySpace::Disc);
         std::fs::write(&p, format!("{head}key_space = \"cube\"\n")).unwrap();
-        let e = MatchConfig::from_file(&p).unwrap_err().to_string();
+        let e = PipelineFile::read(&p).unwrap_err().to_string();
         assert!(e.contains("line 8"), "{e}");
         assert!(e.contains("cube") && e.contains("sphere"), "{e}");
     }

@@ -1,0 +1,295 @@
+//! The command line: arguments (clap), parsed and checked without I/O, turned into the
+//! library's configuration. Every default comes from the library's `Default`s; the library
+//! names options by their pipeline-file keys, which [`flags`] renders as this command line's
+//! flags.
+
+use clap::{Args, Parser, Subcommand};
+use serde::de::DeserializeOwned;
+use std::path::PathBuf;
+use tiemark::config::{
+    FitParams, FrameOptions, MatchConfig, MatchingParams, OutputOptions, SignatureChoice,
+    SurveyInput,
+};
+use tiemark::matching::Rank;
+use tiemark::signatures::{size_rule, KeySpace, VertexOrder};
+
+/// Exit codes and the caution, after every command's help.
+pub fn after_help() -> String {
+    format!(
+        "Exit codes: 0 control points written; 1 no consistent transform found (nothing written); 2 bad input or error.\n\n{}",
+        tiemark::report::CAUTION
+    )
+}
+
+#[derive(Parser)]
+#[command(
+    name = "tiemark",
+    version,
+    about = "Find the same landmarks in two georeferenced surveys and turn them into control points.",
+    after_help = after_help()
+)]
+pub struct Cli {
+    #[command(subcommand)]
+    pub command: Command,
+    /// No progress bars.
+    #[arg(long, short, global = true)]
+    pub quiet: bool,
+}
+
+#[derive(Subcommand)]
+pub enum Command {
+    /// Match a target survey to a reference survey and write control points, transform and report.
+    #[command(after_help = after_help())]
+    Match(Box<MatchArgs>),
+    /// Run a pipeline file (TOML; its keys are listed in the README, "Pipeline files").
+    #[command(after_help = after_help())]
+    Run {
+        /// The pipeline file.
+        pipeline: PathBuf,
+    },
+    /// Write the landmarks tiemark extracts from one dataset (to inspect them).
+    Landmarks(LandmarksArgs),
+    /// Measure the signature stage (quality benchmarks; writes tables and a plot).
+    #[cfg(feature = "experiments")]
+    #[command(subcommand)]
+    Experiment(crate::experiments::ExperimentCommand),
+}
+
+/// Parses a value by its name in the library's serde form (one home for the names).
+fn choice<T: DeserializeOwned>(s: &str) -> Result<T, String> {
+    use serde::de::{value::StrDeserializer, IntoDeserializer};
+    let d: StrDeserializer<serde::de::value::Error> = s.into_deserializer();
+    T::deserialize(d).map_err(|e| e.to_string())
+}
+
+#[derive(Args)]
+pub struct MatchArgs {
+    /// The reference survey (older, trusted): any GDAL vector dataset.
+    reference: PathBuf,
+    /// The target survey (to bring onto the reference).
+    target: PathBuf,
+    /// Output folder (created; must be empty unless --force).
+    #[arg(long)]
+    out: PathBuf,
+    /// Replace tiemark's files in a non-empty output folder.
+    #[arg(long)]
+    force: bool,
+    /// Layer of the reference (default: the only or first layer).
+    #[arg(long)]
+    reference_layer: Option<String>,
+    /// Layer of the target.
+    #[arg(long)]
+    target_layer: Option<String>,
+    /// Attribute holding reference landmark ids (default: the feature id).
+    #[arg(long)]
+    reference_id: Option<String>,
+    /// Attribute holding target landmark ids.
+    #[arg(long)]
+    target_id: Option<String>,
+    /// CRS of the reference, overriding the file's (anything PROJ accepts, e.g. EPSG:32633).
+    #[arg(long)]
+    reference_crs: Option<String>,
+    /// CRS of the target, or "local" for an unreferenced local grid (the fit is then the site calibration).
+    #[arg(long)]
+    target_crs: Option<String>,
+    /// Projected CRS to work in (default: the reference's, or the UTM zone of a geographic reference).
+    #[arg(long)]
+    working_crs: Option<String>,
+    /// Inlier tolerance in metres (default: a quarter of the reference's median landmark spacing).
+    #[arg(long, allow_negative_numbers = true)]
+    tolerance: Option<f64>,
+
+    /// Neighbours per signature polygon, 3-16 [default: by size, see --leave-out].
+    #[arg(long, help_heading = "Signatures")]
+    neighbours: Option<usize>,
+    #[arg(long, help_heading = "Signatures", help = format!("Subset signatures: leave out 0, 1 or 2 of the nearest neighbours in every possible way [default: {}]", size_rule()))]
+    leave_out: Option<usize>,
+
+    /// Reference signatures proposed per target signature.
+    #[arg(long, help_heading = "Robust fit", default_value_t = MatchingParams::default().candidates)]
+    candidates: usize,
+    /// RANSAC confidence.
+    #[arg(long, help_heading = "Robust fit", allow_negative_numbers = true, default_value_t = FitParams::default().confidence)]
+    confidence: f64,
+    /// Upper bound on RANSAC rounds.
+    #[arg(long, help_heading = "Robust fit", default_value_t = FitParams::default().max_rounds)]
+    max_rounds: usize,
+    /// Seed of every random choice (results are reproducible for a given seed).
+    #[arg(long, help_heading = "Robust fit", default_value_t = FitParams::default().seed)]
+    seed: u64,
+    /// Accept a transform only if the expected number of chance detections is below this.
+    #[arg(long, help_heading = "Robust fit", allow_negative_numbers = true, default_value_t = FitParams::default().false_alarm_level)]
+    false_alarm_level: f64,
+    /// Fewest control points to accept a transform.
+    #[arg(long, help_heading = "Robust fit", default_value_t = FitParams::default().min_control_points)]
+    min_control_points: usize,
+
+    /// Research: vertex order of the signature polygon (walk or angular).
+    #[arg(long, help_heading = "Signature research (to compare variants; the defaults are measured best)", value_parser = choice::<VertexOrder>, default_value_t = SignatureChoice::default().order)]
+    order: VertexOrder,
+    /// Research: Fourier harmonics of the signature ratios, comma-separated (one or two).
+    #[arg(long, help_heading = "Signature research (to compare variants; the defaults are measured best)", value_delimiter = ',', default_values_t = SignatureChoice::default().harmonics)]
+    harmonics: Vec<usize>,
+    /// Research: where the signature ratios live as key coordinates (sphere or disc).
+    #[arg(long, help_heading = "Signature research (to compare variants; the defaults are measured best)", value_parser = choice::<KeySpace>, default_value_t = SignatureChoice::default().key_space)]
+    key_space: KeySpace,
+    /// Research: apply the fixed pseudo-random permutation to every polygon's vertex order.
+    #[arg(
+        long,
+        help_heading = "Signature research (to compare variants; the defaults are measured best)"
+    )]
+    permuted: bool,
+    /// Research: follow both steps of the walk when they are within this relative margin (0: off).
+    #[arg(long, help_heading = "Signature research (to compare variants; the defaults are measured best)", allow_negative_numbers = true, default_value_t = SignatureChoice::default().ambiguity)]
+    ambiguity: f64,
+    /// Research: rank candidates by key distance, or by key distance over the keys' predicted noise (distance or sensitivity).
+    #[arg(long, help_heading = "Signature research (to compare variants; the defaults are measured best)", value_parser = choice::<Rank>, default_value_t = MatchingParams::default().rank)]
+    rank: Rank,
+}
+
+#[derive(Args)]
+pub struct LandmarksArgs {
+    /// The dataset.
+    pub file: PathBuf,
+    /// Output file (.gpkg, .geojson, .fgb or .csv).
+    #[arg(long)]
+    pub out: PathBuf,
+    /// Layer (default: the only or first layer).
+    #[arg(long)]
+    pub layer: Option<String>,
+    /// Attribute holding landmark ids (default: the feature id).
+    #[arg(long)]
+    pub id: Option<String>,
+    /// Replace an existing output file.
+    #[arg(long)]
+    pub force: bool,
+}
+
+impl MatchArgs {
+    /// The match and where its outputs go.
+    pub fn into_config(self) -> (MatchConfig, OutputOptions) {
+        let config = MatchConfig {
+            reference: SurveyInput {
+                path: self.reference,
+                layer: self.reference_layer,
+                id: self.reference_id,
+                crs: self.reference_crs,
+            },
+            target: SurveyInput {
+                path: self.target,
+                layer: self.target_layer,
+                id: self.target_id,
+                crs: self.target_crs,
+            },
+            frame: FrameOptions {
+                working_crs: self.working_crs,
+            },
+            signatures: SignatureChoice {
+                neighbours: self.neighbours,
+                leave_out: self.leave_out,
+                order: self.order,
+                harmonics: self.harmonics,
+                key_space: self.key_space,
+                permuted: self.permuted,
+                ambiguity: self.ambiguity,
+            },
+            matching: MatchingParams {
+                candidates: self.candidates,
+                rank: self.rank,
+            },
+            fit: FitParams {
+                tolerance_m: self.tolerance,
+                confidence: self.confidence,
+                max_rounds: self.max_rounds,
+                seed: self.seed,
+                false_alarm_level: self.false_alarm_level,
+                min_control_points: self.min_control_points,
+            },
+        };
+        let output = OutputOptions {
+            dir: self.out,
+            force: self.force,
+        };
+        (config, output)
+    }
+}
+
+/// Pipeline-file keys the library names in its messages, and the flags of `match` and
+/// `landmarks` that set them.
+const FLAGS: &[(&str, &str)] = &[
+    ("reference.layer", "--reference-layer"),
+    ("reference.id", "--reference-id"),
+    ("reference.crs", "--reference-crs"),
+    ("target.layer", "--target-layer"),
+    ("target.id", "--target-id"),
+    ("target.crs", "--target-crs"),
+    ("frame.working_crs", "--working-crs"),
+    ("signatures.neighbours", "--neighbours"),
+    ("signatures.leave_out", "--leave-out"),
+    ("signatures.order", "--order"),
+    ("signatures.harmonics", "--harmonics"),
+    ("signatures.key_space", "--key-space"),
+    ("signatures.permuted", "--permuted"),
+    ("signatures.ambiguity", "--ambiguity"),
+    ("matching.candidates", "--candidates"),
+    ("matching.rank", "--rank"),
+    ("fit.tolerance_m", "--tolerance"),
+    ("fit.confidence", "--confidence"),
+    ("fit.max_rounds", "--max-rounds"),
+    ("fit.seed", "--seed"),
+    ("fit.false_alarm_level", "--false-alarm-level"),
+    ("fit.min_control_points", "--min-control-points"),
+    ("output.dir", "--out"),
+    ("output.force", "--force"),
+];
+
+/// A library message with its option keys rendered as command-line flags.
+pub fn flags(message: &str) -> String {
+    let mut out = message.to_string();
+    for (key, flag) in FLAGS {
+        out = out.replace(key, flag);
+    }
+    out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use clap::CommandFactory;
+
+    #[test]
+    fn arguments_are_consistent() {
+        Cli::command().debug_assert();
+    }
+
+    #[test]
+    fn every_flag_in_the_table_exists() {
+        let cmd = Cli::command();
+        let m = cmd.find_subcommand("match").expect("match");
+        for (_, flag) in FLAGS {
+            let name = flag.trim_start_matches("--");
+            assert!(
+                m.get_arguments().any(|a| a.get_long() == Some(name)),
+                "{flag} is not a flag of match"
+            );
+        }
+    }
+
+    #[test]
+    fn defaults_are_the_librarys() {
+        let cli = Cli::try_parse_from(["tiemark", "match", "a", "b", "--out", "o"]).unwrap();
+        let Command::Match(args) = cli.command else {
+            panic!("not match")
+        };
+        let (config, _) = args.into_config();
+        assert_eq!(config, MatchConfig::new("a".into(), "b".into()));
+    }
+
+    #[test]
+    fn keys_become_flags() {
+        assert_eq!(
+            flags("signatures.neighbours must be between 3 and 16"),
+            "--neighbours must be between 3 and 16"
+        );
+    }
+}

@@ -1,0 +1,136 @@
+//! The `tiemark` command: parses arguments, calls the library, writes what the library
+//! computed, and turns the outcome into an exit code. Exit codes: 0 control points written,
+//! 1 no consistent transform (nothing written), 2 bad input or any other error.
+
+mod bars;
+mod cli;
+#[cfg(feature = "experiments")]
+mod experiments;
+
+use clap::Parser;
+use cli::{Cli, Command};
+use std::io::Write;
+use std::process::ExitCode;
+use tiemark::config::{MatchConfig, OutputOptions, PipelineFile, SurveyInput};
+use tiemark::{emit, engine, report};
+
+/// Prints to stdout; a closed pipe is not an error.
+fn print(text: &str) {
+    let mut out = std::io::stdout().lock();
+    let _ = out.write_all(text.as_bytes()).and_then(|_| out.flush());
+}
+
+/// Reports an error on stderr; exit code 2.
+fn fail(message: &str) -> ExitCode {
+    eprintln!("tiemark: error: {message}");
+    ExitCode::from(2)
+}
+
+/// Where a configuration came from: the command line renders option keys as its flags.
+#[derive(Clone, Copy)]
+enum Source {
+    CommandLine,
+    PipelineFile,
+}
+
+impl Source {
+    fn render(self, message: &str) -> String {
+        match self {
+            Source::CommandLine => cli::flags(message),
+            Source::PipelineFile => message.to_string(),
+        }
+    }
+}
+
+/// Computes a match, writes its outputs if a transform was accepted, prints the summary.
+fn run_match(
+    config: &MatchConfig,
+    output: &OutputOptions,
+    quiet: bool,
+    source: Source,
+) -> ExitCode {
+    let error = |e: &dyn std::fmt::Display| fail(&source.render(&e.to_string()));
+    // Refused before any work, so that a long run cannot end in this error.
+    if let Err(e) = emit::check_output_dir(&output.dir, output.force) {
+        return error(&e);
+    }
+    let outcome = match engine::match_surveys(config, &bars::Bars::new(quiet)) {
+        Ok(o) => o,
+        Err(e) => return error(&e),
+    };
+    let summary = report::summary(&outcome);
+    if outcome.solution().is_none() {
+        print(&source.render(&summary));
+        return ExitCode::from(1);
+    }
+    match emit::write_all(&outcome, output, &summary) {
+        Ok(files) => {
+            print(&report::with_files(&summary, &files));
+            ExitCode::SUCCESS
+        }
+        Err(e) => error(&e),
+    }
+}
+
+/// `tiemark landmarks`: read one dataset, write what tiemark sees in it.
+fn run_landmarks(a: cli::LandmarksArgs) -> ExitCode {
+    let input = SurveyInput {
+        layer: a.layer,
+        id: a.id,
+        ..SurveyInput::new(a.file)
+    };
+    let written = engine::read_survey(&input)
+        .map_err(engine::Error::from)
+        .and_then(|set| {
+            emit::write_landmarks(&set, &a.out, a.force)?;
+            Ok(set)
+        });
+    match written {
+        Ok(set) => {
+            print(&format!(
+                "{} landmarks from {} (layer {}){} written to {}\n",
+                set.points.len(),
+                set.source.display(),
+                set.layer,
+                if set.skipped_without_geometry > 0 {
+                    format!(
+                        "; {} features without geometry skipped",
+                        set.skipped_without_geometry
+                    )
+                } else {
+                    String::new()
+                },
+                a.out.display()
+            ));
+            ExitCode::SUCCESS
+        }
+        Err(e) => fail(&cli::flags(&e.to_string())),
+    }
+}
+
+fn main() -> ExitCode {
+    let cli = match Cli::try_parse() {
+        Ok(c) => c,
+        Err(e) => {
+            let code = if e.use_stderr() { 2 } else { 0 };
+            let _ = e.print();
+            return ExitCode::from(code);
+        }
+    };
+    match cli.command {
+        Command::Match(args) => {
+            let (config, output) = args.into_config();
+            run_match(&config, &output, cli.quiet, Source::CommandLine)
+        }
+        Command::Run { pipeline } => match PipelineFile::read(&pipeline) {
+            Ok(file) => {
+                let (config, output) = file.into_parts();
+                run_match(&config, &output, cli.quiet, Source::PipelineFile)
+            }
+            Err(e) => fail(&e.to_string()),
+        },
+        Command::Landmarks(a) => run_landmarks(a),
+        #[cfg(feature = "experiments")]
+        Command::Experiment(e) => experiments::run(e, cli.quiet),
+    }
+}

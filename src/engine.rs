@@ -1,0 +1,260 @@
+//! Runs the stages in order: the library's entry point for a match. Computes; never writes.
+//!
+//! **In:** a [`MatchConfig`] and a [`Progress`] receiver.
+//! **Out:** a [`MatchOutcome`]: both surveys as read, the working frame, what the search
+//! produced, and the accepted transform with its control points or why none was accepted.
+//! Errors are [`Error`]s that name the file and the option, and say what to do.
+//!
+//! [`match_surveys`] reads files; [`solve_points`] runs signatures, matching and the robust
+//! fit on points already in a working frame (benchmarks and experiments call it, so they
+//! measure what ships). Writing is the front ends' business ([`crate::emit`]).
+
+use crate::config::{ConfigError, MatchConfig};
+use crate::emit::EmitError;
+use crate::fit::{self, FitInput, Rejection, Solution};
+use crate::frame::{self, FrameError};
+use crate::ingest::{self, IngestError, IngestOptions, LandmarkSet, SurveyInput};
+use crate::matching::{self, Candidate, MatchingError};
+use crate::outcome::{MatchOutcome, Search};
+use crate::progress::{stage, Progress};
+use crate::signatures::{self, SignatureError, Signatures};
+use crate::spatial::{median_spacing, morton_order, PointIndex, Survey};
+use std::path::PathBuf;
+
+/// Anything that stops a run. Each variant's message names the file or option and the fix.
+#[derive(Debug, thiserror::Error)]
+pub enum Error {
+    /// Configuration trouble (pipeline file or option values).
+    #[error(transparent)]
+    Config(#[from] ConfigError),
+    /// Input dataset trouble.
+    #[error(transparent)]
+    Ingest(#[from] IngestError),
+    /// CRS or overlap trouble.
+    #[error(transparent)]
+    Frame(#[from] FrameError),
+    /// Too few landmarks for a signature.
+    #[error(transparent)]
+    Signature(#[from] SignatureError),
+    /// The signature keys cannot be indexed.
+    #[error(transparent)]
+    Matching(#[from] MatchingError),
+    /// Writing outputs (from the front ends' writers).
+    #[error(transparent)]
+    Emit(#[from] EmitError),
+    /// The landmarks defeat the k-d tree (e.g. a huge number sharing one coordinate).
+    #[error("{path}: the landmarks are degenerate (too many share one coordinate value to index); check for features copied onto one line or column")]
+    Degenerate {
+        /// File.
+        path: PathBuf,
+    },
+}
+
+/// Reads one survey's landmarks.
+pub fn read_survey(input: &SurveyInput) -> Result<LandmarkSet, IngestError> {
+    ingest::read_landmarks(
+        &input.path,
+        &IngestOptions {
+            layer: input.layer.clone(),
+            id_field: input.id.clone(),
+        },
+    )
+}
+
+/// Runs a whole match: ingest, working frame, signatures, matching, robust fit. Writes
+/// nothing.
+pub fn match_surveys(config: &MatchConfig, progress: &dyn Progress) -> Result<MatchOutcome, Error> {
+    config.validate()?;
+    let (reference, target) = stage(progress, "reading surveys", None, |_| {
+        Ok::<_, IngestError>((
+            read_survey(&config.reference)?,
+            read_survey(&config.target)?,
+        ))
+    })?;
+    let frame = frame::working_frame(
+        &reference,
+        config.reference.crs.as_deref(),
+        &target,
+        config.target.crs.as_deref(),
+        &config.frame,
+    )?;
+    let index = |points: &[[f64; 2]], path: &std::path::Path| {
+        PointIndex::new(points).ok_or_else(|| Error::Degenerate {
+            path: path.to_path_buf(),
+        })
+    };
+    let ri = index(&frame.reference, &reference.source)?;
+    let ti = index(&frame.target, &target.source)?;
+    let (ro, to) = (morton_order(&frame.reference), morton_order(&frame.target));
+    let labels = [
+        format!("the reference ({})", reference.source.display()),
+        format!("the target ({})", target.source.display()),
+    ];
+    let (search, fit) = solve_points(
+        config,
+        &Survey {
+            points: &frame.reference,
+            index: &ri,
+            order: &ro,
+        },
+        &Survey {
+            points: &frame.target,
+            index: &ti,
+            order: &to,
+        },
+        frame.metres_per_unit(),
+        progress,
+        &labels,
+    )?;
+    Ok(MatchOutcome {
+        config: config.clone(),
+        reference,
+        target,
+        frame,
+        search,
+        fit,
+    })
+}
+
+/// Signatures, matching and robust fit on two surveys already in one working frame (no I/O):
+/// [`find_candidates`] then [`fit_candidates`]. `labels` name the two surveys in errors. The
+/// stage benchmark and the experiments call these, so that they measure what ships.
+pub fn solve_points(
+    config: &MatchConfig,
+    reference: &Survey,
+    target: &Survey,
+    metres_per_unit: f64,
+    progress: &dyn Progress,
+    labels: &[String; 2],
+) -> Result<(Search, Result<Solution, Rejection>), Error> {
+    let found = find_candidates(config, reference, target, progress, labels)?;
+    let fit = fit_candidates(config, reference, target, &found, metres_per_unit, progress);
+    Ok((found.search, fit))
+}
+
+/// As [`solve_points`] on plain point arrays: builds their k-d trees and Morton orders first.
+/// The surveys are named "reference" and "target" in errors.
+pub fn solve_pair(
+    config: &MatchConfig,
+    reference: &[[f64; 2]],
+    target: &[[f64; 2]],
+    progress: &dyn Progress,
+) -> Result<(Search, Result<Solution, Rejection>), Error> {
+    let index = |points: &[[f64; 2]], name: &str| {
+        PointIndex::new(points).ok_or_else(|| Error::Degenerate { path: name.into() })
+    };
+    let (ri, ti) = (index(reference, "reference")?, index(target, "target")?);
+    let (ro, to) = (morton_order(reference), morton_order(target));
+    solve_points(
+        config,
+        &Survey {
+            points: reference,
+            index: &ri,
+            order: &ro,
+        },
+        &Survey {
+            points: target,
+            index: &ti,
+            order: &to,
+        },
+        1.0,
+        progress,
+        &["reference".into(), "target".into()],
+    )
+}
+
+/// What the signature and matching stages produced: the signatures of both surveys and the
+/// candidate correspondences, best first.
+pub struct Candidates {
+    /// Counts and the options used.
+    pub search: Search,
+    /// Reference signatures.
+    pub reference_signatures: Signatures,
+    /// Target signatures.
+    pub target_signatures: Signatures,
+    /// Candidate correspondences, best first.
+    pub candidates: Vec<Candidate>,
+}
+
+/// Stages 3 and 4: signatures of both surveys and their candidate correspondences.
+pub fn find_candidates(
+    config: &MatchConfig,
+    reference: &Survey,
+    target: &Survey,
+    progress: &dyn Progress,
+    labels: &[String; 2],
+) -> Result<Candidates, Error> {
+    let spacing = median_spacing(reference.points, reference.index, 10_000)
+        .unwrap_or(1.0)
+        .max(f64::MIN_POSITIVE);
+    let used = config
+        .signatures
+        .resolve(reference.points.len().min(target.points.len()));
+    let sensitivity = config.matching.needs_sensitivity();
+    let mut sigs = Vec::with_capacity(2);
+    for (survey, (label, name)) in [reference, target].into_iter().zip(
+        labels
+            .iter()
+            .zip(["reference signatures", "target signatures"]),
+    ) {
+        let total = Some(survey.points.len() as u64);
+        sigs.push(stage(progress, name, total, |advance| {
+            signatures::compute(label, survey, &used, sensitivity, advance)
+        })?);
+    }
+    let target_signatures = sigs.pop().expect("two");
+    let reference_signatures = sigs.pop().expect("two");
+    let (rs, ts) = (&reference_signatures, &target_signatures);
+    let candidates = stage(
+        progress,
+        "matching signatures",
+        Some(ts.len() as u64),
+        |advance| {
+            Ok::<_, MatchingError>(matching::candidates(
+                rs,
+                ts,
+                config.matching.candidates,
+                config.matching.rank,
+                advance,
+            ))
+        },
+    )?;
+    Ok(Candidates {
+        search: Search {
+            reference_spacing: spacing,
+            reference_signatures: rs.len(),
+            target_signatures: ts.len(),
+            candidates: candidates.len(),
+            signatures: used,
+        },
+        reference_signatures,
+        target_signatures,
+        candidates,
+    })
+}
+
+/// Stage 5: the robust fit on the candidates.
+pub fn fit_candidates(
+    config: &MatchConfig,
+    reference: &Survey,
+    target: &Survey,
+    found: &Candidates,
+    metres_per_unit: f64,
+    progress: &dyn Progress,
+) -> Result<Solution, Rejection> {
+    let input = FitInput {
+        reference: reference.points,
+        target: target.points,
+        reference_index: reference.index,
+        target_index: target.index,
+        target_order: target.order,
+        reference_signatures: &found.reference_signatures,
+        target_signatures: &found.target_signatures,
+        candidates: &found.candidates,
+        metres_per_unit,
+        reference_spacing: found.search.reference_spacing,
+    };
+    stage(progress, "robust fit", None, |_| {
+        fit::robust_fit(&input, &config.fit, &mut |m| progress.message(m))
+    })
+}
