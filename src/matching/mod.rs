@@ -1,11 +1,13 @@
 //! Stage 4 — matching: candidate correspondences between the two surveys' signatures.
 //!
 //! **In:** reference and target [`Signatures`] and the number of candidates per query.
-//! **Out:** [`Candidate`]s: (target signature, reference signature, key distance), best first.
+//! **Out:** [`Candidate`]s: (target signature, reference signature, ranking score), best
+//! first.
 //!
-//! The reference keys go into a kiddo k-d tree of the keys' dimension (2 for one harmonic, 4
-//! for two); every target key asks for its nearest few. Queries run in Morton order of the
-//! keys' first two coordinates, so that consecutive queries touch nearby leaves.
+//! The reference keys go into a kiddo k-d tree of the keys' dimension (per harmonic 2 in the
+//! unit disc, 3 on the unit sphere: 2, 3, 4 or 6); every target key asks for its nearest few.
+//! Queries run in Morton order of the keys' first two coordinates, so that consecutive queries
+//! touch nearby leaves.
 
 mod params;
 
@@ -36,13 +38,13 @@ pub struct Candidate {
     pub target: u32,
     /// Index into the reference signatures.
     pub reference: u32,
-    /// Ranking score, smaller is better: the key distance, or that distance over the keys'
-    /// predicted noise ([`Rank`]).
-    pub distance: f64,
+    /// Ranking score, smaller is better: the key distance under [`Rank::Distance`], that
+    /// distance over the keys' predicted noise under [`Rank::Sensitivity`].
+    pub score: f64,
 }
 
-/// Finds, for every target signature, its `per_query` nearest reference signatures.
-/// The result is sorted by key distance, best first.
+/// Finds, for every target signature, its `per_query` best reference signatures by `rank`.
+/// The result is sorted by score, best first.
 ///
 /// # Panics
 /// When the two signature sets have different key dimensions, or a dimension other than 2, 3,
@@ -62,7 +64,7 @@ pub fn candidates(
         6 => candidates_k::<6>(reference, target, per_query, rank, progress),
         d => panic!("unsupported key dimension {d}"),
     };
-    out.sort_by(|a, b| a.distance.total_cmp(&b.distance));
+    out.sort_by(|a, b| a.score.total_cmp(&b.score));
     out
 }
 
@@ -103,16 +105,16 @@ fn candidates_k<const K: usize>(
         out.extend(found.into_iter().map(|r| Candidate {
             target: t,
             reference: r.item,
-            distance: r.distance.sqrt(),
+            score: r.distance.sqrt(),
         }));
         if rank == Rank::Sensitivity {
             let st = target.sensitivity[t as usize] as f64;
             let mine = &mut out[start..];
             for c in mine.iter_mut() {
                 let sr = reference.sensitivity[c.reference as usize] as f64;
-                c.distance /= (st * st + sr * sr).sqrt().max(f64::MIN_POSITIVE);
+                c.score /= (st * st + sr * sr).sqrt().max(f64::MIN_POSITIVE);
             }
-            mine.sort_by(|a, b| a.distance.total_cmp(&b.distance));
+            mine.sort_by(|a, b| a.score.total_cmp(&b.score));
             out.truncate(start + per_query);
         }
         if i % 65536 == 65535 {
@@ -146,7 +148,7 @@ mod tests {
             let t = random_sigs(&mut rng, 300, dims);
             let c = candidates(&r, &t, 3, Rank::Distance, &mut |_| {});
             assert_eq!(c.len(), 900);
-            assert!(c.windows(2).all(|w| w[0].distance <= w[1].distance));
+            assert!(c.windows(2).all(|w| w[0].score <= w[1].score));
             for ti in 0..t.len() {
                 let mut brute: Vec<(usize, f64)> = (0..r.len())
                     .map(|i| {
@@ -162,7 +164,7 @@ mod tests {
                 brute.sort_by(|a, b| a.1.total_cmp(&b.1));
                 let mut got: Vec<&Candidate> =
                     c.iter().filter(|x| x.target as usize == ti).collect();
-                got.sort_by(|a, b| a.distance.total_cmp(&b.distance));
+                got.sort_by(|a, b| a.score.total_cmp(&b.score));
                 for (g, b) in got.iter().zip(&brute) {
                     assert_eq!(g.reference as usize, b.0, "dims {dims}");
                 }
