@@ -210,13 +210,14 @@ pub fn find_candidates(
         "matching signatures",
         Some(ts.len() as u64),
         |advance| {
-            Ok::<_, MatchingError>(matching::candidates(
+            matching::candidates(
                 rs,
                 ts,
                 config.matching.candidates,
                 config.matching.rank,
                 advance,
-            ))
+            )
+            .map_err(|e| e.in_survey(&labels[0]))
         },
     )?;
     Ok(Candidates {

@@ -55,6 +55,3 @@ impl MatchingParams {
     }
 }
 
-/// TEMPORARY until the matching error lands.
-#[derive(Debug, thiserror::Error)]
-pub enum MatchingError {}
