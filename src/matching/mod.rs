@@ -257,34 +257,67 @@ mod tests {
     }
 
     #[test]
-    fn candidates_agree_with_brute_force() {
+    fn candidates_agree_with_brute_force_at_every_key_dimension() {
         let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(2);
-        for dims in [2, 4] {
+        for dims in [2, 3, 4, 6] {
             let r = random_sigs(&mut rng, 2000, dims);
             let t = random_sigs(&mut rng, 300, dims);
             let c = candidates(&r, &t, 3, Rank::Distance, &mut |_| {}).unwrap();
             assert_eq!(c.len(), 900);
             assert!(c.windows(2).all(|w| w[0].score <= w[1].score));
             for ti in 0..t.len() {
-                let mut brute: Vec<(usize, f64)> = (0..r.len())
-                    .map(|i| {
-                        let d2: f64 = r
-                            .key(i)
-                            .iter()
-                            .zip(t.key(ti))
-                            .map(|(a, b)| (a - b).powi(2))
-                            .sum();
-                        (i, d2.sqrt())
-                    })
-                    .collect();
-                brute.sort_by(|a, b| a.1.total_cmp(&b.1));
-                let mut got: Vec<&Candidate> =
-                    c.iter().filter(|x| x.target as usize == ti).collect();
-                got.sort_by(|a, b| a.score.total_cmp(&b.score));
+                let brute = by_distance(&r, &t, ti);
+                let got = of_target(&c, ti);
+                assert_eq!(got.len(), 3, "dims {dims}");
                 for (g, b) in got.iter().zip(&brute) {
                     assert_eq!(g.reference as usize, b.0, "dims {dims}");
+                    assert!((g.score - b.1).abs() <= 1e-12 * b.1.max(1.0), "dims {dims}");
                 }
             }
+        }
+    }
+
+    /// Rank::Sensitivity as documented: the 2·per_query nearest by key distance, ranked by
+    /// distance / √(s_t² + s_r²), the best per_query kept.
+    #[test]
+    fn sensitivity_rank_agrees_with_brute_force_on_the_nearest_twice_as_many() {
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(3);
+        let per_query = 3;
+        for dims in [2, 3, 4, 6] {
+            let r = random_sigs(&mut rng, 2000, dims);
+            let t = random_sigs(&mut rng, 300, dims);
+            let c = candidates(&r, &t, per_query, Rank::Sensitivity, &mut |_| {}).unwrap();
+            assert_eq!(c.len(), 300 * per_query);
+            assert!(c.windows(2).all(|w| w[0].score <= w[1].score));
+            // Queries where the ranking differs from plain distance, and where ranking every
+            // reference signature by the score would have picked another one: both must occur,
+            // else this test could not tell the ranking or its restriction from the others.
+            let (mut reordered, mut restricted) = (0, 0);
+            for ti in 0..t.len() {
+                let st = t.sensitivity[ti] as f64;
+                let score = |&(i, d): &(usize, f64)| {
+                    let sr = r.sensitivity[i] as f64;
+                    (i, d / (st * st + sr * sr).sqrt())
+                };
+                let nearest = by_distance(&r, &t, ti);
+                let mut brute: Vec<(usize, f64)> =
+                    nearest[..2 * per_query].iter().map(score).collect();
+                brute.sort_by(|a, b| a.1.total_cmp(&b.1));
+                let mut global: Vec<(usize, f64)> = nearest.iter().map(score).collect();
+                global.sort_by(|a, b| a.1.total_cmp(&b.1));
+                let got = of_target(&c, ti);
+                assert_eq!(got.len(), per_query, "dims {dims}");
+                for (g, b) in got.iter().zip(&brute) {
+                    assert_eq!(g.reference as usize, b.0, "dims {dims} query {ti}");
+                    assert!((g.score - b.1).abs() <= 1e-12 * b.1.max(1.0), "dims {dims}");
+                }
+                let ids =
+                    |v: &[(usize, f64)]| v[..per_query].iter().map(|x| x.0).collect::<Vec<_>>();
+                reordered += usize::from(ids(&brute) != ids(&nearest));
+                restricted += usize::from(ids(&brute) != ids(&global));
+            }
+            assert!(reordered > 30, "dims {dims}: {reordered}");
+            assert!(restricted > 30, "dims {dims}: {restricted}");
         }
     }
 
