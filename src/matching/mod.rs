@@ -403,6 +403,6 @@ mod tests {
                 max: u32::MAX as usize
             }
         );
-        assert!(e.to_string().contains("--leave-out"));
+        assert!(e.to_string().contains("signatures.leave_out"));
     }
 }

@@ -54,4 +54,3 @@ impl MatchingParams {
         self.rank == Rank::Sensitivity
     }
 }
-
