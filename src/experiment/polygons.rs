@@ -274,13 +274,7 @@ pub fn is_star_shaped(poly: &[[f64; 2]]) -> bool {
     if poly.len() < 3 || self_intersects(poly) {
         return false;
     }
-    let (mut lo, mut hi) = ([f64::INFINITY; 2], [f64::NEG_INFINITY; 2]);
-    for p in poly {
-        for d in 0..2 {
-            lo[d] = lo[d].min(p[d]);
-            hi[d] = hi[d].max(p[d]);
-        }
-    }
+    let crate::spatial::Extent { min: lo, max: hi } = crate::spatial::Extent::of(poly);
     let box_area = (hi[0] - lo[0]) * (hi[1] - lo[1]);
     let mut kernel = vec![lo, [hi[0], lo[1]], hi, [lo[0], hi[1]]];
     let ccw = signed_area(poly) > 0.0;

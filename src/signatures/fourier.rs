@@ -178,9 +178,10 @@ impl std::fmt::Display for KeySpace {
 }
 
 /// Maps a ratio r from the whole complex plane into the open unit disc, r / (1 + |r|), so that
-/// signatures can be indexed by a 2-D k-d tree with bounded coordinates. Non-finite input maps
-/// to a point on the unit circle (or the origin for NaN), so it can never be near a finite one
-/// by accident.
+/// signatures can be indexed by a 2-D k-d tree with bounded coordinates. An infinite ratio
+/// maps to the point of the unit circle in its direction, so it can never be near a finite one
+/// by accident; NaN maps to NaN, and the signature stage drops every key with a non-finite
+/// coordinate.
 #[inline]
 pub fn bounded(r: Complex64) -> [f64; 2] {
     if r.re.is_nan() || r.im.is_nan() {
@@ -203,7 +204,7 @@ pub fn bounded(r: Complex64) -> [f64; 2] {
 /// complex Gaussian coefficients is uniform on this sphere (its density 1/(π(1 + |r|²)²) is
 /// the sphere's area element carried to the plane; checked by sampling in the tests), so its keys neither
 /// crowd near the rim, as the disc map's do for large |r|, nor near the centre. `∞` maps to
-/// the pole (0, 0, 1); NaN to NaN.
+/// the pole (0, 0, 1); NaN to NaN (the signature stage drops such keys).
 #[inline]
 pub fn spherical(r: Complex64) -> [f64; 3] {
     if r.re.is_nan() || r.im.is_nan() {
