@@ -50,6 +50,17 @@ mod tests {
     }
 
     #[test]
+    fn golden_permutations() {
+        // Pinned literals: the permutation is part of the key definition, so a change of rand's
+        // shuffle or of ChaCha8's stream (a dependency upgrade) must fail here rather than
+        // silently change every permuted key. Recorded from this implementation (rand 0.8,
+        // rand_chacha 0.3); there is no outside source for them.
+        assert_eq!(fixed_permutation(5), [3, 0, 1, 2, 4]);
+        assert_eq!(fixed_permutation(6), [5, 3, 2, 0, 4, 1]);
+        assert_eq!(fixed_permutation(10), [9, 0, 7, 1, 2, 4, 6, 5, 3, 8]);
+    }
+
+    #[test]
     fn apply_reorders() {
         let mut v = [10, 11, 12, 13];
         let mut scratch = Vec::new();

@@ -236,3 +236,221 @@ fn options_are_validated() {
     assert!(with(3, vec![1]).validate().is_ok());
     assert!(SignatureParams::plain(5).validate().is_ok());
 }
+
+// Golden values. The literals below pin the keys, so that an upgrade of rustfft or rand (the
+// fixed permutation, see permutation.rs) cannot silently change every key; each literal is
+// also recomputed here by a direct DFT written out in this file, independent of fourier.rs,
+// which shows the literals are the documented quantities and not just whatever the code gave.
+
+/// Z_k = Σ_m z_m · exp(−2πi·m·k/n), written out.
+fn dft_by_hand(z: &[Complex64], k: usize) -> Complex64 {
+    let n = z.len();
+    let mut sum = Complex64::new(0.0, 0.0);
+    for (m, v) in z.iter().enumerate() {
+        let ang = -2.0 * std::f64::consts::PI * ((m * k) % n) as f64 / n as f64;
+        sum += v * Complex64::new(ang.cos(), ang.sin());
+    }
+    sum
+}
+
+/// The key of polygon `z` by hand: per harmonic j, r_j = Z_j / Z_{−j} (Z_{−j} = Z_{n−j}),
+/// mapped to the disc as r / (1 + |r|) or to the sphere as (2 Re r, 2 Im r, |r|² − 1) / (|r|² + 1)
+/// (the maps documented in fourier.rs).
+fn key_by_hand(z: &[Complex64], js: &[usize], space: KeySpace) -> Vec<f64> {
+    let mut key = Vec::new();
+    for &j in js {
+        let r = dft_by_hand(z, j) / dft_by_hand(z, z.len() - j);
+        let (m, q) = (r.norm(), r.norm_sqr());
+        match space {
+            KeySpace::Disc => key.extend([r.re / (1.0 + m), r.im / (1.0 + m)]),
+            KeySpace::Sphere => key.extend([
+                2.0 * r.re / (1.0 + q),
+                2.0 * r.im / (1.0 + q),
+                (q - 1.0) / (1.0 + q),
+            ]),
+        }
+    }
+    key
+}
+
+fn complex(points: &[[f64; 2]]) -> Vec<Complex64> {
+    points.iter().map(|p| Complex64::new(p[0], p[1])).collect()
+}
+
+fn assert_close(got: &[f64], want: &[f64], what: &str) {
+    assert_eq!(got.len(), want.len(), "{what}");
+    for (g, w) in got.iter().zip(want) {
+        assert!((g - w).abs() < 1e-12, "{what}: got {got:?}, want {want:?}");
+    }
+}
+
+/// A fixed irregular pentagon (a polygon of k = 4 neighbours) and hexagon (k = 5).
+const PENTAGON: [[f64; 2]; 5] = [[0.0, 0.0], [3.2, 0.7], [4.1, 4.5], [0.6, 5.3], [-2.4, 1.9]];
+const HEXAGON: [[f64; 2]; 6] = [
+    [0.0, 0.0],
+    [2.5, -1.2],
+    [5.1, 0.3],
+    [4.4, 3.6],
+    [1.2, 4.1],
+    [-1.3, 2.2],
+];
+/// fixed_permutation(5), pinned in permutation.rs.
+const PERMUTATION_5: [usize; 5] = [3, 0, 1, 2, 4];
+
+#[test]
+fn golden_keys_of_fixed_polygons() {
+    let permuted: Vec<[f64; 2]> = PERMUTATION_5.iter().map(|&i| PENTAGON[i]).collect();
+    // (polygon, permute it with the library's fixed permutation first, disc key, sphere key),
+    // harmonics 1 and 2.
+    let cases: [(&[[f64; 2]], bool, [f64; 4], [f64; 6]); 3] = [
+        (
+            &PENTAGON,
+            false,
+            [
+                0.18494242266584524,
+                0.8675690464960387,
+                0.5260476523274152,
+                -0.015061566858214224,
+            ],
+            [
+                0.052241228921559996,
+                0.24506477480912342,
+                0.9680981924105213,
+                0.9940897489195005,
+                -0.028462343953390448,
+                0.104763858605166,
+            ],
+        ),
+        (
+            &HEXAGON,
+            false,
+            [
+                -0.23281749843547192,
+                0.8902847460911879,
+                0.5605729477596865,
+                -0.25921044699202384,
+            ],
+            [
+                -0.043539501690246875,
+                0.1664933025555284,
+                0.985080855562993,
+                0.812500000000001,
+                -0.3757021972300132,
+                0.44574836959493047,
+            ],
+        ),
+        (
+            &PENTAGON,
+            true,
+            [
+                0.35740317720613074,
+                0.621844702269627,
+                0.31914203138866415,
+                -0.38293679224393856,
+            ],
+            [
+                0.34005219962239663,
+                0.5916557890820386,
+                0.7309636986729777,
+                0.6402059143153986,
+                -0.7681796037231231,
+                -0.0060401737864106755,
+            ],
+        ),
+    ];
+    let js = [1, 2];
+    for (c, (polygon, permute, disc, sphere)) in cases.iter().enumerate() {
+        let mut z = complex(polygon);
+        if *permute {
+            let mut scratch = Vec::new();
+            permutation::apply(
+                &permutation::fixed_permutation(z.len()),
+                &mut z,
+                &mut scratch,
+            );
+        }
+        // The library's path: the planned FFT, then the key-space map.
+        let mut ratios = Vec::new();
+        fourier::RatioPlan::new(z.len(), &js).ratios(&mut z.clone(), &mut ratios);
+        // The independent path: the permutation literal and the DFT by hand.
+        let by_hand_polygon = if *permute {
+            complex(&permuted)
+        } else {
+            complex(polygon)
+        };
+        for (space, want) in [(KeySpace::Disc, &disc[..]), (KeySpace::Sphere, &sphere[..])] {
+            let mut key = Vec::new();
+            for &r in &ratios {
+                space.push(r, &mut key);
+            }
+            assert_close(&key, want, &format!("case {c}, {space}: library"));
+            assert_close(
+                &key_by_hand(&by_hand_polygon, &js, space),
+                want,
+                &format!("case {c}, {space}: by hand"),
+            );
+        }
+    }
+}
+
+#[test]
+fn golden_keys_of_a_fixed_point_set() {
+    // The whole stage on the pentagon's five points as a survey: k = 4 (each polygon is all
+    // five points), the nearest-neighbour walk, the fixed permutation, keys on the sphere.
+    let params = SignatureParams {
+        neighbours: 4,
+        leave_out: 0,
+        permuted: true,
+        key_space: KeySpace::Sphere,
+        harmonics: vec![1, 2],
+        ..SignatureParams::default()
+    };
+    let s = sigs_of(&PENTAGON, &params);
+    assert_eq!(s.len(), 5);
+    // Walk polygons (landmark first, then the nearest unvisited point each step), worked out
+    // from the pairwise distances outside the library.
+    let walks: [[u32; 5]; 5] = [
+        [0, 4, 3, 2, 1],
+        [1, 0, 4, 3, 2],
+        [2, 3, 4, 0, 1],
+        [3, 2, 1, 0, 4],
+        [4, 0, 1, 2, 3],
+    ];
+    let golden: [(u32, [f64; 6]); 2] = [
+        (
+            0,
+            [
+                0.18667628399168495,
+                0.767657842241364,
+                -0.6130688397238837,
+                0.626816773579219,
+                -0.7668629927673771,
+                -0.1379198415152793,
+            ],
+        ),
+        (
+            3,
+            [
+                0.05007395237520366,
+                0.7513966182223767,
+                -0.6579481145329787,
+                0.8038328734946537,
+                -0.5817967007517431,
+                -0.12395688961778088,
+            ],
+        ),
+    ];
+    for i in 0..s.len() {
+        let landmark = s.landmark(i);
+        assert_eq!(s.polygon(i), &walks[landmark as usize][..]);
+        let polygon: Vec<[f64; 2]> = PERMUTATION_5
+            .iter()
+            .map(|&p| PENTAGON[s.polygon(i)[p] as usize])
+            .collect();
+        let by_hand = key_by_hand(&complex(&polygon), &params.harmonics, KeySpace::Sphere);
+        assert_close(s.key(i), &by_hand, &format!("landmark {landmark}: by hand"));
+        if let Some((_, want)) = golden.iter().find(|g| g.0 == landmark) {
+            assert_close(s.key(i), want, &format!("landmark {landmark}: golden"));
+        }
+    }
+}
