@@ -290,3 +290,233 @@ pub fn working_frame(
         target: tgt_w,
     })
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use std::path::PathBuf;
+
+    /// A survey of `points` read from `name`, declaring `crs` (any definition GDAL reads) as
+    /// its layer's CRS, or none.
+    fn survey(name: &str, points: Vec<[f64; 2]>, crs: Option<&str>) -> LandmarkSet {
+        LandmarkSet {
+            source: PathBuf::from(name),
+            layer: "landmarks".into(),
+            ids: (0..points.len()).map(|i| format!("L{i}")).collect(),
+            points,
+            crs_wkt: crs.map(|c| Crs::parse(c, "test").unwrap().wkt),
+            skipped_without_geometry: 0,
+        }
+    }
+
+    /// Four corners of a box centred on (x, y) with half-widths (dx, dy).
+    fn box_around(x: f64, y: f64, dx: f64, dy: f64) -> Vec<[f64; 2]> {
+        vec![
+            [x - dx, y - dy],
+            [x + dx, y - dy],
+            [x + dx, y + dy],
+            [x - dx, y + dy],
+        ]
+    }
+
+    fn frame_of(
+        reference: &LandmarkSet,
+        target: &LandmarkSet,
+        options: &FrameOptions,
+    ) -> WorkingFrame {
+        working_frame(reference, target, options).unwrap()
+    }
+
+    #[test]
+    fn geographic_reference_gets_the_utm_zone_of_its_centre() {
+        // Near 14.4°E 47.0°N: zone 33 (12°E..18°E), northern hemisphere.
+        let reference = survey(
+            "ref.gpkg",
+            box_around(14.4, 47.0, 0.02, 0.01),
+            Some("EPSG:4326"),
+        );
+        let target = survey(
+            "tgt.gpkg",
+            box_around(14.4, 47.0, 0.01, 0.01),
+            Some("EPSG:4326"),
+        );
+        let wf = frame_of(&reference, &target, &FrameOptions::default());
+        assert_eq!(wf.crs.authority.as_deref(), Some("EPSG:32633"));
+        assert!(!wf.crs.geographic);
+        assert!(
+            wf.chosen_because.contains("UTM zone"),
+            "{}",
+            wf.chosen_because
+        );
+        assert!(wf.reference_crs.geographic);
+        // The points are in metres now: 14.4°E is 0.6° west of the zone's central meridian 15°E
+        // (x = 500 km), so x ≈ 500 km − 0.6° · 111 km · cos 47° ≈ 455 km; 47°N is about
+        // 5 205 km north of the equator.
+        for p in wf.reference.iter().chain(&wf.target) {
+            assert!((440_000.0..470_000.0).contains(&p[0]), "{p:?}");
+            assert!((5_190_000.0..5_220_000.0).contains(&p[1]), "{p:?}");
+        }
+        // Going back gives the longitudes and latitudes read.
+        let back = wf.to_reference_crs(&wf.reference).unwrap();
+        for (b, p) in back.iter().zip(&reference.points) {
+            assert!(
+                (b[0] - p[0]).abs() < 1e-9 && (b[1] - p[1]).abs() < 1e-9,
+                "{b:?} {p:?}"
+            );
+        }
+    }
+
+    #[test]
+    fn southern_reference_gets_a_south_zone() {
+        // Near 151.2°E 33.9°S: zone 56 (150°E..156°E), south: EPSG:327zz.
+        let reference = survey(
+            "ref.gpkg",
+            box_around(151.2, -33.9, 0.01, 0.01),
+            Some("EPSG:4326"),
+        );
+        let target = survey(
+            "tgt.gpkg",
+            box_around(151.2, -33.9, 0.01, 0.01),
+            Some("EPSG:4326"),
+        );
+        let wf = frame_of(&reference, &target, &FrameOptions::default());
+        assert_eq!(wf.crs.authority.as_deref(), Some("EPSG:32756"));
+        // A south zone has its false northing of 10 000 km: 33.9°S is about 6 250 km.
+        assert!(wf
+            .reference
+            .iter()
+            .all(|p| (6_200_000.0..6_300_000.0).contains(&p[1])));
+    }
+
+    #[test]
+    fn zone_choice_at_a_zone_edge_and_at_the_equator() {
+        // Zone z spans longitudes [−180 + 6(z − 1), −180 + 6z): the edge at 12°E belongs to
+        // zone 33. A centre of exactly 12°E (11.5 and 12.5 average exactly) is zone 33; a
+        // centre just west of it is zone 32. The equator itself counts as north.
+        let zone = |lon0: f64, lon1: f64, lat: f64| {
+            let pts = vec![[lon0, lat - 0.2], [lon1, lat + 0.2], [lon0, lat + 0.2]];
+            let reference = survey("ref.gpkg", pts.clone(), None);
+            let target = survey("tgt.gpkg", pts, None);
+            let options = FrameOptions {
+                reference_crs: Some("EPSG:4326".into()),
+                target_crs: Some("EPSG:4326".into()),
+                working_crs: None,
+            };
+            frame_of(&reference, &target, &options)
+                .crs
+                .authority
+                .unwrap()
+        };
+        assert_eq!(zone(11.5, 12.5, 47.0), "EPSG:32633");
+        assert_eq!(zone(11.5, 12.49, 47.0), "EPSG:32632");
+        assert_eq!(zone(11.5, 12.5, 0.0), "EPSG:32633");
+        assert_eq!(zone(11.5, 12.5, -0.01), "EPSG:32733");
+    }
+
+    #[test]
+    fn projected_reference_is_the_working_crs_and_a_converted_target_overlaps() {
+        // The reference in UTM 33N, the target the same place in lon/lat: the target is
+        // converted into the reference's CRS and lands on it.
+        let utm = box_around(455_000.0, 5_210_000.0, 500.0, 500.0);
+        let to_ll = Converter::new(
+            &Crs::parse("EPSG:32633", "test").unwrap(),
+            &Crs::parse("EPSG:4326", "test").unwrap(),
+        )
+        .unwrap();
+        let ll: Vec<[f64; 2]> = utm.iter().map(|&p| to_ll.convert(p).unwrap()).collect();
+        let reference = survey("ref.gpkg", utm.clone(), Some("EPSG:32633"));
+        let target = survey("tgt.geojson", ll, Some("EPSG:4326"));
+        let wf = frame_of(&reference, &target, &FrameOptions::default());
+        assert_eq!(wf.crs.authority.as_deref(), Some("EPSG:32633"));
+        assert_eq!(wf.chosen_because, "the reference's CRS");
+        assert_eq!(wf.reference, utm, "the reference is not touched");
+        for (t, r) in wf.target.iter().zip(&utm) {
+            assert!((t[0] - r[0]).abs() < 1e-6 && (t[1] - r[1]).abs() < 1e-6);
+        }
+    }
+
+    #[test]
+    fn local_target_is_left_as_it_is() {
+        // A target in a local grid far from the reference: no CRS, no conversion, and no
+        // overlap check (the fitted similarity is its calibration).
+        let reference = survey(
+            "ref.gpkg",
+            box_around(455_000.0, 5_210_000.0, 500.0, 500.0),
+            Some("EPSG:32633"),
+        );
+        let local = vec![[5000.0, 10000.0], [5120.5, 10033.25], [4990.0, 10200.0]];
+        let target = survey("grid.csv", local.clone(), None);
+        let options = FrameOptions {
+            target_crs: Some("LOCAL".into()),
+            ..FrameOptions::default()
+        };
+        let wf = frame_of(&reference, &target, &options);
+        assert!(wf.target_crs.is_none());
+        assert_eq!(wf.target, local);
+        // The word is not allowed for the reference.
+        let options = FrameOptions {
+            reference_crs: Some("local".into()),
+            ..FrameOptions::default()
+        };
+        assert!(matches!(
+            working_frame(&reference, &target, &options),
+            Err(FrameError::LocalReference)
+        ));
+    }
+
+    #[test]
+    fn georeferenced_surveys_far_apart_do_not_overlap() {
+        // Both in UTM 33N, 150 km apart.
+        let reference = survey(
+            "ref.gpkg",
+            box_around(455_000.0, 5_210_000.0, 500.0, 500.0),
+            Some("EPSG:32633"),
+        );
+        let target = survey(
+            "tgt.gpkg",
+            box_around(605_000.0, 5_210_000.0, 500.0, 500.0),
+            Some("EPSG:32633"),
+        );
+        match working_frame(&reference, &target, &FrameOptions::default()) {
+            Err(FrameError::NoOverlap { crs, rx1, tx0, .. }) => {
+                assert!(crs.starts_with("EPSG:32633"), "{crs}");
+                assert_eq!((rx1, tx0), (455_500.0, 604_500.0));
+            }
+            other => panic!("expected NoOverlap, got {other:?}"),
+        }
+        // Apart in y only is also no overlap.
+        let target = survey(
+            "tgt.gpkg",
+            box_around(455_000.0, 5_300_000.0, 500.0, 500.0),
+            Some("EPSG:32633"),
+        );
+        assert!(matches!(
+            working_frame(&reference, &target, &FrameOptions::default()),
+            Err(FrameError::NoOverlap { .. })
+        ));
+    }
+
+    #[test]
+    fn geographic_working_crs_is_refused() {
+        let reference = survey(
+            "ref.gpkg",
+            box_around(14.4, 47.0, 0.01, 0.01),
+            Some("EPSG:4326"),
+        );
+        let target = survey(
+            "tgt.gpkg",
+            box_around(14.4, 47.0, 0.01, 0.01),
+            Some("EPSG:4326"),
+        );
+        let options = FrameOptions {
+            working_crs: Some("EPSG:4258".into()),
+            ..FrameOptions::default()
+        };
+        match working_frame(&reference, &target, &options) {
+            Err(FrameError::GeographicWorking(label)) => {
+                assert!(label.starts_with("EPSG:4258"), "{label}")
+            }
+            other => panic!("expected GeographicWorking, got {other:?}"),
+        }
+    }
+}
