@@ -2,7 +2,7 @@
 //! The similarity fit against a published transformation run through PROJ.
 
 use proj::Proj;
-use tiemark::fit::similarity::fit_similarity;
+use tiemark::fit::similarity::{fit_similarity, Similarity};
 
 #[test]
 fn recovers_the_epsg_9621_parameters_of_epsg_5166_through_proj() {
@@ -52,4 +52,72 @@ fn recovers_the_epsg_9621_parameters_of_epsg_5166_through_proj() {
         "{t:?}"
     );
     assert!(fit.rmse < 1e-6);
+}
+
+/// The PROJ 2-D Helmert step of a tiemark similarity. PROJ's form (PROJ Helmert documentation;
+/// EPSG method 9621, IOGP Guidance Note 7-2) is x' = x0 + s(cos θ x + sin θ y),
+/// y' = y0 + s(−sin θ x + cos θ y): with +theta present +s is a plain factor, +theta is in
+/// arc-seconds and turns points clockwise. tiemark's x' = a x − b y + tx, y' = b x + a y + ty
+/// turns them counter-clockwise, so s = hypot(a, b) and θ = −atan2(b, a).
+fn helmert_step(t: &Similarity) -> String {
+    let theta = -t.b.atan2(t.a).to_degrees() * 3600.0;
+    format!(
+        "+proj=helmert +x={} +y={} +s={} +theta={}",
+        t.tx,
+        t.ty,
+        t.a.hypot(t.b),
+        theta
+    )
+}
+
+fn run(proj: &Proj, p: [f64; 2]) -> [f64; 2] {
+    let (x, y): (f64, f64) = proj.convert((p[0], p[1])).unwrap();
+    [x, y]
+}
+
+fn distance(p: [f64; 2], q: [f64; 2]) -> f64 {
+    (p[0] - q[0]).hypot(p[1] - q[1])
+}
+
+#[test]
+fn compose_and_inverse_agree_with_a_proj_helmert_pipeline() {
+    // Two similarities with large rotations of both senses, so that a wrong rotation sense, a
+    // wrong composition order or a wrong inverse shows up as metres, not micrometres.
+    let first = Similarity::from_params(1.25, 30f64.to_radians(), 1200.0, -3400.0);
+    let second = Similarity::from_params(0.8, -75f64.to_radians(), -50_000.0, 20_000.0);
+    let composed = second.compose(&first);
+    let points: Vec<[f64; 2]> = (0..16)
+        .map(|i| {
+            [
+                -40_000.0 + 9_000.0 * (i % 4) as f64 + 13.7 * i as f64,
+                25_000.0 + 11_000.0 * (i / 4) as f64,
+            ]
+        })
+        .collect();
+    let (s1, s2) = (helmert_step(&first), helmert_step(&second));
+    // Each step alone: the parameter mapping above is right.
+    for (t, step) in [(&first, &s1), (&second, &s2)] {
+        let proj = Proj::new(step).unwrap();
+        for &p in &points {
+            assert!(distance(run(&proj, p), t.apply(p)) < 1e-6, "{step}");
+        }
+    }
+    // A pipeline runs its steps in order: first, then second.
+    let forward = Proj::new(&format!("+proj=pipeline +step {s1} +step {s2}")).unwrap();
+    // Its inverse: each step inverted (+inv), in reverse order.
+    let backward = Proj::new(&format!("+proj=pipeline +step +inv {s2} +step +inv {s1}")).unwrap();
+    let first_inverse = Proj::new(&format!("+proj=pipeline +step +inv {s1}")).unwrap();
+    let inverse = composed.inverse();
+    let wrong_order = first.compose(&second);
+    for &p in &points {
+        let q = run(&forward, p);
+        assert!(distance(q, composed.apply(p)) < 1e-6, "compose at {p:?}");
+        // The check can tell the order apart.
+        assert!(distance(q, wrong_order.apply(p)) > 1.0);
+        assert!(
+            distance(run(&backward, p), inverse.apply(p)) < 1e-6,
+            "inverse at {p:?}"
+        );
+        assert!(distance(run(&first_inverse, p), first.inverse().apply(p)) < 1e-6);
+    }
 }
