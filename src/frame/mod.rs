@@ -319,12 +319,27 @@ mod tests {
         ]
     }
 
-    fn frame_of(
+    /// The CRS choices of one test: each survey's override and the working CRS.
+    #[derive(Default)]
+    struct Choice {
+        reference_crs: Option<&'static str>,
+        target_crs: Option<&'static str>,
+        working_crs: Option<&'static str>,
+    }
+
+    fn try_frame(
         reference: &LandmarkSet,
         target: &LandmarkSet,
-        options: &FrameOptions,
-    ) -> WorkingFrame {
-        working_frame(reference, target, options).unwrap()
+        c: &Choice,
+    ) -> Result<WorkingFrame, FrameError> {
+        let options = FrameOptions {
+            working_crs: c.working_crs.map(String::from),
+        };
+        working_frame(reference, c.reference_crs, target, c.target_crs, &options)
+    }
+
+    fn frame_of(reference: &LandmarkSet, target: &LandmarkSet, c: &Choice) -> WorkingFrame {
+        try_frame(reference, target, c).unwrap()
     }
 
     #[test]
@@ -340,7 +355,7 @@ mod tests {
             box_around(14.4, 47.0, 0.01, 0.01),
             Some("EPSG:4326"),
         );
-        let wf = frame_of(&reference, &target, &FrameOptions::default());
+        let wf = frame_of(&reference, &target, &Choice::default());
         assert_eq!(wf.crs.authority.as_deref(), Some("EPSG:32633"));
         assert!(!wf.crs.geographic);
         assert!(
@@ -379,7 +394,7 @@ mod tests {
             box_around(151.2, -33.9, 0.01, 0.01),
             Some("EPSG:4326"),
         );
-        let wf = frame_of(&reference, &target, &FrameOptions::default());
+        let wf = frame_of(&reference, &target, &Choice::default());
         assert_eq!(wf.crs.authority.as_deref(), Some("EPSG:32756"));
         // A south zone has its false northing of 10 000 km: 33.9°S is about 6 250 km.
         assert!(wf
@@ -397,9 +412,9 @@ mod tests {
             let pts = vec![[lon0, lat - 0.2], [lon1, lat + 0.2], [lon0, lat + 0.2]];
             let reference = survey("ref.gpkg", pts.clone(), None);
             let target = survey("tgt.gpkg", pts, None);
-            let options = FrameOptions {
-                reference_crs: Some("EPSG:4326".into()),
-                target_crs: Some("EPSG:4326".into()),
+            let options = Choice {
+                reference_crs: Some("EPSG:4326"),
+                target_crs: Some("EPSG:4326"),
                 working_crs: None,
             };
             frame_of(&reference, &target, &options)
@@ -426,7 +441,7 @@ mod tests {
         let ll: Vec<[f64; 2]> = utm.iter().map(|&p| to_ll.convert(p).unwrap()).collect();
         let reference = survey("ref.gpkg", utm.clone(), Some("EPSG:32633"));
         let target = survey("tgt.geojson", ll, Some("EPSG:4326"));
-        let wf = frame_of(&reference, &target, &FrameOptions::default());
+        let wf = frame_of(&reference, &target, &Choice::default());
         assert_eq!(wf.crs.authority.as_deref(), Some("EPSG:32633"));
         assert_eq!(wf.chosen_because, "the reference's CRS");
         assert_eq!(wf.reference, utm, "the reference is not touched");
@@ -446,20 +461,20 @@ mod tests {
         );
         let local = vec![[5000.0, 10000.0], [5120.5, 10033.25], [4990.0, 10200.0]];
         let target = survey("grid.csv", local.clone(), None);
-        let options = FrameOptions {
-            target_crs: Some("LOCAL".into()),
-            ..FrameOptions::default()
+        let options = Choice {
+            target_crs: Some("LOCAL"),
+            ..Choice::default()
         };
         let wf = frame_of(&reference, &target, &options);
         assert!(wf.target_crs.is_none());
         assert_eq!(wf.target, local);
         // The word is not allowed for the reference.
-        let options = FrameOptions {
-            reference_crs: Some("local".into()),
-            ..FrameOptions::default()
+        let options = Choice {
+            reference_crs: Some("local"),
+            ..Choice::default()
         };
         assert!(matches!(
-            working_frame(&reference, &target, &options),
+            try_frame(&reference, &target, &options),
             Err(FrameError::LocalReference)
         ));
     }
@@ -477,7 +492,7 @@ mod tests {
             box_around(605_000.0, 5_210_000.0, 500.0, 500.0),
             Some("EPSG:32633"),
         );
-        match working_frame(&reference, &target, &FrameOptions::default()) {
+        match try_frame(&reference, &target, &Choice::default()) {
             Err(FrameError::NoOverlap { crs, rx1, tx0, .. }) => {
                 assert!(crs.starts_with("EPSG:32633"), "{crs}");
                 assert_eq!((rx1, tx0), (455_500.0, 604_500.0));
@@ -491,7 +506,7 @@ mod tests {
             Some("EPSG:32633"),
         );
         assert!(matches!(
-            working_frame(&reference, &target, &FrameOptions::default()),
+            try_frame(&reference, &target, &Choice::default()),
             Err(FrameError::NoOverlap { .. })
         ));
     }
@@ -508,11 +523,11 @@ mod tests {
             box_around(14.4, 47.0, 0.01, 0.01),
             Some("EPSG:4326"),
         );
-        let options = FrameOptions {
-            working_crs: Some("EPSG:4258".into()),
-            ..FrameOptions::default()
+        let options = Choice {
+            working_crs: Some("EPSG:4258"),
+            ..Choice::default()
         };
-        match working_frame(&reference, &target, &options) {
+        match try_frame(&reference, &target, &options) {
             Err(FrameError::GeographicWorking(label)) => {
                 assert!(label.starts_with("EPSG:4258"), "{label}")
             }

@@ -403,7 +403,7 @@ fn golden_keys_of_a_fixed_point_set() {
         permuted: true,
         key_space: KeySpace::Sphere,
         harmonics: vec![1, 2],
-        ..SignatureParams::default()
+        ..SignatureParams::plain(5)
     };
     let s = sigs_of(&PENTAGON, &params);
     assert_eq!(s.len(), 5);
