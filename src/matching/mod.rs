@@ -137,11 +137,17 @@ pub fn candidates(
     progress: &mut dyn FnMut(usize),
 ) -> Result<Vec<Candidate>, MatchingError> {
     assert_eq!(reference.key_dims, target.key_dims, "key dimensions differ");
+    let query = Query {
+        reference,
+        target,
+        per_query,
+        rank,
+    };
     let mut out = match reference.key_dims {
-        2 => candidates_k::<2>(reference, target, per_query, rank, progress),
-        3 => candidates_k::<3>(reference, target, per_query, rank, progress),
-        4 => candidates_k::<4>(reference, target, per_query, rank, progress),
-        6 => candidates_k::<6>(reference, target, per_query, rank, progress),
+        2 => candidates_k::<2>(&query, progress),
+        3 => candidates_k::<3>(&query, progress),
+        4 => candidates_k::<4>(&query, progress),
+        6 => candidates_k::<6>(&query, progress),
         d => panic!("unsupported key dimension {d}"),
     }?;
     out.sort_by(|a, b| a.score.total_cmp(&b.score));
@@ -155,13 +161,19 @@ fn as_points<const K: usize>(s: &Signatures) -> Vec<[f64; K]> {
         .collect()
 }
 
-fn candidates_k<const K: usize>(
-    reference: &Signatures,
-    target: &Signatures,
+/// The arguments of one [`candidates`] call.
+struct Query<'a> {
+    reference: &'a Signatures,
+    target: &'a Signatures,
     per_query: usize,
     rank: Rank,
+}
+
+fn candidates_k<const K: usize>(
+    q: &Query,
     progress: &mut dyn FnMut(usize),
 ) -> Result<Vec<Candidate>, MatchingError> {
+    let (reference, target, per_query, rank) = (q.reference, q.target, q.per_query, q.rank);
     let fetch = match rank {
         Rank::Distance => per_query,
         Rank::Sensitivity => 2 * per_query,
