@@ -151,7 +151,24 @@ fn demo_recovers_the_true_transform_and_pairs() {
         .fold(0.0, f64::max);
     assert!(worst < 0.1, "fitted transform is {worst} m from the truth");
     assert_eq!(doc["working_crs"]["authority"], "EPSG:32633");
-    assert!((doc["rmse_m"].as_f64().unwrap() - 0.23).abs() < 0.05);
+    // The fit's RMSE is the centroid noise the true transform leaves: the truth file's RMS
+    // residual of the noisy centroids over the true pairs (its vertex noise averaged over each
+    // outline). Fitting four parameters to thousands of pairs barely lowers it, so the fitted
+    // RMSE must be within 10% of it (it was 0.7% below). And a centroid's 2-D noise is below
+    // one vertex's, √2 σ.
+    let truth_rms = truth_doc["check"]["rms_residual_noisy_centroids_m"]
+        .as_f64()
+        .unwrap();
+    let sigma = truth_doc["noise"]["sigma_m"].as_f64().unwrap();
+    let rmse = doc["rmse_m"].as_f64().unwrap();
+    assert!(
+        (rmse / truth_rms - 1.0).abs() < 0.1,
+        "fitted RMSE {rmse} m against the truth's {truth_rms} m"
+    );
+    assert!(
+        rmse < 2f64.sqrt() * sigma,
+        "fitted RMSE {rmse} m, vertex noise {sigma} m"
+    );
 }
 
 #[test]
