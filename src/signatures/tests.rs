@@ -302,7 +302,8 @@ fn golden_keys_of_fixed_polygons() {
     let permuted: Vec<[f64; 2]> = PERMUTATION_5.iter().map(|&i| PENTAGON[i]).collect();
     // (polygon, permute it with the library's fixed permutation first, disc key, sphere key),
     // harmonics 1 and 2.
-    let cases: [(&[[f64; 2]], bool, [f64; 4], [f64; 6]); 3] = [
+    type Case<'a> = (&'a [[f64; 2]], bool, [f64; 4], [f64; 6]);
+    let cases: [Case; 3] = [
         (
             &PENTAGON,
             false,
