@@ -61,6 +61,24 @@ pub fn read_survey(input: &SurveyInput) -> Result<LandmarkSet, IngestError> {
     )
 }
 
+/// What the robust fit needs to know of the working frame.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct FrameFacts {
+    /// Metres per working unit.
+    pub metres_per_unit: f64,
+    /// Whether the target is georeferenced (not a local grid): then its georeferencing bounds
+    /// the transform by default.
+    pub georeferenced: bool,
+}
+
+impl FrameFacts {
+    /// Points in metres in an unreferenced local frame (synthetic surveys, experiments).
+    pub const LOCAL_METRES: FrameFacts = FrameFacts {
+        metres_per_unit: 1.0,
+        georeferenced: false,
+    };
+}
+
 /// Runs a whole match: ingest, working frame, signatures, matching, robust fit. Writes
 /// nothing.
 pub fn match_surveys(config: &MatchConfig, progress: &dyn Progress) -> Result<MatchOutcome, Error> {
@@ -102,7 +120,10 @@ pub fn match_surveys(config: &MatchConfig, progress: &dyn Progress) -> Result<Ma
             index: &ti,
             order: &to,
         },
-        frame.metres_per_unit(),
+        &FrameFacts {
+            metres_per_unit: frame.metres_per_unit(),
+            georeferenced: frame.target_crs.is_some(),
+        },
         progress,
         &labels,
     )?;
@@ -123,17 +144,18 @@ pub fn solve_points(
     config: &MatchConfig,
     reference: &Survey,
     target: &Survey,
-    metres_per_unit: f64,
+    facts: &FrameFacts,
     progress: &dyn Progress,
     labels: &[String; 2],
 ) -> Result<(Search, Result<Solution, Rejection>), Error> {
     let found = find_candidates(config, reference, target, progress, labels)?;
-    let fit = fit_candidates(config, reference, target, &found, metres_per_unit, progress);
+    let fit = fit_candidates(config, reference, target, &found, facts, progress);
     Ok((found.search, fit))
 }
 
-/// As [`solve_points`] on plain point arrays: builds their k-d trees and Morton orders first.
-/// The surveys are named "reference" and "target" in errors.
+/// As [`solve_points`] on plain point arrays in metres in an unreferenced frame (no prior
+/// bounds the transform): builds their k-d trees and Morton orders first. The surveys are
+/// named "reference" and "target" in errors.
 pub fn solve_pair(
     config: &MatchConfig,
     reference: &[[f64; 2]],
@@ -157,7 +179,7 @@ pub fn solve_pair(
             index: &ti,
             order: &to,
         },
-        1.0,
+        &FrameFacts::LOCAL_METRES,
         progress,
         &["reference".into(), "target".into()],
     )
@@ -240,7 +262,7 @@ pub fn fit_candidates(
     reference: &Survey,
     target: &Survey,
     found: &Candidates,
-    metres_per_unit: f64,
+    facts: &FrameFacts,
     progress: &dyn Progress,
 ) -> Result<Solution, Rejection> {
     let input = FitInput {
@@ -252,8 +274,9 @@ pub fn fit_candidates(
         reference_signatures: &found.reference_signatures,
         target_signatures: &found.target_signatures,
         candidates: &found.candidates,
-        metres_per_unit,
+        metres_per_unit: facts.metres_per_unit,
         reference_spacing: found.search.reference_spacing,
+        georeferenced: facts.georeferenced,
     };
     stage(progress, "robust fit", None, |_| {
         fit::robust_fit(&input, &config.fit, &mut |m| progress.message(m))

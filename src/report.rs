@@ -4,6 +4,7 @@
 //! RMSE, how well the control points cover the overlap, the significance, and the cautions; or,
 //! for a rejected match, why (the robust fit's [`RejectReason`] put into words) and what to try.
 
+use crate::fit::prior::Competitor;
 use crate::fit::{RejectReason, Rejection, Solution};
 use crate::outcome::MatchOutcome;
 use std::fmt::Write;
@@ -143,6 +144,8 @@ pub fn accepted(r: &MatchOutcome, s: &Solution) -> String {
     let _ = writeln!(o, "spread           {:.0}% of a 4x4 grid over the control points' extent; fewest in a quadrant: {}", cov * 100.0, minq);
     let sig = &s.significance;
     let _ = writeln!(o, "significance     {} of {} covered target landmarks paired; chance would pair {:.1}%; expected false detections < 10^{:.0}", sig.inliers, sig.trials, 100.0 * sig.chance_rate_poisson.max(sig.chance_rate_decoys), sig.log10_false_alarms.ceil());
+    let _ = writeln!(o, "{}", bounds_line(s, mpu));
+    let _ = writeln!(o, "{}", runner_up_line(s));
     let c = &r.search;
     let _ = writeln!(
         o,
@@ -181,7 +184,64 @@ pub fn reason(r: &RejectReason) -> String {
             100.0 * chance_rate
         ),
         RejectReason::DegenerateControlPoints => "the control points are degenerate (all at one place)".into(),
+        RejectReason::OutsidePrior { found } => format!(
+            "the best transform ({}) lies outside the bounds of the target's georeferencing (fit.max_shift_m, fit.max_rotation_deg, fit.max_scale_ppm); if the target's georeferencing is that far off, raise those bounds",
+            transform_words(&found)
+        ),
+        RejectReason::Ambiguous { best, runner_up } => format!(
+            "ambiguous: two different transforms fit about equally well, as on a symmetric or periodic layout (a regular grid, rows of identical buildings):\n  best       {} — {} pairs\n  runner-up  {} — {} pairs\nThe data cannot decide between them. Bound the search by what the target's georeferencing allows (fit.max_shift_m below the layout's period, fit.max_rotation_deg), or add landmarks that break the pattern",
+            transform_words(&best),
+            best.support,
+            transform_words(&runner_up),
+            runner_up.support
+        ),
     }
+}
+
+/// The bounds of the search, in words.
+fn bounds_line(s: &Solution, mpu: f64) -> String {
+    match &s.bounds {
+        None => "bounds           none (a local grid: any rotation, scale and shift was searched)"
+            .into(),
+        Some(b) => {
+            let part = |v: f64, text: String| if v.is_finite() { text } else { "any".into() };
+            format!(
+                "bounds           shift {} at the target's centre, rotation {}, scale error {} (the target's georeferencing; fit.max_shift_m, fit.max_rotation_deg, fit.max_scale_ppm)",
+                part(b.max_shift, format!("≤ {:.1} m", b.max_shift * mpu)),
+                part(b.max_rotation, format!("≤ {:.2}°", b.max_rotation.to_degrees())),
+                part(b.max_scale_error, format!("≤ {:.0} ppm", b.max_scale_error * 1e6)),
+            )
+        }
+    }
+}
+
+/// The margin to the best competing transform, in words.
+fn runner_up_line(s: &Solution) -> String {
+    match &s.runner_up {
+        None => {
+            "runner-up        none: the search found no other transform within the bounds".into()
+        }
+        Some(r) => {
+            let margin = s.chosen.support as f64 - r.support as f64;
+            let sd = (s.chosen.support as f64 + r.support as f64).sqrt();
+            format!(
+                "runner-up        {} — {} pairs against {} (margin {:.0} pairs, {:.1} standard deviations)",
+                transform_words(r),
+                r.support,
+                s.chosen.support,
+                margin,
+                margin / sd.max(1.0)
+            )
+        }
+    }
+}
+
+/// A transform in the trade's words: shift at the target's centre, rotation, scale error.
+fn transform_words(c: &Competitor) -> String {
+    format!(
+        "shift {:+.3} m east, {:+.3} m north at the target's centre, rotation {:+.4}°, scale {:+.0} ppm",
+        c.shift_m[0], c.shift_m[1], c.rotation_deg, c.scale_ppm
+    )
 }
 
 /// The summary of a run that found no consistent transform.

@@ -82,6 +82,13 @@ pub fn transform_document(result: &MatchOutcome, s: &Solution) -> serde_json::Va
             "candidates": cfg.matching.candidates,
         },
         "significance": s.significance,
+        "chosen": s.chosen,
+        "runner_up": s.runner_up,
+        "bounds": s.bounds.map(|b| json!({
+            "max_shift_m": if b.max_shift.is_finite() { json!(b.max_shift * mpu) } else { json!("none") },
+            "max_rotation_deg": if b.max_rotation.is_finite() { json!(b.max_rotation.to_degrees()) } else { json!("none") },
+            "max_scale_ppm": if b.max_scale_error.is_finite() { json!(b.max_scale_error * 1e6) } else { json!("none") },
+        })),
         "ransac": {"rounds": s.ransac_rounds, "consensus": s.ransac_consensus, "sample": s.ransac_sample},
         "guided_rounds": s.guided_rounds,
         "seed": cfg.fit.seed,

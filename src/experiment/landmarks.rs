@@ -22,7 +22,7 @@
 #![doc = include_str!("landmark-robustness.md")]
 
 use crate::config::{MatchConfig, MatchingParams};
-use crate::engine::{find_candidates, fit_candidates};
+use crate::engine::{find_candidates, fit_candidates, FrameFacts};
 use crate::fit::Similarity;
 use crate::matching::Rank;
 use crate::progress::Silent;
@@ -273,7 +273,14 @@ fn run_trial(v: &Variant, t: &Trial, tally: &mut Tally) -> Result<(), Experiment
             }
         }
     }
-    match fit_candidates(&config, &reference, &target, &found, 1.0, &Silent) {
+    match fit_candidates(
+        &config,
+        &reference,
+        &target,
+        &found,
+        &FrameFacts::LOCAL_METRES,
+        &Silent,
+    ) {
         Ok(s) => {
             let right = s
                 .pairs

@@ -12,6 +12,7 @@
 //! chance; the final closed-form least-squares fit ([`similarity`]) with standard errors.
 
 pub mod guided;
+pub mod prior;
 pub mod ransac;
 pub mod sample_count;
 pub mod significance;
@@ -44,6 +45,17 @@ pub struct FitParams {
     pub false_alarm_level: f64,
     /// Fewest control points to accept a transform.
     pub min_control_points: usize,
+    /// Largest shift, at the target's centre, that the target's georeferencing may have
+    /// (metres); `None`: [`prior::DEFAULT_MAX_SHIFT_M`] for a georeferenced target, unbounded
+    /// for a local grid. `inf` lifts the bound.
+    pub max_shift_m: Option<f64>,
+    /// Largest rotation the target's georeferencing may have (degrees); `None`:
+    /// [`prior::DEFAULT_MAX_ROTATION_DEG`] for a georeferenced target, unbounded for a local
+    /// grid.
+    pub max_rotation_deg: Option<f64>,
+    /// Largest scale error the target's georeferencing may have (ppm); `None`:
+    /// [`prior::DEFAULT_MAX_SCALE_PPM`] for a georeferenced target, unbounded for a local grid.
+    pub max_scale_ppm: Option<f64>,
 }
 
 impl Default for FitParams {
@@ -55,6 +67,9 @@ impl Default for FitParams {
             seed: 20_261_201,
             false_alarm_level: 0.01,
             min_control_points: 5,
+            max_shift_m: None,
+            max_rotation_deg: None,
+            max_scale_ppm: None,
         }
     }
 }
@@ -76,6 +91,17 @@ pub enum FitError {
         "fit.min_control_points must be at least 3: fewer leave a similarity unchecked (got {0})"
     )]
     InvalidMinControlPoints(usize),
+    /// RANSAC rounds of zero.
+    #[error("fit.max_rounds must be at least 1 (got 0)")]
+    InvalidMaxRounds,
+    /// A bound of the prior is not a positive number (or inf).
+    #[error("{key} must be a positive number, or inf for no bound (got {value})")]
+    InvalidBound {
+        /// The option's key.
+        key: &'static str,
+        /// The value given.
+        value: f64,
+    },
 }
 
 impl FitParams {
@@ -95,7 +121,47 @@ impl FitParams {
         if self.min_control_points < 3 {
             return Err(FitError::InvalidMinControlPoints(self.min_control_points));
         }
+        if self.max_rounds == 0 {
+            return Err(FitError::InvalidMaxRounds);
+        }
+        for (key, v) in [
+            ("fit.max_shift_m", self.max_shift_m),
+            ("fit.max_rotation_deg", self.max_rotation_deg),
+            ("fit.max_scale_ppm", self.max_scale_ppm),
+        ] {
+            if let Some(value) = v {
+                if value.is_nan() || value <= 0.0 {
+                    return Err(FitError::InvalidBound { key, value });
+                }
+            }
+        }
         Ok(())
+    }
+
+    /// The bounds on the transform around the target's `centre` (working units; `metres` per
+    /// unit): the options given, else the defaults when the target is `georeferenced`; `None`
+    /// when nothing bounds it (a local grid with no bound given).
+    pub fn prior(
+        &self,
+        georeferenced: bool,
+        centre: [f64; 2],
+        metres_per_unit: f64,
+    ) -> Option<prior::Prior> {
+        let given = [self.max_shift_m, self.max_rotation_deg, self.max_scale_ppm];
+        if !georeferenced && given.iter().all(Option::is_none) {
+            return None;
+        }
+        let pick = |v: Option<f64>, default: f64| match v {
+            Some(x) => x,
+            None if georeferenced => default,
+            None => f64::INFINITY,
+        };
+        Some(prior::Prior {
+            centre,
+            max_shift: pick(self.max_shift_m, prior::DEFAULT_MAX_SHIFT_M) / metres_per_unit,
+            max_rotation: pick(self.max_rotation_deg, prior::DEFAULT_MAX_ROTATION_DEG).to_radians(),
+            max_scale_error: pick(self.max_scale_ppm, prior::DEFAULT_MAX_SCALE_PPM) * 1e-6,
+        })
     }
 }
 
@@ -121,6 +187,9 @@ pub struct FitInput<'a> {
     pub metres_per_unit: f64,
     /// Median nearest-neighbour spacing of the reference, working units.
     pub reference_spacing: f64,
+    /// Whether the target is georeferenced (its own CRS, not a local grid): then its
+    /// georeferencing bounds the transform by default ([`FitParams::prior`]).
+    pub georeferenced: bool,
 }
 
 /// An accepted transform and its control points.
@@ -145,6 +214,13 @@ pub struct Solution {
     pub ransac_sample: usize,
     /// Guided-matching refit rounds.
     pub guided_rounds: usize,
+    /// The chosen transform as reports state it, with its support.
+    pub chosen: prior::Competitor,
+    /// The best transform that is not the chosen one (within the bounds), with its support
+    /// on the same landmarks: the margin to it is what makes the choice unambiguous.
+    pub runner_up: Option<prior::Competitor>,
+    /// The bounds the target's georeferencing set on the search, if any.
+    pub bounds: Option<prior::Prior>,
 }
 
 /// Why no transform was accepted: the ways the robust fit ends without one.
@@ -184,6 +260,19 @@ pub enum RejectReason {
     },
     /// The control points are degenerate (all at one place): no similarity can be fitted.
     DegenerateControlPoints,
+    /// The best transform lies outside the bounds the target's georeferencing sets.
+    OutsidePrior {
+        /// The transform found.
+        found: prior::Competitor,
+    },
+    /// Another transform fits about as well (a symmetric or periodic layout): the data do not
+    /// decide between them.
+    Ambiguous {
+        /// The best transform.
+        best: prior::Competitor,
+        /// The one that fits about as well.
+        runner_up: prior::Competitor,
+    },
 }
 
 /// No transform was accepted.
@@ -227,6 +316,8 @@ pub fn robust_fit(
         reference_index: input.reference_index,
         target_index: input.target_index,
     };
+    let centre = crate::spatial::Extent::of(input.target).centre();
+    let prior = params.prior(input.georeferenced, centre, input.metres_per_unit);
     progress("searching for a consistent transform (RANSAC)");
     let rparams = ransac::RansacParams {
         tolerance,
@@ -235,6 +326,7 @@ pub fn robust_fit(
         seed: params.seed,
         keep: 4,
         chance_rate: significance::poisson_chance_rate(tolerance, input.reference_spacing),
+        prior,
     };
     let r = ransac::ransac(input, &rparams);
     if r.best.is_empty() {
@@ -269,12 +361,16 @@ pub fn robust_fit(
     ranked.sort_by_key(|r| std::cmp::Reverse(r.0));
     let mut best: Option<(guided::Guided, &ransac::Hypothesis)> = None;
     let full_runs = if coarse.is_some() { 1 } else { ranked.len() };
+    // The refined transforms of every kept hypothesis: the candidates for a competing
+    // transform.
+    let mut alternatives: Vec<Similarity> = ranked.iter().map(|r| r.1).collect();
     progress("guided matching on every landmark");
     // Every landmark, visited in Morton order: k-d tree queries in spatial order are several
     // times faster than in file order.
     let everyone = input.target_order;
-    for (_, start, h) in ranked.into_iter().take(full_runs) {
+    for (i, (_, start, h)) in ranked.into_iter().take(full_runs).enumerate() {
         let g = guided_match(&frames, start, tolerance, coverage, Some(everyone), 20);
+        alternatives[i] = g.transform;
         if best
             .as_ref()
             .is_none_or(|(b, _)| g.pairs.len() > b.pairs.len())
@@ -364,6 +460,38 @@ pub fn robust_fit(
     let Some(fit) = guided::refit(&frames, &g.pairs) else {
         return reject(RejectReason::DegenerateControlPoints);
     };
+    // A fit outside the bounds of the target's own georeferencing is never reported.
+    let subset = coarse.as_deref().unwrap_or(everyone);
+    let support = |t: &Similarity| {
+        guided::mutual_pairs(&frames, t, inlier_tolerance, coverage, Some(subset))
+            .0
+            .len()
+    };
+    let summary =
+        |t: Similarity, n: usize| prior::Competitor::new(t, n, centre, input.metres_per_unit);
+    let chosen = summary(fit.transform, support(&fit.transform));
+    if prior.is_some_and(|p| !p.admits(&fit.transform)) {
+        return reject(RejectReason::OutsidePrior { found: chosen });
+    }
+    progress("comparing competing transforms");
+    let runner_up = competing_transform(
+        &frames,
+        &alternatives,
+        &fit.transform,
+        prior.as_ref(),
+        tolerance,
+        coverage,
+        Some(subset),
+    )
+    .map(|t| summary(t, support(&t)));
+    if let Some(second) = runner_up {
+        if !prior::clearly_ahead(chosen.support, second.support) {
+            return reject(RejectReason::Ambiguous {
+                best: chosen,
+                runner_up: second,
+            });
+        }
+    }
     Ok(Solution {
         fit,
         pairs: g.pairs,
@@ -374,7 +502,43 @@ pub fn robust_fit(
         ransac_consensus: h.consensus,
         ransac_sample: r.sample_size,
         guided_rounds: g.rounds,
+        chosen,
+        runner_up,
+        bounds: prior,
     })
+}
+
+/// The best of the `alternatives` (each refined again by guided matching) that is admitted by
+/// the prior and is not `best` within the search tolerance anywhere over the target's extent:
+/// the transform that competes with the chosen one.
+fn competing_transform(
+    frames: &Frames,
+    alternatives: &[Similarity],
+    best: &Similarity,
+    prior: Option<&prior::Prior>,
+    tolerance: f64,
+    coverage: f64,
+    subset: Option<&[u32]>,
+) -> Option<Similarity> {
+    let probe = guided::extent_corners(frames.target);
+    let same = |a: &Similarity, b: &Similarity| {
+        probe
+            .iter()
+            .all(|&p| crate::spatial::dist2(a.apply(p), b.apply(p)) < 4.0 * tolerance * tolerance)
+    };
+    let mut found: Vec<(usize, Similarity)> = Vec::new();
+    for a in alternatives {
+        let g = guided_match(frames, *a, tolerance, coverage, subset, 20);
+        let t = g.transform;
+        if same(&t, best)
+            || prior.is_some_and(|p| !p.admits(&t))
+            || found.iter().any(|(_, f)| same(f, &t))
+        {
+            continue;
+        }
+        found.push((g.pairs.len(), t));
+    }
+    found.into_iter().max_by_key(|f| f.0).map(|f| f.1)
 }
 
 /// About `n` landmarks spread evenly over a set, from its Morton `order` (every m-th).

@@ -69,6 +69,8 @@ pub struct RansacParams {
     /// Probability that a landmark mapped by a wrong transform lands within the tolerance of a
     /// reference landmark (δ of the pre-test).
     pub chance_rate: f64,
+    /// Bounds from the target's georeferencing: hypotheses outside them are not considered.
+    pub prior: Option<super::prior::Prior>,
 }
 
 /// A scored hypothesis.
@@ -303,6 +305,9 @@ pub fn ransac(input: &RansacInput, params: &RansacParams) -> RansacOutcome {
         let mut improved = false;
         for (h, skip) in hyps.into_iter().flatten() {
             out.hypotheses += 1;
+            if params.prior.is_some_and(|p| !p.admits(&h)) {
+                continue;
+            }
             if !scorer.local_test(&h, t1, skip) {
                 continue;
             }

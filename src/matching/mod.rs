@@ -225,7 +225,7 @@ mod tests {
     /// unit disc (dims 2, 4) or of the unit sphere (dims 3, 6), with random sensitivities.
     fn random_sigs(rng: &mut rand_chacha::ChaCha8Rng, n: usize, dims: usize) -> Signatures {
         let mut keys: Vec<f64> = (0..n * dims).map(|_| rng.gen_range(-1.0..1.0)).collect();
-        if dims % 3 == 0 {
+        if dims.is_multiple_of(3) {
             for v in keys.chunks_exact_mut(3) {
                 let r = v.iter().map(|x| x * x).sum::<f64>().sqrt();
                 v.iter_mut().for_each(|x| *x /= r);

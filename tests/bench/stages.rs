@@ -20,7 +20,7 @@ use std::cell::RefCell;
 use std::collections::HashMap;
 use std::time::Instant;
 use tiemark::config::MatchConfig;
-use tiemark::engine::solve_points;
+use tiemark::engine::{solve_points, FrameFacts};
 use tiemark::fit::Similarity;
 use tiemark::progress::Progress;
 use tiemark::spatial::{morton_order, PointIndex, Survey};
@@ -135,7 +135,7 @@ fn main() {
                 index: &ti,
                 order: &to,
             },
-            1.0,
+            &FrameFacts::LOCAL_METRES,
             &clock,
             &["reference".into(), "target".into()],
         )

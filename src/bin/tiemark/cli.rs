@@ -10,6 +10,7 @@ use tiemark::config::{
     FitParams, FrameOptions, MatchConfig, MatchingParams, OutputOptions, SignatureChoice,
     SurveyInput,
 };
+use tiemark::fit::prior;
 use tiemark::matching::Rank;
 use tiemark::signatures::{size_rule, KeySpace, VertexOrder};
 
@@ -98,6 +99,12 @@ pub struct MatchArgs {
     /// Inlier tolerance in metres (default: a quarter of the reference's median landmark spacing).
     #[arg(long, allow_negative_numbers = true)]
     tolerance: Option<f64>,
+    #[arg(long, allow_negative_numbers = true, help = format!("Largest shift in metres, at the target's centre, that the target's georeferencing may have; inf: no bound [default: {} for a georeferenced target, no bound for a local grid]", prior::DEFAULT_MAX_SHIFT_M))]
+    max_shift: Option<f64>,
+    #[arg(long, allow_negative_numbers = true, help = format!("Largest rotation in degrees the target's georeferencing may have [default: {} for a georeferenced target, no bound for a local grid]", prior::DEFAULT_MAX_ROTATION_DEG))]
+    max_rotation: Option<f64>,
+    #[arg(long, allow_negative_numbers = true, help = format!("Largest scale error in ppm the target's georeferencing may have [default: {} for a georeferenced target, no bound for a local grid]", prior::DEFAULT_MAX_SCALE_PPM))]
+    max_scale_error: Option<f64>,
 
     /// Neighbours per signature polygon, 3-16 [default: by size, see --leave-out].
     #[arg(long, help_heading = "Signatures")]
@@ -204,6 +211,9 @@ impl MatchArgs {
                 seed: self.seed,
                 false_alarm_level: self.false_alarm_level,
                 min_control_points: self.min_control_points,
+                max_shift_m: self.max_shift,
+                max_rotation_deg: self.max_rotation,
+                max_scale_ppm: self.max_scale_error,
             },
         };
         let output = OutputOptions {
@@ -239,6 +249,9 @@ const FLAGS: &[(&str, &str)] = &[
     ("fit.seed", "--seed"),
     ("fit.false_alarm_level", "--false-alarm-level"),
     ("fit.min_control_points", "--min-control-points"),
+    ("fit.max_shift_m", "--max-shift"),
+    ("fit.max_rotation_deg", "--max-rotation"),
+    ("fit.max_scale_ppm", "--max-scale-error"),
     ("output.dir", "--out"),
     ("output.force", "--force"),
 ];

@@ -58,9 +58,9 @@ fn run_match(
         Ok(o) => o,
         Err(e) => return error(&e),
     };
-    let summary = report::summary(&outcome);
+    let summary = source.render(&report::summary(&outcome));
     if outcome.solution().is_none() {
-        print(&source.render(&summary));
+        print(&summary);
         return ExitCode::from(1);
     }
     match emit::write_all(&outcome, output, &summary) {
