@@ -6,8 +6,10 @@
 //!   rarely does);
 //! - a **2-point hypothesis**: the exact similarity through the landmarks of two candidates.
 //!
-//! A hypothesis first has to pass a cheap local pre-test: the target landmarks just beyond its
-//! polygon, nearest first, are mapped one by one, and Wald's sequential probability ratio test
+//! A hypothesis first has to pass a cheap local pre-test: the target landmarks nearest to the
+//! first candidate's landmark, other than those the hypothesis was fitted to (the polygon's
+//! vertices, or the two landmarks), are mapped one by one, nearest first, and Wald's sequential
+//! probability ratio test
 //! decides between "a correct transform" (a landmark lands within the tolerance of a reference
 //! landmark with probability at least [`HIT_RATE_IF_RIGHT`]) and "chance" (probability δ, the
 //! chance rate at the reference's density), with error rates [`SPRT_ALPHA`] and [`SPRT_BETA`]
@@ -28,7 +30,7 @@
 use super::sample_count::sample_count;
 use super::similarity::{fit_similarity_indexed, similarity_from_two, Similarity};
 use crate::matching::Candidate;
-use crate::spatial::{dist2, morton_order};
+use crate::spatial::{dist2, morton_order, PointIndex};
 use rand::{Rng, SeedableRng};
 
 /// Target landmarks scored per hypothesis (a spread sample).
@@ -133,20 +135,19 @@ impl Scorer<'_> {
             .and_then(|(r, d2)| (d2 < self.tol2).then_some(r))
     }
 
-    /// The local pre-test (SPRT) around target landmark `t0`, skipping its first `skip`
-    /// neighbours (itself and the polygon's vertices, which the hypothesis was fitted to).
+    /// The local pre-test (SPRT) around target landmark `t0` on its [`LOCAL_RING`] nearest
+    /// landmarks other than `fitted`, the landmarks the hypothesis was fitted to (it maps those
+    /// onto their partners by construction, so they are no evidence).
     /// A reference landmark hit a second time counts as a miss: a transform that shrinks the
     /// target onto a few reference landmarks must not pass.
-    fn local_test(&mut self, s: &Similarity, t0: u32, skip: usize) -> bool {
+    fn local_test(&mut self, s: &Similarity, t0: u32, fitted: &[u32]) -> bool {
         let p = self.input.target[t0 as usize];
         let mut ring = std::mem::take(&mut self.scratch);
-        self.input
-            .target_index
-            .nearest_n(p, skip + LOCAL_RING, &mut ring);
+        local_ring(self.input.target_index, p, fitted, LOCAL_RING, &mut ring);
         let mut llr = 0.0;
         let mut accepted = false;
         let mut seen: Vec<u32> = Vec::with_capacity(LOCAL_RING);
-        for &(t, _) in ring.iter().skip(skip) {
+        for &(t, _) in &ring {
             let hit = match self.hits(s, t) {
                 Some(r) if !seen.contains(&r) => {
                     seen.push(r);
@@ -222,6 +223,21 @@ impl Scorer<'_> {
     }
 }
 
+/// The `n` landmarks of `index` nearest to `p`, nearest first, leaving out those in `fitted`,
+/// into `out` as (index, squared distance): the pre-test's ring. Fewer only when the index has
+/// fewer others.
+fn local_ring(
+    index: &PointIndex,
+    p: [f64; 2],
+    fitted: &[u32],
+    n: usize,
+    out: &mut Vec<(u32, f64)>,
+) {
+    index.nearest_n(p, n + fitted.len(), out);
+    out.retain(|(t, _)| !fitted.contains(t));
+    out.truncate(n);
+}
+
 /// The similarity that maps candidate `c`'s target polygon onto its reference polygon, if they
 /// agree within `tolerance` (RMS over the vertices).
 pub fn polygon_hypothesis(
@@ -267,7 +283,6 @@ pub fn ransac(input: &RansacInput, params: &RansacParams) -> RansacOutcome {
         sprt: Sprt::new(params.chance_rate),
     };
     out.sample_size = scorer.sample.len();
-    let k = input.target_signatures.vertices_per_polygon;
     let probe = super::guided::extent_corners(input.target);
     let mut needed = params.max_rounds as u64;
     let mut best_consensus = 0usize;
@@ -287,28 +302,31 @@ pub fn ransac(input: &RansacInput, params: &RansacParams) -> RansacOutcome {
         let c2 = &cands[rng.gen_range(0..cands.len())];
         round += 1;
         let (t1, p1, r1) = scorer.centres(c1);
-        let (_, p2, r2) = scorer.centres(c2);
+        let (t2, p2, r2) = scorer.centres(c2);
         drawn.push((p1, r1));
         if let Some(b) = out.best.first() {
             if dist2(b.transform.apply(p1), r1) < scorer.tol2 {
                 agreeing += 1;
             }
         }
+        // Each hypothesis with the target landmarks it was fitted to.
+        let two = [t1, t2];
         let hyps = [
-            polygon_hypothesis(input, c1, params.tolerance).map(|h| (h, k)),
+            polygon_hypothesis(input, c1, params.tolerance)
+                .map(|h| (h, input.target_signatures.polygon(c1.target as usize))),
             if p1 != p2 && r1 != r2 {
-                similarity_from_two([p1, p2], [r1, r2]).map(|h| (h, 1))
+                similarity_from_two([p1, p2], [r1, r2]).map(|h| (h, &two[..]))
             } else {
                 None
             },
         ];
         let mut improved = false;
-        for (h, skip) in hyps.into_iter().flatten() {
+        for (h, fitted) in hyps.into_iter().flatten() {
             out.hypotheses += 1;
             if params.prior.is_some_and(|p| !p.admits(&h)) {
                 continue;
             }
-            if !scorer.local_test(&h, t1, skip) {
+            if !scorer.local_test(&h, t1, fitted) {
                 continue;
             }
             passed += 1;
@@ -400,4 +418,89 @@ fn keep_best(
     let at = best.partition_point(|b| b.consensus >= h.consensus);
     best.insert(at, h);
     best.truncate(params.keep);
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::signatures::{self, SignatureChoice};
+    use crate::synth::{make_pair, SynthPair, SynthParams};
+
+    fn pair(landmarks: usize, noise: f64, missing: f64, extra: f64, seed: u64) -> SynthPair {
+        make_pair(&SynthParams {
+            landmarks,
+            missing,
+            extra,
+            noise,
+            truth: Similarity::from_params(2.7, 37f64.to_radians(), 5000.0, -300.0),
+            seed,
+        })
+    }
+
+    /// With subset signatures (k = 4 from the 6 nearest), a polygon may use the 5th or 6th
+    /// neighbour: the ring must leave out exactly the polygon's vertices, wherever they rank,
+    /// and still hold LOCAL_RING others, the nearest ones. Skipping the first k + 1 neighbours
+    /// instead would let such a vertex, fitted by construction, count as a hit.
+    #[test]
+    fn the_pre_test_ring_leaves_out_exactly_the_fitted_landmarks() {
+        let p = pair(2000, 0.01, 0.28, 0.25, 7);
+        let ti = PointIndex::new(&p.target).unwrap();
+        let params = SignatureChoice::default().resolve(p.target.len());
+        assert_eq!((params.neighbours, params.leave_out), (4, 2));
+        let ts = signatures::compute("target", &p.target, &ti, &params, &mut |_| {}).unwrap();
+        // The ring by brute force: every landmark but the fitted ones, nearest first.
+        let brute = |q: [f64; 2], fitted: &[u32]| -> Vec<u32> {
+            let mut all: Vec<(u32, f64)> = (0..p.target.len() as u32)
+                .filter(|t| !fitted.contains(t))
+                .map(|t| (t, dist2(p.target[t as usize], q)))
+                .collect();
+            all.sort_by(|a, b| a.1.total_cmp(&b.1));
+            all[..LOCAL_RING].iter().map(|x| x.0).collect()
+        };
+        let (mut nn, mut ring) = (Vec::new(), Vec::new());
+        let mut checked = 0;
+        for i in 0..ts.len() {
+            let poly = ts.polygon(i);
+            let q = p.target[poly[0] as usize];
+            ti.nearest_n(q, 7, &mut nn);
+            assert_eq!(nn[0].0, poly[0]);
+            let far = poly[1..]
+                .iter()
+                .any(|&v| nn.iter().position(|x| x.0 == v).is_some_and(|r| r >= 5));
+            if !far {
+                continue;
+            }
+            local_ring(&ti, q, poly, LOCAL_RING, &mut ring);
+            assert_eq!(ring.len(), LOCAL_RING);
+            assert!(
+                ring.iter().all(|(t, _)| !poly.contains(t)),
+                "{poly:?} {ring:?}"
+            );
+            let got: Vec<u32> = ring.iter().map(|x| x.0).collect();
+            assert_eq!(got, brute(q, poly));
+            // A 2-point hypothesis through this landmark and its 3rd nearest neighbour (inside
+            // the ring), and through it and the landmark farthest away (outside).
+            let farthest = (0..p.target.len() as u32)
+                .max_by(|&a, &b| {
+                    dist2(p.target[a as usize], q).total_cmp(&dist2(p.target[b as usize], q))
+                })
+                .unwrap();
+            for other in [nn[3].0, farthest] {
+                let fitted = [poly[0], other];
+                local_ring(&ti, q, &fitted, LOCAL_RING, &mut ring);
+                let got: Vec<u32> = ring.iter().map(|x| x.0).collect();
+                assert_eq!(got, brute(q, &fitted));
+                assert!(!got.contains(&other));
+            }
+            assert_eq!(
+                ring.iter().map(|x| x.0).collect::<Vec<_>>(),
+                brute(q, &poly[..1])
+            );
+            checked += 1;
+            if checked == 50 {
+                break;
+            }
+        }
+        assert_eq!(checked, 50, "too few polygons use the 5th or 6th neighbour");
+    }
 }
