@@ -376,14 +376,12 @@ pub fn ransac(input: &RansacInput, params: &RansacParams) -> RansacOutcome {
         // Stop early only once the best hypothesis stands out from chance on the scoring
         // sample (the test of [`super::significance`]); a chance best says nothing about the
         // inlier ratio.
-        let credible = best_consensus > 0
-            && super::significance::log10_tail_bound(
-                best_consensus,
-                scorer.sample.len(),
-                (LO_CHANCE_FACTOR * params.chance_rate).min(0.5),
-            ) + (out.hypotheses.max(1) as f64).log10()
-                < -2.0;
-        if credible {
+        if credible(
+            best_consensus,
+            scorer.sample.len(),
+            params.chance_rate,
+            out.hypotheses,
+        ) {
             let w = agreeing.max(1) as f64 / drawn.len() as f64;
             needed = sample_count(params.confidence, w, 1).clamp(64, params.max_rounds as u64);
         } else {
@@ -395,6 +393,19 @@ pub fn ransac(input: &RansacInput, params: &RansacParams) -> RansacOutcome {
         eprintln!("DEBUG ransac rounds {round} hypotheses {} passed pre-test {passed} best {best_consensus} of {}", out.hypotheses, scorer.sample.len());
     }
     out
+}
+
+/// True when a consensus of `consensus` among `sample` landmarks stands out from what the best
+/// of `hypotheses` wrong ones reaches: its binomial tail bound at [`LO_CHANCE_FACTOR`] times the
+/// chance rate, times the number of hypotheses, is below 1%.
+fn credible(consensus: usize, sample: usize, chance_rate: f64, hypotheses: usize) -> bool {
+    consensus > 0
+        && super::significance::log10_tail_bound(
+            consensus,
+            sample,
+            (LO_CHANCE_FACTOR * chance_rate).min(0.5),
+        ) + (hypotheses.max(1) as f64).log10()
+            < -2.0
 }
 
 /// Keeps the `keep` best hypotheses that map the target's extent to clearly different places.
@@ -423,8 +434,74 @@ fn keep_best(
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::signatures::{self, SignatureChoice};
+    use crate::fit::similarity::fit_similarity;
+    use crate::matching::{self, Rank};
+    use crate::signatures::{self, SignatureChoice, Signatures};
+    use crate::spatial::{median_spacing, PointIndex};
     use crate::synth::{make_pair, SynthPair, SynthParams};
+
+    /// The stages before RANSAC, wired as the pipeline wires them (tests/bench/stages.rs).
+    struct Stages {
+        reference: Vec<[f64; 2]>,
+        target: Vec<[f64; 2]>,
+        ri: PointIndex,
+        ti: PointIndex,
+        rs: Signatures,
+        ts: Signatures,
+        cands: Vec<Candidate>,
+        spacing: f64,
+    }
+
+    impl Stages {
+        fn new(reference: Vec<[f64; 2]>, target: Vec<[f64; 2]>) -> Stages {
+            let ri = PointIndex::new(&reference).unwrap();
+            let ti = PointIndex::new(&target).unwrap();
+            let spacing = median_spacing(&reference, &ri, 10_000).unwrap();
+            let params = SignatureChoice::default().resolve(reference.len().min(target.len()));
+            let rs =
+                signatures::compute("reference", &reference, &ri, &params, &mut |_| {}).unwrap();
+            let ts = signatures::compute("target", &target, &ti, &params, &mut |_| {}).unwrap();
+            let cands = matching::candidates(&rs, &ts, 3, Rank::Distance, &mut |_| {}).unwrap();
+            Stages {
+                reference,
+                target,
+                ri,
+                ti,
+                rs,
+                ts,
+                cands,
+                spacing,
+            }
+        }
+
+        fn input(&self) -> RansacInput<'_> {
+            RansacInput {
+                reference: &self.reference,
+                target: &self.target,
+                reference_index: &self.ri,
+                target_index: &self.ti,
+                reference_signatures: &self.rs,
+                target_signatures: &self.ts,
+                candidates: &self.cands,
+                metres_per_unit: 1.0,
+                reference_spacing: self.spacing,
+            }
+        }
+
+        /// The pipeline's settings (defaults of [`crate::fit::FitParams`]) with `seed`.
+        fn params(&self, seed: u64) -> RansacParams {
+            let f = crate::fit::FitParams::default();
+            let tolerance = 0.25 * self.spacing;
+            RansacParams {
+                tolerance,
+                confidence: f.confidence,
+                max_rounds: f.max_rounds,
+                seed,
+                keep: 4,
+                chance_rate: crate::fit::significance::poisson_chance_rate(tolerance, self.spacing),
+            }
+        }
+    }
 
     fn pair(landmarks: usize, noise: f64, missing: f64, extra: f64, seed: u64) -> SynthPair {
         make_pair(&SynthParams {
@@ -435,6 +512,20 @@ mod tests {
             truth: Similarity::from_params(2.7, 37f64.to_radians(), 5000.0, -300.0),
             seed,
         })
+    }
+
+    /// Largest distance between `a` and `b` over the corners of `points`' extent.
+    fn gap_on_extent(a: &Similarity, b: &Similarity, points: &[[f64; 2]]) -> f64 {
+        super::super::guided::extent_corners(points)
+            .iter()
+            .map(|&c| dist2(a.apply(c), b.apply(c)).sqrt())
+            .fold(0.0, f64::max)
+    }
+
+    /// Length of the diagonal of `points`' extent once mapped by `s`.
+    fn mapped_diagonal(s: &Similarity, points: &[[f64; 2]]) -> f64 {
+        let c = super::super::guided::extent_corners(points);
+        dist2(s.apply(c[0]), s.apply(c[2])).sqrt()
     }
 
     /// With subset signatures (k = 4 from the 6 nearest), a polygon may use the 5th or 6th
@@ -502,5 +593,82 @@ mod tests {
             }
         }
         assert_eq!(checked, 50, "too few polygons use the 5th or 6th neighbour");
+    }
+
+    /// Without noise, missing or new landmarks, every sampled target landmark has its partner
+    /// and the best hypothesis is the least-squares similarity on the true pairs.
+    #[test]
+    fn on_clean_data_the_best_hypothesis_is_the_fit_on_the_true_pairs() {
+        let p = pair(2000, 0.0, 0.0, 0.0, 1);
+        let st = Stages::new(p.reference.clone(), p.target.clone());
+        let o = ransac(&st.input(), &st.params(11));
+        let (from, to): (Vec<[f64; 2]>, Vec<[f64; 2]>) = p
+            .pairs
+            .iter()
+            .map(|&(r, t)| (p.target[t as usize], p.reference[r as usize]))
+            .unzip();
+        let want = fit_similarity(&from, &to).unwrap().transform;
+        let best = o.best.first().expect("a hypothesis");
+        assert_eq!(best.consensus, o.sample_size);
+        let got = best.transform;
+        let scale = want.a.hypot(want.b);
+        assert!(
+            (got.a - want.a).hypot(got.b - want.b) <= 1e-9 * scale,
+            "{got:?} {want:?}"
+        );
+        let gap = gap_on_extent(&got, &want, &p.target);
+        assert!(gap <= 1e-9 * mapped_diagonal(&want, &p.target), "{gap}");
+    }
+
+    /// Every candidate wrong: the reference is an unrelated survey of the same kind. RANSAC
+    /// then never finds a credible hypothesis, so it runs to `max_rounds`, and what it keeps
+    /// (on these clean jittered grids it keeps some, refitted to about 2.5 times the chance
+    /// rate) does not stand out from chance. The true reference, as a control, gives a
+    /// credible best and an early stop.
+    #[test]
+    fn with_every_candidate_wrong_no_hypothesis_stands_out_from_chance() {
+        let p = pair(2000, 0.0, 0.0, 0.0, 1);
+        let unrelated = pair(2000, 0.0, 0.0, 0.0, 101);
+        let control = Stages::new(p.reference.clone(), p.target.clone());
+        let wrong = Stages::new(unrelated.reference.clone(), p.target.clone());
+        for (st, is_wrong) in [(&control, false), (&wrong, true)] {
+            let params = st.params(11);
+            let o = ransac(&st.input(), &params);
+            let stands_out: Vec<bool> = o
+                .best
+                .iter()
+                .map(|h| credible(h.consensus, o.sample_size, params.chance_rate, o.hypotheses))
+                .collect();
+            if is_wrong {
+                assert_eq!(o.rounds, params.max_rounds);
+                assert!(stands_out.iter().all(|&c| !c), "{:?}", o.best);
+            } else {
+                assert!(o.rounds < params.max_rounds);
+                assert_eq!(stands_out.first(), Some(&true));
+            }
+        }
+    }
+
+    #[test]
+    fn the_same_seed_repeats_and_another_seed_finds_the_same_transform() {
+        let p = pair(2000, 0.01, 0.2, 0.1, 2);
+        let st = Stages::new(p.reference.clone(), p.target.clone());
+        let a = ransac(&st.input(), &st.params(11));
+        let again = ransac(&st.input(), &st.params(11));
+        let b = ransac(&st.input(), &st.params(12));
+        let summary = |o: &RansacOutcome| {
+            let best: Vec<(Similarity, usize)> =
+                o.best.iter().map(|h| (h.transform, h.consensus)).collect();
+            (best, o.rounds, o.hypotheses, o.sample_size)
+        };
+        assert_eq!(summary(&a), summary(&again));
+        // The other seed did draw differently ...
+        assert_ne!(summary(&a), summary(&b));
+        // ... and still reaches the same transform, the true one within the tolerance.
+        let (ta, tb) = (a.best[0].transform, b.best[0].transform);
+        let gap = gap_on_extent(&ta, &tb, &p.target);
+        assert!(gap <= 1e-9 * mapped_diagonal(&ta, &p.target), "{gap}");
+        let params = st.params(11);
+        assert!(gap_on_extent(&ta, &p.truth, &p.target) < params.tolerance);
     }
 }
