@@ -30,7 +30,7 @@
 use super::sample_count::sample_count;
 use super::similarity::{fit_similarity_indexed, similarity_from_two, Similarity};
 use crate::matching::Candidate;
-use crate::spatial::{dist2, morton_order, PointIndex};
+use crate::spatial::{dist2, PointIndex};
 use rand::{Rng, SeedableRng};
 
 /// Target landmarks scored per hypothesis (a spread sample).
@@ -269,9 +269,9 @@ pub fn ransac(input: &RansacInput, params: &RansacParams) -> RansacOutcome {
     if cands.is_empty() {
         return out;
     }
-    let order = morton_order(input.target);
+    let order = input.target_order;
     let step = (order.len() / SCORE_SAMPLE).max(1);
-    let mut sample: Vec<u32> = order.into_iter().step_by(step).collect();
+    let mut sample: Vec<u32> = order.iter().copied().step_by(step).collect();
     // Shuffled, so that the first landmarks of the sample are spread over the survey and the
     // bail-out sees a fair partial count.
     rand::seq::SliceRandom::shuffle(sample.as_mut_slice(), &mut rng);
@@ -435,20 +435,18 @@ fn keep_best(
 mod tests {
     use super::*;
     use crate::fit::similarity::fit_similarity;
-    use crate::matching::{self, Rank};
-    use crate::signatures::{self, SignatureChoice, Signatures};
-    use crate::spatial::{median_spacing, PointIndex};
+    use crate::signatures::{self, SignatureChoice};
+    use crate::spatial::{morton_order, PointIndex, Survey};
     use crate::synth::{make_pair, SynthPair, SynthParams};
 
-    /// The stages before RANSAC, wired as the pipeline wires them (tests/bench/stages.rs).
+    /// The stages before RANSAC, as the engine runs them ([`crate::engine::find_candidates`]).
     struct Stages {
         reference: Vec<[f64; 2]>,
         target: Vec<[f64; 2]>,
         ri: PointIndex,
         ti: PointIndex,
-        rs: Signatures,
-        ts: Signatures,
-        cands: Vec<Candidate>,
+        target_order: Vec<u32>,
+        found: crate::engine::Candidates,
         spacing: f64,
     }
 
@@ -456,20 +454,32 @@ mod tests {
         fn new(reference: Vec<[f64; 2]>, target: Vec<[f64; 2]>) -> Stages {
             let ri = PointIndex::new(&reference).unwrap();
             let ti = PointIndex::new(&target).unwrap();
-            let spacing = median_spacing(&reference, &ri, 10_000).unwrap();
-            let params = SignatureChoice::default().resolve(reference.len().min(target.len()));
-            let rs =
-                signatures::compute("reference", &reference, &ri, &params, &mut |_| {}).unwrap();
-            let ts = signatures::compute("target", &target, &ti, &params, &mut |_| {}).unwrap();
-            let cands = matching::candidates(&rs, &ts, 3, Rank::Distance, &mut |_| {}).unwrap();
+            let (ro, to) = (morton_order(&reference), morton_order(&target));
+            let config = crate::config::MatchConfig::new("reference".into(), "target".into());
+            let found = crate::engine::find_candidates(
+                &config,
+                &Survey {
+                    points: &reference,
+                    index: &ri,
+                    order: &ro,
+                },
+                &Survey {
+                    points: &target,
+                    index: &ti,
+                    order: &to,
+                },
+                &crate::progress::Silent,
+                &["reference".into(), "target".into()],
+            )
+            .unwrap();
+            let spacing = found.search.reference_spacing;
             Stages {
                 reference,
                 target,
                 ri,
                 ti,
-                rs,
-                ts,
-                cands,
+                target_order: to,
+                found,
                 spacing,
             }
         }
@@ -480,11 +490,13 @@ mod tests {
                 target: &self.target,
                 reference_index: &self.ri,
                 target_index: &self.ti,
-                reference_signatures: &self.rs,
-                target_signatures: &self.ts,
-                candidates: &self.cands,
+                target_order: &self.target_order,
+                reference_signatures: &self.found.reference_signatures,
+                target_signatures: &self.found.target_signatures,
+                candidates: &self.found.candidates,
                 metres_per_unit: 1.0,
                 reference_spacing: self.spacing,
+                georeferenced: false,
             }
         }
 
@@ -499,6 +511,7 @@ mod tests {
                 seed,
                 keep: 4,
                 chance_rate: crate::fit::significance::poisson_chance_rate(tolerance, self.spacing),
+                prior: None,
             }
         }
     }
@@ -538,7 +551,13 @@ mod tests {
         let ti = PointIndex::new(&p.target).unwrap();
         let params = SignatureChoice::default().resolve(p.target.len());
         assert_eq!((params.neighbours, params.leave_out), (4, 2));
-        let ts = signatures::compute("target", &p.target, &ti, &params, &mut |_| {}).unwrap();
+        let order = morton_order(&p.target);
+        let survey = Survey {
+            points: &p.target,
+            index: &ti,
+            order: &order,
+        };
+        let ts = signatures::compute("target", &survey, &params, false, &mut |_| {}).unwrap();
         // The ring by brute force: every landmark but the fitted ones, nearest first.
         let brute = |q: [f64; 2], fitted: &[u32]| -> Vec<u32> {
             let mut all: Vec<(u32, f64)> = (0..p.target.len() as u32)
