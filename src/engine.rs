@@ -13,7 +13,7 @@ use crate::config::{ConfigError, MatchConfig};
 use crate::emit::EmitError;
 use crate::fit::{self, FitInput, Rejection, Solution};
 use crate::frame::{self, FrameError};
-use crate::ingest::{self, IngestError, IngestOptions, LandmarkSet, SurveyInput};
+use crate::ingest::{self, IngestError, LandmarkSet, SurveyInput};
 use crate::matching::{self, Candidate, MatchingError};
 use crate::outcome::{MatchOutcome, Search};
 use crate::progress::{stage, Progress};
@@ -52,13 +52,7 @@ pub enum Error {
 
 /// Reads one survey's landmarks.
 pub fn read_survey(input: &SurveyInput) -> Result<LandmarkSet, IngestError> {
-    ingest::read_landmarks(
-        &input.path,
-        &IngestOptions {
-            layer: input.layer.clone(),
-            id_field: input.id.clone(),
-        },
-    )
+    ingest::read_landmarks(input)
 }
 
 /// What the robust fit needs to know of the working frame.

@@ -784,3 +784,178 @@ fn pipeline_with_unknown_key() {
     assert_eq!(out.code, Some(0), "{out:#?}");
     assert!(site.path("pipelines/out/transform.json").is_file());
 }
+
+/// Writes points with ids (field `name`) in UTM 33N with one of GDAL's vector drivers.
+fn write_with_gdal(driver: &str, path: &Path, points: &[[f64; 2]], ids: &[String]) {
+    let driver = DriverManager::get_driver_by_name(driver).unwrap();
+    let mut ds = driver.create_vector_only(path).unwrap();
+    let srs = SpatialRef::from_epsg(32633).unwrap();
+    let layer = ds
+        .create_layer(LayerOptions {
+            name: "landmarks",
+            srs: Some(&srs),
+            ty: OGRwkbGeometryType::wkbPoint,
+            options: None,
+        })
+        .unwrap();
+    FieldDefn::new("name", OGRFieldType::OFTString)
+        .unwrap()
+        .add_to_layer(&layer)
+        .unwrap();
+    for (p, id) in points.iter().zip(ids) {
+        let mut f = Feature::new(layer.defn()).unwrap();
+        f.set_field_string(0, id).unwrap();
+        let mut g = Geometry::empty(OGRwkbGeometryType::wkbPoint).unwrap();
+        g.add_point_2d((p[0], p[1]));
+        f.set_geometry(g).unwrap();
+        f.create(&layer).unwrap();
+    }
+}
+
+/// Cuts a file to the first half of its bytes.
+fn truncate_to_half(path: &Path) {
+    let bytes = std::fs::read(path).unwrap();
+    std::fs::write(path, &bytes[..bytes.len() / 2]).unwrap();
+}
+
+#[test]
+fn raster_named_gpkg_is_refused_as_a_raster() {
+    // What the file is comes from what GDAL opens, not from its name.
+    let site = Site::new();
+    let (_, target) = site.valid_pair();
+    let driver = DriverManager::get_driver_by_name("GTiff").unwrap();
+    drop(
+        driver
+            .create_with_band_type::<u8, _>(site.path("survey.gpkg"), 8, 6, 1)
+            .unwrap(),
+    );
+    site.expect_failure(
+        &local_match("survey.gpkg", target, &[]),
+        2,
+        &["survey.gpkg", "is a raster image", "GTiff", "vector"],
+    );
+}
+
+#[test]
+fn geojson_named_dat_is_read_as_vector() {
+    let site = Site::new();
+    let r = reference_points();
+    site.write(
+        "survey.dat",
+        geojson(&r, &reference_ids(r.len()), Some(UTM33)),
+    );
+    let out = site.run(&[
+        "landmarks",
+        "survey.dat",
+        "--id",
+        "name",
+        "--out",
+        "seen.csv",
+    ]);
+    assert_eq!(out.code, Some(0), "{out:#?}");
+    assert!(
+        out.stdout
+            .starts_with(&format!("{} landmarks from survey.dat", r.len())),
+        "{out:#?}"
+    );
+    let written = std::fs::read_to_string(site.path("seen.csv")).unwrap();
+    assert_eq!(written.lines().count(), r.len() + 1, "{written}");
+}
+
+#[test]
+fn csv_named_txt_gets_the_csv_column_handling() {
+    // GDAL's CSV driver recognises only .csv/.tsv/.psv names; a .txt table is handed to it
+    // explicitly. Its columns are chosen as for a .csv: `n` is not taken for the northing.
+    let site = Site::new();
+    let (reference, _) = site.valid_pair();
+    let (t, ids) = target_points();
+    let mut text = String::from("id,n,x,y\n");
+    for (k, (p, id)) in t.iter().zip(&ids).enumerate() {
+        text.push_str(&format!("{id},{},{},{}\n", k % 7, p[0], p[1]));
+    }
+    let target = site.write("with-n.txt", text);
+    let out = site.run(&local_match(
+        reference,
+        target,
+        &["--target-id", "id", "--reference-id", "name"],
+    ));
+    assert_eq!(out.code, Some(0), "{out:#?}");
+    let t: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(site.path("out/transform.json")).unwrap())
+            .unwrap();
+    let scale = t["scale"].as_f64().unwrap();
+    assert!((scale - 0.5).abs() < 1e-6, "scale {scale}");
+    // And its rows without geometry are looked at, as for a .csv.
+    let site = Site::new();
+    let (reference, bad_id) = target_with_bad_row(&site, "target-nan.txt", 17, Some("nan"), None);
+    site.expect_failure(
+        &local_match(reference, "target-nan.txt", &["--target-id", "id"]),
+        2,
+        &[
+            "target-nan.txt",
+            &format!("'{bad_id}'"),
+            "non-finite",
+            "'nan'",
+        ],
+    );
+}
+
+#[test]
+fn truncated_flatgeobuf() {
+    // GDAL prints an error for the feature it cannot read and then ends the layer as if it were
+    // complete: tiemark used to go on with the features before it.
+    let site = Site::new();
+    let (_, target) = site.valid_pair();
+    let r = reference_points();
+    let ids = reference_ids(r.len());
+    write_with_gdal("FlatGeobuf", &site.path("whole.fgb"), &r, &ids);
+    // Control: the whole file reads.
+    let out = site.run(&["landmarks", "whole.fgb", "--out", "seen.csv"]);
+    assert_eq!(out.code, Some(0), "{out:#?}");
+    assert!(
+        out.stdout.starts_with(&format!("{} landmarks", r.len())),
+        "{out:#?}"
+    );
+    write_with_gdal("FlatGeobuf", &site.path("half.fgb"), &r, &ids);
+    truncate_to_half(&site.path("half.fgb"));
+    site.expect_failure(
+        &local_match("half.fgb", target, &[]),
+        2,
+        &[
+            "half.fgb",
+            "layer 'landmarks'",
+            "GDAL failed reading feature number",
+            &format!("of {}", r.len()),
+            "truncated",
+        ],
+    );
+}
+
+#[test]
+fn truncated_shapefile() {
+    let site = Site::new();
+    let (_, target) = site.valid_pair();
+    let r = reference_points();
+    std::fs::create_dir(site.path("shp")).unwrap();
+    write_with_gdal(
+        "ESRI Shapefile",
+        &site.path("shp/landmarks.shp"),
+        &r,
+        &reference_ids(r.len()),
+    );
+    let out = site.run(&["landmarks", "shp/landmarks.shp", "--out", "seen.csv"]);
+    assert_eq!(out.code, Some(0), "{out:#?}");
+    truncate_to_half(&site.path("shp/landmarks.shp"));
+    site.expect_failure(
+        &local_match("shp/landmarks.shp", target, &[]),
+        2,
+        &[
+            "landmarks.shp",
+            "GDAL failed reading feature number",
+            // The Shapefile driver hands back the feature it failed on.
+            "(feature id ",
+            ".shp file; ",
+            "truncated",
+        ],
+    );
+}

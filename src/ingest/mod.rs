@@ -1,35 +1,46 @@
-//! Stage 1 — ingest: read landmarks from any GDAL vector dataset.
+//! Stage 1 — ingest: read landmarks from a GDAL vector dataset.
 //!
-//! **In:** a path (GeoPackage, Shapefile, GeoJSON, FlatGeobuf, CSV with x/y or lon/lat columns,
-//! or anything else GDAL reads as vectors) and [`IngestOptions`] (layer, id field).
+//! **In:** a [`SurveyInput`]: the path of a dataset GDAL opens (GeoPackage, Shapefile,
+//! GeoJSON, FlatGeobuf, CSV with x/y or lon/lat columns, or anything else GDAL reads as
+//! vectors), and optionally the layer and the id field. (Its `crs` is for the working-frame
+//! stage; ingest does not use it.)
 //! **Out:** a [`LandmarkSet`]: one landmark per feature — id, position in the file's own
-//! coordinates, and the layer's CRS as WKT if it has one.
+//! coordinates, the layer's CRS as WKT if it has one — and the number of features skipped.
+//!
+//! What a dataset holds is decided from what GDAL opens, not from the file's name
+//! ([`SourceKind`]): vector layers are read (`vector.rs`); a raster image is refused with
+//! [`IngestError::RasterNotSupported`] for now (a raster reader belongs beside the vector one).
 //!
 //! Points are taken as they are; polygons and multipolygons as their area-weighted centroid
 //! (`geo`'s `Centroid`); any other geometry as its centroid. Z and M are dropped. Features with
-//! no geometry, or an empty one, are skipped and counted. The input is opened read-only and is
-//! never modified.
+//! no geometry, or an empty one, are skipped and counted. A GDAL error while
+//! fetching the features (a truncated or damaged file) is an error naming the feature, not a
+//! short read. The input is opened read-only and is never modified.
 //!
-//! A CSV file's x is its column named x, lon, long, longitude, easting, east or e (the first of
-//! these names present, any case), its y the column named y, lat, latitude, northing, north or
-//! n; a row whose coordinate text is not a finite number is an error, not a skipped feature.
+//! When GDAL reads the file with its CSV driver, x is the column named x, lon, long, longitude,
+//! easting, east or e (the first of these names present, any case), y the column named y, lat,
+//! latitude, northing, north or n; a row whose coordinate text is not a finite number is an
+//! error, not a skipped feature (`csv.rs`).
 //!
 //! Checks that make the rest of the pipeline meaningful happen here, with the file named in
-//! the error: non-finite coordinates, duplicate positions, and a set that is all on one line.
+//! the error (`validate.rs`): non-finite coordinates, duplicate positions, and a set that is
+//! all on one line.
 
-mod read;
+mod csv;
+mod open;
+mod validate;
+mod vector;
 
-pub use read::read_landmarks;
-
+use gdal::errors::GdalError;
 use serde::{Deserialize, Serialize};
 use std::path::PathBuf;
 
-/// One input survey as the user names it: the dataset, and optionally its layer, id field and
-/// CRS override (`[reference]` / `[target]` in a pipeline file).
+/// One input survey: which dataset, which layer and id field, and which CRS it is in. Used by
+/// the command line and, as a table, by pipeline files.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct SurveyInput {
-    /// The dataset.
+    /// The dataset (any file or name GDAL opens).
     pub path: PathBuf,
     /// Layer name; `None`: the only layer, or the first one.
     #[serde(default)]
@@ -37,8 +48,8 @@ pub struct SurveyInput {
     /// Attribute holding each landmark's id; `None`: the feature id.
     #[serde(default)]
     pub id: Option<String>,
-    /// CRS override (anything PROJ accepts), or "local" for an unreferenced local grid
-    /// (target only); `None`: the file's own CRS.
+    /// CRS override, or "local" for an unreferenced local grid (target only); `None`: the
+    /// layer's own CRS. Read by the working-frame stage, not by ingest.
     #[serde(default)]
     pub crs: Option<String>,
 }
@@ -55,14 +66,13 @@ impl SurveyInput {
     }
 }
 
-/// Which layer and which id field to read.
-#[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct IngestOptions {
-    /// Layer name; `None`: the only layer, or the first one.
-    pub layer: Option<String>,
-    /// Attribute holding each landmark's id; `None`: the feature id.
-    pub id_field: Option<String>,
+/// What a dataset holds, as GDAL opens it.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum SourceKind {
+    /// One or more vector layers.
+    Vector,
+    /// Raster bands and no vector layers.
+    Raster,
 }
 
 /// Landmarks read from one dataset.
@@ -83,6 +93,19 @@ pub struct LandmarkSet {
     pub skipped_without_geometry: usize,
 }
 
+/// Reads the landmarks of one survey. The dataset is opened read-only; what it holds is decided
+/// from what GDAL opens ([`SourceKind`]), and a raster is refused for now.
+pub fn read_landmarks(input: &SurveyInput) -> Result<LandmarkSet, IngestError> {
+    let opened = open::open_source(&input.path)?;
+    match opened.kind {
+        SourceKind::Vector => vector::read_vector(input, opened),
+        SourceKind::Raster => Err(IngestError::RasterNotSupported {
+            path: input.path.clone(),
+            driver: opened.driver,
+        }),
+    }
+}
+
 /// What is wrong with an input dataset. Every variant names the file.
 #[derive(Debug, thiserror::Error)]
 pub enum IngestError {
@@ -92,13 +115,22 @@ pub enum IngestError {
         /// Path given.
         path: PathBuf,
     },
-    /// GDAL cannot open it as vector data.
-    #[error("{path}: not a vector dataset GDAL can read ({detail}); give a GeoPackage, Shapefile, GeoJSON, FlatGeobuf or CSV file")]
+    /// GDAL cannot open it.
+    #[error("{path}: not a vector dataset GDAL can read ({}); give a GeoPackage, Shapefile, GeoJSON, FlatGeobuf or CSV file", open_failure_words(.source))]
     Unreadable {
         /// Path given.
         path: PathBuf,
-        /// GDAL's words.
-        detail: String,
+        /// GDAL's error.
+        #[source]
+        source: GdalError,
+    },
+    /// GDAL opens it as a raster image.
+    #[error("{path}: is a raster image (GDAL driver {driver}); tiemark reads landmarks from vector layers only in this version — extract points first or give a vector dataset")]
+    RasterNotSupported {
+        /// Path given.
+        path: PathBuf,
+        /// Short name of the GDAL driver that opened it.
+        driver: String,
     },
     /// The dataset has no layers.
     #[error("{path}: the dataset has no vector layers")]
@@ -149,6 +181,25 @@ pub enum IngestError {
         layer: String,
         /// Features without geometry.
         skipped: usize,
+    },
+    /// GDAL failed while fetching a feature: the layer was not read to its end.
+    #[error("{path}, layer '{layer}': GDAL failed reading {}: {}; the file may be truncated or damaged — repair it or export it again", feature_position(*.index, *.fid, *.after_fid, *.declared), gdal_words(.source))]
+    ReadFailed {
+        /// Path given.
+        path: PathBuf,
+        /// Layer read.
+        layer: String,
+        /// Features fetched before the failing one (its 0-based position in reading order).
+        index: usize,
+        /// The failing feature's id, when GDAL returned the feature along with the error.
+        fid: Option<u64>,
+        /// The id of the last feature fetched without error.
+        after_fid: Option<u64>,
+        /// The feature count the layer declares, when it can say without a scan.
+        declared: Option<u64>,
+        /// GDAL's error (boxed: it would make every `IngestError` larger).
+        #[source]
+        source: Box<GdalError>,
     },
     /// A coordinate is NaN or infinite.
     #[error("{path}, layer '{layer}': landmark '{id}' has a non-finite coordinate ({x}, {y}); fix or remove that feature")]
@@ -218,11 +269,53 @@ pub enum IngestError {
         count: usize,
     },
     /// Any other GDAL failure while reading.
-    #[error("{path}: reading failed: {detail}")]
+    #[error("{path}: reading failed: {}", gdal_words(.source))]
     Gdal {
         /// Path given.
         path: PathBuf,
-        /// GDAL's words.
-        detail: String,
+        /// GDAL's error.
+        #[source]
+        source: GdalError,
     },
+}
+
+/// GDAL's own words for an error: its message when it has one, else the error's description.
+fn gdal_words(e: &GdalError) -> String {
+    match e {
+        GdalError::NullPointer { msg, .. } | GdalError::CplError { msg, .. }
+            if !msg.trim().is_empty() =>
+        {
+            msg.trim().to_string()
+        }
+        other => other.to_string(),
+    }
+}
+
+/// Why a dataset did not open: GDAL's message, or — when GDAL gave none, which is what
+/// happens when no driver claims the file — that no driver recognises it.
+fn open_failure_words(e: &GdalError) -> String {
+    match e {
+        GdalError::NullPointer { msg, .. } if msg.trim().is_empty() => {
+            "no GDAL driver recognises it".to_string()
+        }
+        other => gdal_words(other),
+    }
+}
+
+/// Where in a layer reading failed, e.g. `feature number 149 of 300 (the one after feature id
+/// 147)`.
+fn feature_position(
+    index: usize,
+    fid: Option<u64>,
+    after_fid: Option<u64>,
+    declared: Option<u64>,
+) -> String {
+    let of = declared.map(|n| format!(" of {n}")).unwrap_or_default();
+    let which = match (fid, after_fid) {
+        (Some(f), _) => format!(" (feature id {f})"),
+        (None, Some(a)) => format!(" (the one after feature id {a})"),
+        (None, None) if index == 0 => " (the first one)".to_string(),
+        (None, None) => String::new(),
+    };
+    format!("feature number {}{of}{which}", index + 1)
 }
