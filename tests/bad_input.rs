@@ -959,3 +959,31 @@ fn truncated_shapefile() {
         ],
     );
 }
+
+#[test]
+fn landmarks_command_counts_skipped_features_by_cause() {
+    let site = Site::new();
+    let r = reference_points();
+    let ids = reference_ids(r.len());
+    let text = geojson(&r, &ids, Some(UTM33));
+    let extra = [
+        r#"{"type":"Feature","properties":{"name":"nothing1"},"geometry":null}"#,
+        r#"{"type":"Feature","properties":{"name":"nothing2"},"geometry":null}"#,
+        r#"{"type":"Feature","properties":{"name":"hollow"},"geometry":{"type":"GeometryCollection","geometries":[]}}"#,
+    ];
+    let text = text.replacen(
+        "\"features\":[\n",
+        &format!("\"features\":[\n{},\n", extra.join(",\n")),
+        1,
+    );
+    site.write("mixed.geojson", text);
+    let out = site.run(&["landmarks", "mixed.geojson", "--out", "seen.csv"]);
+    assert_eq!(out.code, Some(0), "{out:#?}");
+    assert!(
+        out.stdout.contains(&format!(
+            "{} landmarks from mixed.geojson (layer mixed); 3 features skipped (2 without a geometry, 1 with an empty geometry)",
+            r.len()
+        )),
+        "{out:#?}"
+    );
+}

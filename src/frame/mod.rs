@@ -305,7 +305,7 @@ mod tests {
             ids: (0..points.len()).map(|i| format!("L{i}")).collect(),
             points,
             crs_wkt: crs.map(|c| Crs::parse(c, "test").unwrap().wkt),
-            skipped_without_geometry: 0,
+            skipped: Default::default(),
         }
     }
 

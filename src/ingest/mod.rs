@@ -5,7 +5,8 @@
 //! vectors), and optionally the layer and the id field. (Its `crs` is for the working-frame
 //! stage; ingest does not use it.)
 //! **Out:** a [`LandmarkSet`]: one landmark per feature — id, position in the file's own
-//! coordinates, the layer's CRS as WKT if it has one — and the number of features skipped.
+//! coordinates, the layer's CRS as WKT if it has one — and the skipped features counted by
+//! cause.
 //!
 //! What a dataset holds is decided from what GDAL opens, not from the file's name
 //! ([`SourceKind`]): vector layers are read (`vector.rs`); a raster image is refused with
@@ -13,7 +14,7 @@
 //!
 //! Points are taken as they are; polygons and multipolygons as their area-weighted centroid
 //! (`geo`'s `Centroid`); any other geometry as its centroid. Z and M are dropped. Features with
-//! no geometry, or an empty one, are skipped and counted. A GDAL error while
+//! no geometry, or an empty one, are skipped and counted ([`SkipCounts`]). A GDAL error while
 //! fetching the features (a truncated or damaged file) is an error naming the feature, not a
 //! short read. The input is opened read-only and is never modified.
 //!
@@ -33,6 +34,7 @@ mod vector;
 
 use gdal::errors::GdalError;
 use serde::{Deserialize, Serialize};
+use std::fmt;
 use std::path::PathBuf;
 
 /// One input survey: which dataset, which layer and id field, and which CRS it is in. Used by
@@ -75,6 +77,42 @@ pub enum SourceKind {
     Raster,
 }
 
+/// Features skipped while reading a layer, by cause.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+pub struct SkipCounts {
+    /// Features without a geometry (a null one).
+    pub no_geometry: usize,
+    /// Features whose geometry is empty (e.g. a point with no coordinates).
+    pub empty: usize,
+}
+
+impl SkipCounts {
+    /// All skipped features.
+    pub fn total(&self) -> usize {
+        self.no_geometry + self.empty
+    }
+}
+
+/// The causes with a count, e.g. `2 without a geometry, 1 with an empty geometry`; `none` when
+/// nothing was skipped.
+impl fmt::Display for SkipCounts {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        let parts: Vec<String> = [
+            (self.no_geometry, "without a geometry"),
+            (self.empty, "with an empty geometry"),
+        ]
+        .iter()
+        .filter(|(n, _)| *n > 0)
+        .map(|(n, cause)| format!("{n} {cause}"))
+        .collect();
+        if parts.is_empty() {
+            f.write_str("none")
+        } else {
+            f.write_str(&parts.join(", "))
+        }
+    }
+}
+
 /// Landmarks read from one dataset.
 #[derive(Debug, Clone, PartialEq)]
 pub struct LandmarkSet {
@@ -89,8 +127,8 @@ pub struct LandmarkSet {
     pub points: Vec<[f64; 2]>,
     /// The layer's CRS as WKT, if it declares one.
     pub crs_wkt: Option<String>,
-    /// Features skipped because they had no geometry or an empty one.
-    pub skipped_without_geometry: usize,
+    /// Features skipped, by cause.
+    pub skipped: SkipCounts,
 }
 
 /// Reads the landmarks of one survey. The dataset is opened read-only; what it holds is decided
@@ -173,14 +211,14 @@ pub enum IngestError {
         field: String,
     },
     /// No feature with a geometry.
-    #[error("{path}, layer '{layer}': no features with a geometry ({skipped} skipped without one); choose another layer or file")]
+    #[error("{path}, layer '{layer}': no features with a geometry ({}); choose another layer or file", empty_layer_words(.skipped))]
     Empty {
         /// Path given.
         path: PathBuf,
         /// Layer read.
         layer: String,
-        /// Features without geometry.
-        skipped: usize,
+        /// Features skipped, by cause.
+        skipped: SkipCounts,
     },
     /// GDAL failed while fetching a feature: the layer was not read to its end.
     #[error("{path}, layer '{layer}': GDAL failed reading {}: {}; the file may be truncated or damaged — repair it or export it again", feature_position(*.index, *.fid, *.after_fid, *.declared), gdal_words(.source))]
@@ -299,6 +337,15 @@ fn open_failure_words(e: &GdalError) -> String {
             "no GDAL driver recognises it".to_string()
         }
         other => gdal_words(other),
+    }
+}
+
+/// The skipped features of a layer that gave no landmark, e.g. `3 skipped: 3 without a
+/// geometry`.
+fn empty_layer_words(skipped: &SkipCounts) -> String {
+    match skipped.total() {
+        0 => "the layer has no features".to_string(),
+        n => format!("{n} skipped: {skipped}"),
     }
 }
 

@@ -1,7 +1,7 @@
 //! Reading a vector layer into a [`LandmarkSet`].
 //!
 //! **In:** the [`SurveyInput`] and the dataset as `open.rs` opened it. **Out:** the layer's
-//! landmarks, checked (`validate.rs`), with the skipped features counted; or an
+//! landmarks, checked (`validate.rs`), with the skipped features counted by cause; or an
 //! [`IngestError`] naming the file (and the layer, field or feature at fault).
 //!
 //! A table GDAL opened with its CSV driver is opened again with the open options that make
@@ -11,7 +11,7 @@
 //! [`IngestError::ReadFailed`] here.
 
 use super::open::{clear_gdal_error, reopen_vector, take_gdal_failure, Opened};
-use super::{csv, validate, IngestError, LandmarkSet, SurveyInput};
+use super::{csv, validate, IngestError, LandmarkSet, SkipCounts, SurveyInput};
 use gdal::vector::{Feature, Geometry, LayerAccess};
 use geo::Centroid;
 use std::collections::HashSet;
@@ -77,7 +77,7 @@ pub(super) fn read_vector(input: &SurveyInput, opened: Opened) -> Result<Landmar
     let crs_wkt = layer.spatial_ref().and_then(|s| s.to_wkt().ok());
     let mut ids = Vec::new();
     let mut points = Vec::new();
-    let mut skipped = 0usize;
+    let mut skipped = SkipCounts::default();
     // Feature ids of CSV rows without geometry, to look at their text afterwards.
     let mut csv_without_geometry = HashSet::new();
     let mut n = 0usize;
@@ -89,14 +89,14 @@ pub(super) fn read_vector(input: &SurveyInput, opened: Opened) -> Result<Landmar
         n += 1;
         let p = match feature.geometry().map(position) {
             None | Some(Position::Missing) => {
-                skipped += 1;
+                skipped.no_geometry += 1;
                 if let (Some(_), Some(fid)) = (&csv_columns, feature.fid()) {
                     csv_without_geometry.insert(fid);
                 }
                 return Ok(());
             }
             Some(Position::Empty) => {
-                skipped += 1;
+                skipped.empty += 1;
                 return Ok(());
             }
             Some(Position::At(p)) => p,
@@ -140,7 +140,7 @@ pub(super) fn read_vector(input: &SurveyInput, opened: Opened) -> Result<Landmar
         ids,
         points,
         crs_wkt,
-        skipped_without_geometry: skipped,
+        skipped,
     };
     validate::check(&set)?;
     Ok(set)

@@ -92,13 +92,9 @@ fn run_landmarks(a: cli::LandmarksArgs) -> ExitCode {
                 set.points.len(),
                 set.source.display(),
                 set.layer,
-                if set.skipped_without_geometry > 0 {
-                    format!(
-                        "; {} features without geometry skipped",
-                        set.skipped_without_geometry
-                    )
-                } else {
-                    String::new()
+                match set.skipped.total() {
+                    0 => String::new(),
+                    n => format!("; {n} features skipped ({})", set.skipped),
                 },
                 a.out.display()
             ));
