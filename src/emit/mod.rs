@@ -23,9 +23,14 @@
 //! - `report.txt`: the text summary, with the cautions.
 //!
 //! Nothing is written until everything is ready: the files are made in a hidden staging folder
-//! beside the output folder and moved into place at the end; on any error the staging folder is
-//! removed and the output folder is left as it was.
+//! beside the output folder and put in place at the end, all four or none (module `atomic`): a new
+//! output folder is renamed into place; in an existing one (`--force`) the previous four files
+//! are moved into a hidden backup folder beside it while the new ones go in, and put back if
+//! anything fails. Other files in the output folder are never touched. On any error the
+//! staging folder is removed and the output folder is left as it was; what a crash leaves and
+//! how to recover is in that module's doc.
 
+pub(crate) mod atomic;
 pub mod csv;
 pub mod gpkg;
 pub mod json;
@@ -33,6 +38,7 @@ pub mod json;
 use crate::config::OutputOptions;
 use crate::ingest::LandmarkSet;
 use crate::outcome::MatchOutcome;
+use atomic::Staging;
 use std::path::{Path, PathBuf};
 
 /// Names of the files a match writes.
@@ -109,40 +115,6 @@ pub fn check_output_dir(dir: &Path, force: bool) -> Result<(), EmitError> {
     Ok(())
 }
 
-/// A hidden staging folder beside `target`, removed on drop unless committed.
-pub(crate) struct Staging {
-    pub(crate) path: PathBuf,
-    done: bool,
-}
-
-impl Staging {
-    pub(crate) fn beside(target: &Path) -> Result<Staging, EmitError> {
-        let parent = match target.parent() {
-            Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
-            _ => PathBuf::from("."),
-        };
-        std::fs::create_dir_all(&parent).map_err(io_err(&parent))?;
-        let name = target
-            .file_name()
-            .map(|n| n.to_string_lossy().to_string())
-            .unwrap_or_default();
-        let path = parent.join(format!(".{name}.tiemark-partial-{}", std::process::id()));
-        if path.exists() {
-            std::fs::remove_dir_all(&path).map_err(io_err(&path))?;
-        }
-        std::fs::create_dir(&path).map_err(io_err(&path))?;
-        Ok(Staging { path, done: false })
-    }
-}
-
-impl Drop for Staging {
-    fn drop(&mut self) {
-        if !self.done {
-            let _ = std::fs::remove_dir_all(&self.path);
-        }
-    }
-}
-
 /// Writes every output file of an accepted match into `output.dir`; returns their final
 /// paths.
 pub fn write_all(
@@ -153,27 +125,18 @@ pub fn write_all(
     let solution = outcome.solution().ok_or(EmitError::NothingAccepted)?;
     let out = &output.dir;
     check_output_dir(out, output.force)?;
-    let mut staging = Staging::beside(out)?;
+    let staging = Staging::beside(out)?;
     csv::write_control_points(outcome, solution, &staging.path.join(FILES[0]))?;
     gpkg::write_control_points(outcome, solution, &staging.path.join(FILES[1]))?;
     json::write_transform(outcome, solution, &staging.path.join(FILES[2]))?;
     let report_path = staging.path.join(FILES[3]);
     std::fs::write(&report_path, report).map_err(io_err(&report_path))?;
-    // Move into place.
-    let finals: Vec<PathBuf> = FILES.iter().map(|f| out.join(f)).collect();
-    if !out.exists() {
-        std::fs::rename(&staging.path, out).map_err(io_err(out))?;
-        staging.done = true;
-    } else {
-        for f in FILES {
-            let dst = out.join(f);
-            std::fs::rename(staging.path.join(f), &dst).map_err(io_err(&dst))?;
-        }
-    }
-    Ok(finals)
+    atomic::put_in_place(staging, out, &FILES)?;
+    Ok(FILES.iter().map(|f| out.join(f)).collect())
 }
 
-/// Writes a landmark set (id, x, y in its own CRS) to one file, format by extension.
+/// Writes a landmark set (id, x, y in its own CRS) to one file, format by extension; the file
+/// is written under a temporary name beside it and renamed, so it is either whole or as it was.
 pub fn write_landmarks(set: &LandmarkSet, out: &Path, force: bool) -> Result<(), EmitError> {
     if out.exists() && !force {
         return Err(EmitError::FileExists(out.to_path_buf()));
@@ -185,14 +148,11 @@ pub fn write_landmarks(set: &LandmarkSet, out: &Path, force: bool) -> Result<(),
         .extension()
         .map(|e| e.to_string_lossy().to_ascii_lowercase())
         .unwrap_or_default();
-    let staging = Staging::beside(out)?;
-    let name = out.file_name().expect("a file name");
-    let tmp = staging.path.join(name);
-    match ext.as_str() {
-        "csv" => csv::write_landmarks(set, &tmp)?,
-        "gpkg" | "geojson" | "json" | "fgb" => gpkg::write_landmarks(set, &tmp, &ext)?,
-        _ => return Err(EmitError::UnknownFormat(out.to_path_buf())),
+    if !matches!(ext.as_str(), "csv" | "gpkg" | "geojson" | "json" | "fgb") {
+        return Err(EmitError::UnknownFormat(out.to_path_buf()));
     }
-    std::fs::rename(&tmp, out).map_err(io_err(out))?;
-    Ok(())
+    atomic::write_file(out, |tmp| match ext.as_str() {
+        "csv" => csv::write_landmarks(set, tmp),
+        _ => gpkg::write_landmarks(set, tmp, &ext),
+    })
 }

@@ -31,7 +31,6 @@ use crate::spatial::{morton_order, Extent, PointIndex, Survey};
 use crate::synth::{split_base, Split};
 use rand::{Rng, SeedableRng};
 use std::collections::HashMap;
-use std::io::Write;
 use std::path::{Path, PathBuf};
 use std::time::Instant;
 
@@ -402,27 +401,12 @@ pub fn run_landmarks(
     Ok(rows)
 }
 
-fn write_atomically(path: &Path, text: &str) -> Result<(), ExperimentError> {
-    let io = |source| ExperimentError::Io {
-        path: path.to_path_buf(),
-        source,
-    };
-    let tmp = path.with_extension("tmp");
-    std::fs::File::create(&tmp)
-        .and_then(|mut f| f.write_all(text.as_bytes()))
-        .map_err(io)?;
-    std::fs::rename(&tmp, path).map_err(io)
-}
-
-/// Writes `landmark-robustness.csv` and `landmark-robustness.md` into `out_dir` (created).
+/// Writes `landmark-robustness.csv` and `landmark-robustness.md` into `out_dir` (created),
+/// both or neither; other files in `out_dir` are kept.
 pub fn write_landmarks(
     rows: &[LandmarkRow],
     out_dir: &Path,
 ) -> Result<Vec<PathBuf>, ExperimentError> {
-    std::fs::create_dir_all(out_dir).map_err(|source| ExperimentError::Io {
-        path: out_dir.to_path_buf(),
-        source,
-    })?;
     let mut csv = String::from("variant,missing_fraction,noise_fraction,trials,top1,top5,success_rate,ms_per_landmark,signatures_per_landmark\n");
     for r in rows {
         csv += &format!(
@@ -453,13 +437,17 @@ pub fn write_landmarks(
             r.signatures_per_landmark
         );
     }
-    let (c, m) = (
-        out_dir.join("landmark-robustness.csv"),
-        out_dir.join("landmark-robustness.md"),
-    );
-    write_atomically(&c, &csv)?;
-    write_atomically(&m, &md)?;
-    Ok(vec![c, m])
+    crate::emit::atomic::write_set(
+        out_dir,
+        &[
+            ("landmark-robustness.csv", csv.as_bytes()),
+            ("landmark-robustness.md", md.as_bytes()),
+        ],
+    )
+    .map_err(|f| ExperimentError::Io {
+        path: f.path,
+        source: f.source,
+    })
 }
 
 #[cfg(test)]

@@ -1257,58 +1257,33 @@ fn draw_plot(
 ///   per class; one row of panels per set of harmonics (j = 1; 1, 2; 1-4), solid lines
 ///   for the disc keys (`ratio-…`) and dashed for the sphere keys (`sphere-…`).
 ///
-/// Everything is rendered in memory first; each file is then written under a temporary name
-/// and renamed, so a failure leaves no partial result file (temporary files are removed).
+/// Everything is rendered in memory first, then the three files are put in place together
+/// (a staging folder beside `out_dir`, see `crate::emit::atomic`): all of them or none, other
+/// files in `out_dir` kept.
 pub fn write_retrieval(
     run: &Retrieval,
     options: &RetrievalOptions,
     out_dir: &Path,
 ) -> Result<Vec<PathBuf>, ExperimentError> {
     let rows = &run.rows;
-    let io = |path: &Path| {
-        let path = path.to_path_buf();
-        move |source: std::io::Error| ExperimentError::Io { path, source }
-    };
-    std::fs::create_dir_all(out_dir).map_err(io(out_dir))?;
     let svg_path = out_dir.join("retrieval.svg");
     let svg = svg_text(rows, options).map_err(|detail| ExperimentError::Plot {
         path: svg_path.clone(),
         detail,
     })?;
-    let files = [
-        (out_dir.join("retrieval.csv"), csv_text(rows)),
-        (out_dir.join("retrieval.md"), markdown_text(run, options)),
-        (svg_path, svg),
-    ];
-    let temp = |p: &Path| {
-        let name = p
-            .file_name()
-            .map_or_else(Default::default, |n| n.to_string_lossy());
-        p.with_file_name(format!(".{name}.partial"))
-    };
-    let mut written = Vec::new();
-    for (path, text) in &files {
-        let t = temp(path);
-        if let Err(e) = std::fs::write(&t, text) {
-            let _ = std::fs::remove_file(&t);
-            for w in &written {
-                let _ = std::fs::remove_file(w);
-            }
-            return Err(io(&t)(e));
-        }
-        written.push(t);
-    }
-    let mut done = Vec::new();
-    for (k, (path, _)) in files.iter().enumerate() {
-        if let Err(e) = std::fs::rename(temp(path), path) {
-            for (later, _) in &files[k..] {
-                let _ = std::fs::remove_file(temp(later));
-            }
-            return Err(io(path)(e));
-        }
-        done.push(path.clone());
-    }
-    Ok(done)
+    let (csv, md) = (csv_text(rows), markdown_text(run, options));
+    crate::emit::atomic::write_set(
+        out_dir,
+        &[
+            ("retrieval.csv", csv.as_bytes()),
+            ("retrieval.md", md.as_bytes()),
+            ("retrieval.svg", svg.as_bytes()),
+        ],
+    )
+    .map_err(|f| ExperimentError::Io {
+        path: f.path,
+        source: f.source,
+    })
 }
 
 #[cfg(test)]
@@ -1653,17 +1628,12 @@ mod tests {
         for class in PolygonClass::ALL {
             assert!(svg.contains(&format!(">\n{}\n</text>", class.name())));
         }
-        let leftovers = std::fs::read_dir(&out)
+        // Nothing but `out` beside it: no staging, backup or discard folder left.
+        let beside: Vec<_> = std::fs::read_dir(out.parent().unwrap())
             .unwrap()
-            .filter(|e| {
-                e.as_ref()
-                    .unwrap()
-                    .file_name()
-                    .to_string_lossy()
-                    .ends_with(".partial")
-            })
-            .count();
-        assert_eq!(leftovers, 0);
+            .map(|e| e.unwrap().file_name())
+            .collect();
+        assert_eq!(beside, ["out"]);
     }
 
     #[test]
