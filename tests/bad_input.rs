@@ -712,6 +712,52 @@ fn output_folder_not_empty() {
 }
 
 #[test]
+fn forced_output_folder_with_a_folder_under_a_tiemark_name() {
+    // With --force into a folder holding the previous four files, a folder named like one of
+    // them makes the move fail. The files used to be renamed one by one, so this left the
+    // csv and gpkg new and the rest old; now the move is refused before any file moves.
+    let site = Site::new();
+    let (reference, target) = site.valid_pair();
+    let previous = ["control-points.csv", "control-points.gpkg", "report.txt"];
+    for f in previous {
+        site.write(&format!("out/{f}"), format!("previous {f}\n"));
+    }
+    site.write("out/transform.json/mine.txt", "not tiemark's\n");
+    site.write("out/keep.txt", "precious\n");
+    site.expect_failure(
+        &local_match(reference, target, &["--force"]),
+        2,
+        &["out/transform.json", "is a folder", "move it away"],
+    );
+    // Control: without that folder the forced run replaces the four files, keeps the user's,
+    // and leaves nothing of its own beside them.
+    std::fs::remove_dir_all(site.path("out/transform.json")).unwrap();
+    let before = site.snapshot();
+    let out = site.run(&local_match(reference, target, &["--force"]));
+    assert_eq!(out.code, Some(0), "{out:#?}");
+    let after = site.snapshot();
+    for f in previous.iter().chain(&["transform.json"]) {
+        let bytes = after.get(&Path::new("out").join(f)).cloned().flatten();
+        assert!(
+            bytes.is_some_and(|b| !b.is_empty() && b != format!("previous {f}\n").into_bytes()),
+            "{f} not replaced"
+        );
+    }
+    let mut others = after.clone();
+    for f in previous.iter().chain(&["transform.json"]) {
+        others.remove(&Path::new("out").join(f));
+    }
+    let mut others_before = before;
+    for f in previous {
+        others_before.remove(&Path::new("out").join(f));
+    }
+    assert_eq!(
+        others, others_before,
+        "files beside tiemark's appeared, went or changed"
+    );
+}
+
+#[test]
 fn neighbours_too_small() {
     let site = Site::new();
     let (reference, target) = site.valid_pair();
