@@ -16,9 +16,9 @@ use gdal::{Dataset, DriverManager};
 use std::path::Path;
 
 fn gdal_err(path: &Path) -> impl Fn(gdal::errors::GdalError) -> EmitError + '_ {
-    move |e| EmitError::Gdal {
+    move |source| EmitError::Gdal {
         path: path.to_path_buf(),
-        detail: e.to_string(),
+        source,
     }
 }
 

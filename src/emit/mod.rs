@@ -70,12 +70,13 @@ pub enum EmitError {
         source: std::io::Error,
     },
     /// GDAL trouble while writing.
-    #[error("{path}: writing failed: {detail}")]
+    #[error("{path}: writing failed: {source}")]
     Gdal {
         /// Where.
         path: PathBuf,
-        /// GDAL's words.
-        detail: String,
+        /// GDAL's error.
+        #[source]
+        source: gdal::errors::GdalError,
     },
     /// Unsupported output format.
     #[error("{0}: unknown output format; use a .gpkg, .geojson, .fgb or .csv file name")]
