@@ -5,7 +5,9 @@
 //! y' = s(sin t·x + cos t·y) + ty, t counter-clockwise; `standard_errors` of each; `rmse_m`;
 //! `sigma_m` (per-coordinate σ̂); `inliers`; `working_crs` (authority code, name, WKT and why it
 //! was chosen); `reference_crs`, `target_crs` ("local" for a local grid); `thresholds`;
-//! `significance`; `seed`; `version`. Translation standard errors are at the working frame's
+//! `significance`; `chosen` and `runner_up` (rotation, scale error in ppm, shift at the
+//! target's centre in metres, support); `bounds` (from the target's georeferencing, or null);
+//! `seed`; `version`. Translation standard errors are at the working frame's
 //! origin; `centroid` gives the target centroid of the control points, where the position
 //! error is smallest (σ̂/√n per coordinate).
 
