@@ -10,7 +10,6 @@
 //! measure what ships). Writing is the front ends' business ([`crate::emit`]).
 
 use crate::config::{ConfigError, MatchConfig};
-use crate::emit::EmitError;
 use crate::fit::{self, FitInput, Rejection, Solution};
 use crate::frame::{self, FrameError};
 use crate::ingest::{self, IngestError, LandmarkSet, SurveyInput};
@@ -39,9 +38,6 @@ pub enum Error {
     /// The signature keys cannot be indexed.
     #[error(transparent)]
     Matching(#[from] MatchingError),
-    /// Writing outputs (from the front ends' writers).
-    #[error(transparent)]
-    Emit(#[from] EmitError),
     /// The landmarks defeat the k-d tree (e.g. a huge number sharing one coordinate).
     #[error("{path}: the landmarks are degenerate (too many share one coordinate value to index); check for features copied onto one line or column")]
     Degenerate {
@@ -147,13 +143,13 @@ pub fn solve_points(
     Ok((found.search, fit))
 }
 
-/// As [`solve_points`] on plain point arrays in metres in an unreferenced frame (no prior
-/// bounds the transform): builds their k-d trees and Morton orders first. The surveys are
-/// named "reference" and "target" in errors.
+/// As [`solve_points`] on plain point arrays: builds their k-d trees and Morton orders first.
+/// The surveys are named "reference" and "target" in errors.
 pub fn solve_pair(
     config: &MatchConfig,
     reference: &[[f64; 2]],
     target: &[[f64; 2]],
+    facts: &FrameFacts,
     progress: &dyn Progress,
 ) -> Result<(Search, Result<Solution, Rejection>), Error> {
     let index = |points: &[[f64; 2]], name: &str| {
@@ -173,7 +169,7 @@ pub fn solve_pair(
             index: &ti,
             order: &to,
         },
-        &FrameFacts::LOCAL_METRES,
+        facts,
         progress,
         &["reference".into(), "target".into()],
     )

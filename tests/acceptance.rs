@@ -18,7 +18,7 @@ mod overrides;
 use rand::{Rng, SeedableRng};
 use std::collections::HashSet;
 use tiemark::config::MatchConfig;
-use tiemark::engine::solve_pair;
+use tiemark::engine::{solve_pair, FrameFacts};
 use tiemark::fit::Similarity;
 use tiemark::frame::crs::{Converter, Crs};
 use tiemark::progress::Silent;
@@ -80,7 +80,14 @@ fn trial(base: &[[f64; 2]], spacing: f64, seed: u64) -> Option<Trial> {
     let p = split_base(base, &split, &mut rng);
     let (reference, target) = (&p.reference, &p.target);
     let pairs: HashSet<(u32, u32)> = p.pairs.iter().copied().collect();
-    let (_, fit) = solve_pair(&config(), reference, target, &Silent).unwrap();
+    let (_, fit) = solve_pair(
+        &config(),
+        reference,
+        target,
+        &FrameFacts::LOCAL_METRES,
+        &Silent,
+    )
+    .unwrap();
     let solution = match fit {
         Ok(s) => s,
         Err(rejection) => {

@@ -513,56 +513,41 @@ fn target_with_bad_row(
     (reference, rows[row].0.clone())
 }
 
+/// A target CSV whose row `row` has `x` / `y` replaced is refused (exit 2), naming the file,
+/// the row's id, "non-finite" and `shown` (the cell as the message quotes it).
+fn bad_coordinate_is_refused(
+    name: &'static str,
+    row: usize,
+    x: Option<&str>,
+    y: Option<&str>,
+    shown: &str,
+) {
+    let site = Site::new();
+    let (reference, bad_id) = target_with_bad_row(&site, name, row, x, y);
+    site.expect_failure(
+        &local_match(reference, name, &["--target-id", "id"]),
+        2,
+        &[name, &format!("'{bad_id}'"), "non-finite", shown],
+    );
+}
+
 #[test]
 fn csv_nan_coordinate() {
     // GDAL 3.6's CSV driver gives a row whose x is `nan` no geometry at all (it does not read
     // NaN); tiemark used to skip such a row silently as a feature without geometry.
-    let site = Site::new();
-    let (reference, bad_id) = target_with_bad_row(&site, "target-nan.csv", 17, Some("nan"), None);
-    site.expect_failure(
-        &local_match(reference, "target-nan.csv", &["--target-id", "id"]),
-        2,
-        &[
-            "target-nan.csv",
-            &format!("'{bad_id}'"),
-            "non-finite",
-            "'nan'",
-        ],
-    );
+    bad_coordinate_is_refused("target-nan.csv", 17, Some("nan"), None, "'nan'");
 }
 
 #[test]
 fn csv_inf_coordinate() {
     // As with `nan`: GDAL reads `inf` / `-inf` as no geometry.
-    let site = Site::new();
-    let (reference, bad_id) = target_with_bad_row(&site, "target-inf.csv", 40, None, Some("-inf"));
-    site.expect_failure(
-        &local_match(reference, "target-inf.csv", &["--target-id", "id"]),
-        2,
-        &[
-            "target-inf.csv",
-            &format!("'{bad_id}'"),
-            "non-finite",
-            "'-inf'",
-        ],
-    );
+    bad_coordinate_is_refused("target-inf.csv", 40, None, Some("-inf"), "'-inf'");
 }
 
 #[test]
 fn csv_overflowing_coordinate() {
     // A number too large for f64: GDAL reads it as an infinite coordinate.
-    let site = Site::new();
-    let (reference, bad_id) = target_with_bad_row(&site, "target-huge.csv", 3, Some("1e999"), None);
-    site.expect_failure(
-        &local_match(reference, "target-huge.csv", &["--target-id", "id"]),
-        2,
-        &[
-            "target-huge.csv",
-            &format!("'{bad_id}'"),
-            "non-finite",
-            "inf",
-        ],
-    );
+    bad_coordinate_is_refused("target-huge.csv", 3, Some("1e999"), None, "inf");
 }
 
 #[test]
@@ -583,17 +568,23 @@ fn csv_two_columns_for_one_axis() {
     );
 }
 
+/// The target survey as CSV text with a column `n` (a count) before `y`.
+fn target_with_a_count_column_named_n() -> String {
+    let (t, ids) = target_points();
+    let mut text = String::from("id,n,x,y\n");
+    for (k, (p, id)) in t.iter().zip(&ids).enumerate() {
+        text.push_str(&format!("{id},{},{},{}\n", k % 7, p[0], p[1]));
+    }
+    text
+}
+
 #[test]
 fn csv_attribute_named_like_a_coordinate_is_not_taken_for_one() {
     // A column `n` (a count) before `y`: GDAL takes the first matching column, so `n` became the
     // northing. The match must work as in the positive control.
     let site = Site::new();
     let (reference, _) = site.valid_pair();
-    let (t, ids) = target_points();
-    let mut text = String::from("id,n,x,y\n");
-    for (k, (p, id)) in t.iter().zip(&ids).enumerate() {
-        text.push_str(&format!("{id},{},{},{}\n", k % 7, p[0], p[1]));
-    }
+    let text = target_with_a_count_column_named_n();
     let target = site.write("with-n.csv", text);
     let out = site.run(&local_match(reference, target, &[]));
     assert_eq!(out.code, Some(0), "{out:#?}");
@@ -914,11 +905,7 @@ fn csv_named_txt_gets_the_csv_column_handling() {
     // explicitly. Its columns are chosen as for a .csv: `n` is not taken for the northing.
     let site = Site::new();
     let (reference, _) = site.valid_pair();
-    let (t, ids) = target_points();
-    let mut text = String::from("id,n,x,y\n");
-    for (k, (p, id)) in t.iter().zip(&ids).enumerate() {
-        text.push_str(&format!("{id},{},{},{}\n", k % 7, p[0], p[1]));
-    }
+    let text = target_with_a_count_column_named_n();
     let target = site.write("with-n.txt", text);
     let out = site.run(&local_match(
         reference,

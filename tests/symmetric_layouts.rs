@@ -8,10 +8,10 @@
 use rand::{Rng, SeedableRng};
 use rand_distr::{Distribution, Normal};
 use tiemark::config::MatchConfig;
-use tiemark::engine::{solve_points, FrameFacts};
+use tiemark::engine::{solve_pair, FrameFacts};
 use tiemark::fit::{RejectReason, Rejection, Similarity, Solution};
 use tiemark::progress::Silent;
-use tiemark::spatial::{morton_order, Extent, PointIndex, Survey};
+use tiemark::spatial::Extent;
 
 /// A pair of surveys of `base`: each keeps 85% of the landmarks; the target has 2 cm of noise
 /// and is off by a georeferencing error of 0.2°, 100 ppm and a shift of (1.3, −0.7) m at the
@@ -51,31 +51,11 @@ fn solve(
 ) -> Result<Solution, Rejection> {
     let mut config = MatchConfig::new("reference".into(), "target".into());
     config.fit.max_shift_m = max_shift_m;
-    let (ri, ti) = (
-        PointIndex::new(reference).unwrap(),
-        PointIndex::new(target).unwrap(),
-    );
-    let (ro, to) = (morton_order(reference), morton_order(target));
-    let (_, fit) = solve_points(
-        &config,
-        &Survey {
-            points: reference,
-            index: &ri,
-            order: &ro,
-        },
-        &Survey {
-            points: target,
-            index: &ti,
-            order: &to,
-        },
-        &FrameFacts {
-            metres_per_unit: 1.0,
-            georeferenced,
-        },
-        &Silent,
-        &["reference".into(), "target".into()],
-    )
-    .unwrap();
+    let facts = FrameFacts {
+        metres_per_unit: 1.0,
+        georeferenced,
+    };
+    let (_, fit) = solve_pair(&config, reference, target, &facts, &Silent).unwrap();
     fit
 }
 

@@ -4,7 +4,7 @@
 
 use std::collections::HashSet;
 use tiemark::config::MatchConfig;
-use tiemark::engine::solve_pair;
+use tiemark::engine::{solve_pair, FrameFacts};
 use tiemark::fit::Similarity;
 use tiemark::progress::Silent;
 use tiemark::synth::{make_pair, SynthParams};
@@ -24,7 +24,14 @@ fn run(seed: u64, scale: f64, angle: f64, missing: f64, n: usize) -> Option<(f64
         truth,
         seed,
     });
-    let (_, fit) = solve_pair(&config(), &p.reference, &p.target, &Silent).unwrap();
+    let (_, fit) = solve_pair(
+        &config(),
+        &p.reference,
+        &p.target,
+        &FrameFacts::LOCAL_METRES,
+        &Silent,
+    )
+    .unwrap();
     let solution = fit.ok()?;
     let truth_set: HashSet<(u32, u32)> = p.pairs.iter().copied().collect();
     let right = solution
@@ -81,7 +88,7 @@ fn unrelated_surveys_give_no_transform() {
             .reference
         };
         let (a, b) = (mk(100 + seed), mk(200 + seed));
-        let (_, fit) = solve_pair(&config(), &a, &b, &Silent).unwrap();
+        let (_, fit) = solve_pair(&config(), &a, &b, &FrameFacts::LOCAL_METRES, &Silent).unwrap();
         match fit {
             Err(rejection) => eprintln!(
                 "seed {seed}: {}",

@@ -80,9 +80,9 @@ fn run_landmarks(a: cli::LandmarksArgs) -> ExitCode {
         ..SurveyInput::new(a.file)
     };
     let written = engine::read_survey(&input)
-        .map_err(engine::Error::from)
+        .map_err(|e| e.to_string())
         .and_then(|set| {
-            emit::write_landmarks(&set, &a.out, a.force)?;
+            emit::write_landmarks(&set, &a.out, a.force).map_err(|e| e.to_string())?;
             Ok(set)
         });
     match written {
@@ -100,7 +100,7 @@ fn run_landmarks(a: cli::LandmarksArgs) -> ExitCode {
             ));
             ExitCode::SUCCESS
         }
-        Err(e) => fail(&cli::flags(&e.to_string())),
+        Err(e) => fail(&cli::flags(&e)),
     }
 }
 
