@@ -919,18 +919,7 @@ fn csv_named_txt_gets_the_csv_column_handling() {
     let scale = t["scale"].as_f64().unwrap();
     assert!((scale - 0.5).abs() < 1e-6, "scale {scale}");
     // And its rows without geometry are looked at, as for a .csv.
-    let site = Site::new();
-    let (reference, bad_id) = target_with_bad_row(&site, "target-nan.txt", 17, Some("nan"), None);
-    site.expect_failure(
-        &local_match(reference, "target-nan.txt", &["--target-id", "id"]),
-        2,
-        &[
-            "target-nan.txt",
-            &format!("'{bad_id}'"),
-            "non-finite",
-            "'nan'",
-        ],
-    );
+    bad_coordinate_is_refused("target-nan.txt", 17, Some("nan"), None, "'nan'");
 }
 
 #[test]
