@@ -16,6 +16,7 @@ use crate::ingest::{self, IngestError, LandmarkSet, SurveyInput};
 use crate::matching::{self, Candidate, MatchingError};
 use crate::outcome::{MatchOutcome, Search};
 use crate::progress::{stage, Progress};
+use crate::resources::{self, ResourceError};
 use crate::signatures::{self, SignatureError, Signatures};
 use crate::spatial::{median_spacing, morton_order, PointIndex, Survey};
 use std::path::PathBuf;
@@ -38,12 +39,22 @@ pub enum Error {
     /// The signature keys cannot be indexed.
     #[error(transparent)]
     Matching(#[from] MatchingError),
+    /// The run needs more memory than the machine has (refused before stage 3; boxed, it is
+    /// the largest error).
+    #[error(transparent)]
+    Resources(Box<ResourceError>),
     /// The landmarks defeat the k-d tree (e.g. a huge number sharing one coordinate).
     #[error("{path}: the landmarks are degenerate (too many share one coordinate value to index); check for features copied onto one line or column")]
     Degenerate {
         /// File.
         path: PathBuf,
     },
+}
+
+impl From<ResourceError> for Error {
+    fn from(e: ResourceError) -> Self {
+        Error::Resources(Box::new(e))
+    }
 }
 
 /// Reads one survey's landmarks.
@@ -188,7 +199,9 @@ pub struct Candidates {
     pub candidates: Vec<Candidate>,
 }
 
-/// Stages 3 and 4: signatures of both surveys and their candidate correspondences.
+/// Stages 3 and 4: signatures of both surveys and their candidate correspondences. First
+/// refuses a run whose estimated memory exceeds what the machine has available
+/// ([`resources::ensure_memory`]).
 pub fn find_candidates(
     config: &MatchConfig,
     reference: &Survey,
@@ -202,6 +215,8 @@ pub fn find_candidates(
     let used = config
         .signatures
         .resolve(reference.points.len().min(target.points.len()));
+    let sizes = [reference.points.len(), target.points.len()];
+    resources::ensure_memory(sizes, &used, &config.matching, &config.fit, labels)?;
     let sensitivity = config.matching.needs_sensitivity();
     let mut sigs = Vec::with_capacity(2);
     for (survey, (label, name)) in [reference, target].into_iter().zip(

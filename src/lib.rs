@@ -17,8 +17,9 @@
 //!
 //! [`engine`] runs stages 1-5 in order and returns a [`outcome::MatchOutcome`]; it writes
 //! nothing ([`engine::match_surveys`]; [`engine::solve_points`] for points already in a working
-//! frame). [`config`] holds the configuration shared by the command line and pipeline files,
-//! every option with its one default. [`progress`] is how stages report progress. The writers
+//! frame); before stage 3 it asks [`resources`] whether the run fits the machine's memory.
+//! [`config`] holds the configuration shared by the command line and pipeline files, every
+//! option with its one default. [`progress`] is how stages report progress. The writers
 //! ([`emit`], [`report`]) sit on top of the outcome, never the other way round. [`synth`] makes
 //! seeded synthetic surveys for tests, benchmarks and experiments; [`experiment`] (cargo feature
 //! `experiments`) measures the signature stage.
@@ -39,6 +40,7 @@ pub mod matching;
 pub mod outcome;
 pub mod progress;
 pub mod report;
+pub mod resources;
 pub mod signatures;
 pub mod spatial;
 pub mod synth;

@@ -214,7 +214,19 @@ pub enum SignatureError {
         /// Landmarks needed.
         needed: usize,
     },
+    /// An allocation for the signatures failed.
+    #[error("{role}: not enough memory for its signatures ({:.1} GB asked for); use fewer signatures.neighbours, a smaller signatures.leave_out, or tile the survey into smaller areas", *bytes as f64 / 1e9)]
+    OutOfMemory {
+        /// The survey ("the reference (path)").
+        role: String,
+        /// Bytes of the allocation that failed.
+        bytes: u64,
+    },
 }
+
+/// Landmarks whose polygons [`compute`] transforms in one batch (its chunk buffers hold their
+/// signatures; [`crate::resources`] counts them).
+pub const CHUNK_LANDMARKS: usize = 1 << 14;
 
 /// Signatures of one survey.
 #[derive(Debug, Clone, Default)]
@@ -312,16 +324,26 @@ pub fn compute(
     let mut plan = fourier::RatioPlan::new(n, &params.harmonics);
     let per = params.harmonics.len();
     let perm = params.permuted.then(|| permutation::fixed_permutation(n));
-    const CHUNK: usize = 1 << 14;
+    const CHUNK: usize = CHUNK_LANDMARKS;
     let mut sigs = Signatures {
         vertices_per_polygon: n,
-        polygons: Vec::with_capacity(points.len() * n),
+        polygons: Vec::new(),
         key_dims: params.key_space.dims() * per,
-        keys: Vec::with_capacity(points.len() * params.key_space.dims() * per),
+        keys: Vec::new(),
         sensitivity: Vec::new(),
     };
+    // At least one signature per landmark: reserved up front, fallibly (a survey too large
+    // for the machine is an error here, never an abort).
+    reserve(&mut sigs.polygons, points.len().saturating_mul(n), role)?;
+    reserve(
+        &mut sigs.keys,
+        points.len().saturating_mul(sigs.key_dims),
+        role,
+    )?;
     let pool = k + params.leave_out;
     let subsets = subsets(pool, params.leave_out);
+    // Most signatures one landmark yields: every subset, each walk branching up to MAX_ORDERS.
+    let most_per_landmark = subsets.len() * neighbourhood::MAX_ORDERS;
     let mut key = Vec::with_capacity(3 * per);
     let mut found = Vec::with_capacity(pool + 1);
     let mut nbrs = Vec::with_capacity(pool);
@@ -345,6 +367,8 @@ pub fn compute(
                 continue;
             }
             let o = points[c as usize];
+            reserve(&mut chunk_polys, most_per_landmark * n, role)?;
+            reserve(&mut buffer, most_per_landmark * n, role)?;
             for omit in &subsets {
                 subset.clear();
                 subset.extend(
@@ -374,10 +398,19 @@ pub fn compute(
                 }
             }
         }
+        let polygons = buffer.len() / n;
+        reserve(&mut ratios, polygons * per, role)?;
         if with_sensitivity {
+            reserve(&mut sens, polygons, role)?;
             plan.ratios_and_sensitivity(&mut buffer, params.key_space, &mut ratios, &mut sens);
         } else {
             plan.ratios(&mut buffer, &mut ratios);
+        }
+        let made = ratios.len() / per;
+        reserve(&mut sigs.keys, made * sigs.key_dims, role)?;
+        reserve(&mut sigs.polygons, made * n, role)?;
+        if with_sensitivity {
+            reserve(&mut sigs.sensitivity, made, role)?;
         }
         for (i, rs) in ratios.chunks_exact(per).enumerate() {
             key.clear();
@@ -396,6 +429,19 @@ pub fn compute(
         progress(((done + 1) * CHUNK).min(points.len()));
     }
     Ok(sigs)
+}
+
+/// Reserves room for `additional` more elements in `v`, or says that the machine has no
+/// memory for `role`'s signatures.
+fn reserve<T>(v: &mut Vec<T>, additional: usize, role: &str) -> Result<(), SignatureError> {
+    v.try_reserve(additional)
+        .map_err(|_| SignatureError::OutOfMemory {
+            role: role.to_string(),
+            bytes: v
+                .len()
+                .saturating_add(additional)
+                .saturating_mul(std::mem::size_of::<T>()) as u64,
+        })
 }
 
 /// The sets of neighbour positions (in 0..pool) to leave out: just the empty set for

@@ -221,6 +221,29 @@ fn too_few_landmarks_is_an_error() {
     ));
 }
 
+/// compute's allocations go through `reserve`: a request beyond what the machine can give is
+/// an error naming the survey and what to change, not an abort (a request beyond the address
+/// space fails the same way on every machine).
+#[test]
+fn an_impossible_allocation_is_an_error_not_an_abort() {
+    let mut v: Vec<f64> = vec![0.0; 3];
+    let err = reserve(&mut v, usize::MAX / 4, "the reference (a.gpkg)").unwrap_err();
+    assert!(matches!(err, SignatureError::OutOfMemory { .. }), "{err:?}");
+    let text = err.to_string();
+    for part in [
+        "the reference (a.gpkg)",
+        "not enough memory",
+        "signatures.neighbours",
+        "signatures.leave_out",
+        "tile the survey",
+    ] {
+        assert!(text.contains(part), "{part}: {text}");
+    }
+    assert_eq!(v.len(), 3);
+    assert!(reserve(&mut v, 10, "the reference (a.gpkg)").is_ok());
+    assert!(v.capacity() >= 13);
+}
+
 #[test]
 fn options_are_validated() {
     let bad = SignatureParams {

@@ -1,0 +1,394 @@
+//! Resources: whether a run's memory fits the machine, checked before the signature stage
+//! starts, so that a run too large for the machine is refused with the estimate and what to
+//! change instead of aborting in an allocation halfway through.
+//!
+//! **In:** the landmark counts of the two surveys, the resolved [`SignatureParams`], the
+//! [`MatchingParams`] and [`FitParams`]; the memory available (`MemAvailable` in
+//! `/proc/meminfo`).
+//! **Out:** a [`MemoryEstimate`] (the peak bytes stages 3-5 add to what is already allocated),
+//! or a [`ResourceError`] when that exceeds the memory available. Where `/proc/meminfo` cannot
+//! be read (not Linux), there is no check.
+//!
+//! The estimate counts, from the sizes alone, what the stages allocate and which of it is
+//! alive at once:
+//! - signatures per landmark: C(k + leave_out, leave_out) subsets, times [`MAX_ORDERS`] when
+//!   the ambiguity-aware walk is on (an upper bound: most polygons branch less);
+//! - per signature: its polygon (k + 1 `u32`), its key (`key_dims` `f64`), its sensitivity
+//!   (`f32`) when the ranking reads it;
+//! - while one survey's signatures are computed, the chunk buffers of
+//!   [`crate::signatures::CHUNK_LANDMARKS`] landmarks (polygon vertices as complex numbers,
+//!   vertex indices, ratios);
+//! - matching: a copy of the reference keys, the kiddo key tree built on them (leaf points and
+//!   items, its construction index and stems), a copy of the target keys, their first two
+//!   coordinates and Morton order, and the candidates (`matching.candidates` per target
+//!   signature, [`Candidate`] each); sorting the candidates takes half their size again;
+//! - the robust fit: `fit.max_rounds` drawn pairs, the target's Morton order and the paired
+//!   landmarks.
+//!
+//! The peak is the largest of the five phases (reference signatures, target signatures,
+//! matching queries, candidate sort, fit). The surveys' points, their 2-D k-d trees and Morton
+//! orders exist before the check and are already out of `MemAvailable`; they are counted in
+//! [`MemoryEstimate::inputs_bytes`] for the record only.
+//!
+//! Measured against the peak resident set (`VmHWM` in `/proc/self/status`, reset before stage
+//! 3, minus the resident set at that moment) on seeded synthetic pairs (28% missing and 25% new
+//! landmarks on each side), in one ad-hoc run each on 2026-12-02 (ratio = measured / estimated):
+//!
+//! | landmarks per survey | options | estimated | measured | ratio |
+//! |---:|---|---:|---:|---:|
+//! | 97 000 | k = 8, leave-out 2 (45 per landmark), sphere keys | 1.77 GB | 1.71 GB | 0.965 |
+//! | 194 000 | k = 16, leave-out 1 (17 per landmark), sensitivity ranking | 1.57 GB | 1.51 GB | 0.959 |
+//! | 970 000 | k = 5, no subsets (the default at this size) | 0.37 GB | 0.35 GB | 0.936 |
+//! | 48 600 | k = 6, leave-out 2, ambiguity 0.05, disc keys | 1.68 GB | 0.63 GB | 0.372 |
+//!
+//! Without the branching walk the estimate is a few percent above the real peak. With it, the
+//! bound of [`MAX_ORDERS`] orders per polygon is far above what a layout gives (41.6 of at
+//! most 112 signatures per landmark in the last row), so the estimate is then an upper bound.
+
+use crate::fit::FitParams;
+use crate::matching::{Candidate, MatchingParams};
+use crate::signatures::neighbourhood::MAX_ORDERS;
+use crate::signatures::{SignatureParams, VertexOrder, CHUNK_LANDMARKS};
+use rustfft::num_complex::Complex64;
+use std::mem::size_of;
+
+/// What stages 3-5 of one run are estimated to allocate, in bytes.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct MemoryEstimate {
+    /// Landmarks of the reference and the target.
+    pub landmarks: [u64; 2],
+    /// Signatures per landmark, at most.
+    pub per_landmark: u64,
+    /// Both surveys' signatures as stored.
+    pub signatures_bytes: u64,
+    /// The candidate correspondences.
+    pub candidates_bytes: u64,
+    /// The key tree over the reference keys, with the key copy it is built from.
+    pub key_tree_bytes: u64,
+    /// The points, 2-D trees and Morton orders of both surveys (allocated before the check).
+    pub inputs_bytes: u64,
+    /// The most stages 3-5 hold at once, on top of the inputs.
+    pub peak_bytes: u64,
+}
+
+/// The estimate of one run (see the module documentation for what is counted).
+pub fn estimate(
+    landmarks: [usize; 2],
+    params: &SignatureParams,
+    matching: &MatchingParams,
+    fit: &FitParams,
+) -> MemoryEstimate {
+    let [nr, nt] = landmarks.map(|n| n as u64);
+    let k = params.neighbours as u64;
+    let n = k + 1;
+    let subsets = match params.leave_out {
+        0 => 1,
+        1 => k + 1,
+        _ => (k + 2) * (k + 1) / 2,
+    };
+    let branches = params.ambiguity > 0.0 && params.order == VertexOrder::Walk;
+    let per_landmark = subsets * if branches { MAX_ORDERS as u64 } else { 1 };
+    let harmonics = params.harmonics.len() as u64;
+    let dims = params.key_space.dims() as u64 * harmonics;
+    let (sr, st) = (
+        nr.saturating_mul(per_landmark),
+        nt.saturating_mul(per_landmark),
+    );
+    let sens = if matching.needs_sensitivity() { 4 } else { 0 };
+    let stored = 4 * n + 8 * dims + sens;
+    let sigs = |count: u64| count.saturating_mul(stored);
+    let signatures_bytes = sigs(sr).saturating_add(sigs(st));
+    // One chunk of landmarks: vertices as complex numbers, vertex indices, ratios, sensitivity.
+    let complex = size_of::<Complex64>() as u64;
+    let per_chunk_signature = complex * n + 4 * n + complex * harmonics + sens;
+    let chunk =
+        |landmarks: u64| landmarks.min(CHUNK_LANDMARKS as u64) * per_landmark * per_chunk_signature;
+    let candidates_bytes = st
+        .saturating_mul(matching.candidates as u64)
+        .saturating_mul(size_of::<Candidate>() as u64);
+    // kiddo's ImmutableKdTree: per item its point and u32 item, a u32 construction index, and
+    // stems of one f64 per 32-item leaf (rounded up to a power of two: at most 0.5 byte per item).
+    let key_copy = sr.saturating_mul(8 * dims);
+    let tree = sr.saturating_mul(8 * dims + 4 + 4) + sr / 2;
+    let key_tree_bytes = key_copy.saturating_add(tree);
+    // Target keys copied, their first two coordinates, and their Morton order (a (u64, u32)
+    // sort key each, then the u32 order).
+    let queries = st.saturating_mul(8 * dims + 16 + 16 + 4);
+    let fit_bytes = (fit.max_rounds as u64)
+        .saturating_mul(32)
+        .saturating_add(nt.saturating_mul(20 + 3 * 16));
+    let phases = [
+        sigs(sr).saturating_add(chunk(nr)),
+        signatures_bytes.saturating_add(chunk(nt)),
+        signatures_bytes
+            .saturating_add(key_tree_bytes)
+            .saturating_add(queries)
+            .saturating_add(candidates_bytes),
+        signatures_bytes.saturating_add(candidates_bytes.saturating_mul(3) / 2),
+        signatures_bytes
+            .saturating_add(candidates_bytes)
+            .saturating_add(fit_bytes),
+    ];
+    // Points (16 bytes), 2-D tree (16 + 4 + 4 per point and its stems), Morton order (4).
+    let inputs_bytes = (nr + nt).saturating_mul(16 + 24 + 1 + 4);
+    MemoryEstimate {
+        landmarks: [nr, nt],
+        per_landmark,
+        signatures_bytes,
+        candidates_bytes,
+        key_tree_bytes,
+        inputs_bytes,
+        peak_bytes: phases.into_iter().max().expect("five phases"),
+    }
+}
+
+/// A run needs more memory than the machine has.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum ResourceError {
+    /// The estimated peak exceeds the memory available.
+    #[error("not enough memory: matching {reference} ({reference_landmarks} landmarks) with {target} ({target_landmarks} landmarks) at {per_landmark} signatures per landmark needs an estimated {} GB for signatures, matching and the fit, against {} GB available; use fewer signatures.neighbours (now {neighbours}), a smaller signatures.leave_out (now {leave_out}){}, or tile the survey into smaller areas and match them one at a time", gb(*.estimated), gb(*.available), ambiguity_hint(*.ambiguity))]
+    Memory {
+        /// Label of the reference ("the reference (path)").
+        reference: String,
+        /// Label of the target.
+        target: String,
+        /// Reference landmarks.
+        reference_landmarks: u64,
+        /// Target landmarks.
+        target_landmarks: u64,
+        /// Signatures per landmark, at most.
+        per_landmark: u64,
+        /// Estimated peak bytes.
+        estimated: u64,
+        /// Bytes available.
+        available: u64,
+        /// signatures.neighbours in use.
+        neighbours: usize,
+        /// signatures.leave_out in use.
+        leave_out: usize,
+        /// signatures.ambiguity when the walk branches (a third thing to change).
+        ambiguity: Option<f64>,
+    },
+}
+
+/// Bytes as decimal gigabytes, one decimal (two below 1 GB).
+fn gb(bytes: u64) -> String {
+    let g = bytes as f64 / 1e9;
+    if g < 1.0 {
+        format!("{g:.2}")
+    } else {
+        format!("{g:.1}")
+    }
+}
+
+/// The advice on the branching walk, when it branches.
+fn ambiguity_hint(ambiguity: Option<f64>) -> String {
+    ambiguity
+        .map(|a| format!(", signatures.ambiguity = 0 (now {a})"))
+        .unwrap_or_default()
+}
+
+/// The check with the memory available given: refuses when `estimate` exceeds `available`
+/// bytes; `None` (unknown) passes. `labels` name the reference and the target.
+pub fn check(
+    estimate: &MemoryEstimate,
+    available: Option<u64>,
+    params: &SignatureParams,
+    labels: &[String; 2],
+) -> Result<(), ResourceError> {
+    let Some(available) = available else {
+        return Ok(());
+    };
+    if estimate.peak_bytes <= available {
+        return Ok(());
+    }
+    let branches = params.ambiguity > 0.0 && params.order == VertexOrder::Walk;
+    Err(ResourceError::Memory {
+        reference: labels[0].clone(),
+        target: labels[1].clone(),
+        reference_landmarks: estimate.landmarks[0],
+        target_landmarks: estimate.landmarks[1],
+        per_landmark: estimate.per_landmark,
+        estimated: estimate.peak_bytes,
+        available,
+        neighbours: params.neighbours,
+        leave_out: params.leave_out,
+        ambiguity: branches.then_some(params.ambiguity),
+    })
+}
+
+/// Estimates the run and checks it against the memory available now ([`available_memory`]).
+pub fn ensure_memory(
+    landmarks: [usize; 2],
+    params: &SignatureParams,
+    matching: &MatchingParams,
+    fit: &FitParams,
+    labels: &[String; 2],
+) -> Result<MemoryEstimate, ResourceError> {
+    let e = estimate(landmarks, params, matching, fit);
+    check(&e, available_memory(), params, labels)?;
+    Ok(e)
+}
+
+/// `MemAvailable` of `/proc/meminfo` in bytes; `None` where it cannot be read.
+pub fn available_memory() -> Option<u64> {
+    parse_mem_available(&std::fs::read_to_string("/proc/meminfo").ok()?)
+}
+
+/// The `MemAvailable:` line of a `/proc/meminfo` text, in bytes (the file says "kB" and
+/// means KiB).
+fn parse_mem_available(meminfo: &str) -> Option<u64> {
+    let line = meminfo.lines().find(|l| l.starts_with("MemAvailable:"))?;
+    let mut parts = line["MemAvailable:".len()..].split_whitespace();
+    let value: u64 = parts.next()?.parse().ok()?;
+    match parts.next() {
+        Some("kB") => value.checked_mul(1024),
+        _ => None,
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::matching::Rank;
+    use crate::signatures::KeySpace;
+
+    fn labels() -> [String; 2] {
+        [
+            "the reference (a.gpkg)".into(),
+            "the target (b.gpkg)".into(),
+        ]
+    }
+
+    /// The arithmetic on small sizes, worked by hand: k = 4, leave-out 2, keys on the sphere
+    /// with harmonics 1 and 2 (6 dimensions), 3 candidates, distance ranking, 1000 reference
+    /// and 500 target landmarks.
+    #[test]
+    fn estimate_counts_what_the_stages_hold() {
+        let params = SignatureParams {
+            leave_out: 2,
+            ..SignatureParams::plain(4)
+        };
+        let fit = FitParams {
+            max_rounds: 1000,
+            ..FitParams::default()
+        };
+        let e = estimate([1000, 500], &params, &MatchingParams::default(), &fit);
+        // C(6, 2) = 15 signatures per landmark.
+        assert_eq!(e.per_landmark, 15);
+        // Per signature: 5 u32 (20 bytes) + 6 f64 (48 bytes) = 68 bytes.
+        assert_eq!(e.signatures_bytes, (15_000 + 7_500) * 68);
+        // 7 500 target signatures × 3 candidates × 16 bytes.
+        assert_eq!(size_of::<Candidate>(), 16);
+        assert_eq!(e.candidates_bytes, 7_500 * 3 * 16);
+        // Key copy 48 bytes, tree 48 + 8 bytes per key, stems half a byte.
+        assert_eq!(e.key_tree_bytes, 15_000 * (48 + 56) + 7_500);
+        // Matching is the peak here: signatures, key tree, target queries (48 + 36 bytes each),
+        // candidates.
+        let matching = e.signatures_bytes + e.key_tree_bytes + 7_500 * 84 + e.candidates_bytes;
+        assert_eq!(e.peak_bytes, matching);
+        assert_eq!(e.inputs_bytes, 1500 * 45);
+    }
+
+    #[test]
+    fn ambiguity_sensitivity_and_disc_keys_change_the_counts() {
+        let params = SignatureParams {
+            leave_out: 1,
+            ambiguity: 0.1,
+            key_space: KeySpace::Disc,
+            harmonics: vec![1],
+            ..SignatureParams::plain(8)
+        };
+        let matching = MatchingParams {
+            candidates: 2,
+            rank: Rank::Sensitivity,
+        };
+        let e = estimate([100, 100], &params, &matching, &FitParams::default());
+        // 9 subsets × 4 walk orders.
+        assert_eq!(e.per_landmark, 36);
+        // Per signature: 9 u32 + 2 f64 + one f32 = 56 bytes.
+        assert_eq!(e.signatures_bytes, 2 * 3600 * 56);
+        assert_eq!(e.candidates_bytes, 3600 * 2 * 16);
+        // The angular order never branches.
+        let angular = SignatureParams {
+            order: VertexOrder::Angular,
+            ..params
+        };
+        assert_eq!(
+            estimate([100, 100], &angular, &matching, &FitParams::default()).per_landmark,
+            9
+        );
+    }
+
+    /// k = 16 leaving out two on a pretend survey of 10^9 landmarks: C(18, 2) = 153 signatures
+    /// per landmark, terabytes; refused, naming both surveys and what to change.
+    #[test]
+    fn a_run_beyond_the_machine_is_refused_with_the_estimate_and_the_fix() {
+        let params = SignatureParams {
+            leave_out: 2,
+            ..SignatureParams::plain(16)
+        };
+        let (m, f) = (MatchingParams::default(), FitParams::default());
+        let e = estimate([1_000_000_000; 2], &params, &m, &f);
+        assert_eq!(e.per_landmark, 153);
+        assert!(e.peak_bytes > 10_000_000_000_000, "{}", e.peak_bytes);
+        let err = check(&e, Some(16_000_000_000), &params, &labels()).unwrap_err();
+        let text = err.to_string();
+        for part in [
+            "not enough memory",
+            "the reference (a.gpkg) (1000000000 landmarks)",
+            "the target (b.gpkg)",
+            "153 signatures per landmark",
+            "against 16.0 GB available",
+            "fewer signatures.neighbours (now 16)",
+            "a smaller signatures.leave_out (now 2)",
+            "tile the survey",
+        ] {
+            assert!(text.contains(part), "{part}: {text}");
+        }
+        assert!(!text.contains("ambiguity"), "{text}");
+        let estimated = format!("estimated {} GB", gb(e.peak_bytes));
+        assert!(text.contains(&estimated), "{text}");
+        // And on this machine, whatever it has.
+        assert!(ensure_memory([1_000_000_000; 2], &params, &m, &f, &labels()).is_err());
+        // The branching walk is named as a third thing to change.
+        let branching = SignatureParams {
+            ambiguity: 0.05,
+            ..params
+        };
+        let e = estimate([1_000_000_000; 2], &branching, &m, &f);
+        let text = check(&e, Some(16_000_000_000), &branching, &labels())
+            .unwrap_err()
+            .to_string();
+        assert!(
+            text.contains("signatures.ambiguity = 0 (now 0.05)"),
+            "{text}"
+        );
+    }
+
+    #[test]
+    fn a_run_that_fits_passes_and_an_unknown_amount_is_not_checked() {
+        let params = SignatureParams {
+            leave_out: 2,
+            ..SignatureParams::plain(4)
+        };
+        let e = estimate(
+            [20_000; 2],
+            &params,
+            &MatchingParams::default(),
+            &FitParams::default(),
+        );
+        assert!(check(&e, Some(e.peak_bytes), &params, &labels()).is_ok());
+        assert!(check(&e, Some(e.peak_bytes - 1), &params, &labels()).is_err());
+        assert!(check(&e, None, &params, &labels()).is_ok());
+    }
+
+    #[test]
+    fn mem_available_is_read_in_kib() {
+        let text = "MemTotal:       24731184 kB\nMemFree:        11445896 kB\nMemAvailable:   23421232 kB\n";
+        assert_eq!(parse_mem_available(text), Some(23_421_232 * 1024));
+        assert_eq!(parse_mem_available("MemTotal: 5 kB\n"), None);
+        assert_eq!(parse_mem_available("MemAvailable: many kB\n"), None);
+        assert_eq!(parse_mem_available("MemAvailable: 12 MB\n"), None);
+    }
+}
