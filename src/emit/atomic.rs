@@ -344,7 +344,7 @@ fn swap<'n>(
 /// Writes the files `(name, contents)` into the folder `dir`, all of them or none (a staging
 /// folder beside `dir`, then [`put_in_place`]); other files in `dir` are kept. Returns the
 /// final paths, in order.
-#[cfg(feature = "experiments")]
+#[cfg_attr(not(feature = "experiments"), allow(dead_code))]
 pub(crate) fn write_set(dir: &Path, files: &[(&str, &[u8])]) -> Result<Vec<PathBuf>, Failure> {
     let staging = Staging::beside(dir)?;
     for (name, contents) in files {
