@@ -190,6 +190,26 @@ impl Site {
         )
     }
 
+    /// Writes `contents` as the file `name`, matches it against the valid survey of the other
+    /// side (it is the reference when `as_reference`, else the target) and expects exit 2 with
+    /// `words`.
+    fn refuses(
+        &self,
+        as_reference: bool,
+        name: &'static str,
+        contents: impl AsRef<[u8]>,
+        words: &[&str],
+    ) {
+        let (reference, target) = self.valid_pair();
+        let bad = self.write(name, contents);
+        let (r, t) = if as_reference {
+            (bad, target)
+        } else {
+            (reference, bad)
+        };
+        self.expect_failure(&local_match(r, t, &[]), 2, words);
+    }
+
     fn snapshot(&self) -> Snapshot {
         fn walk(root: &Path, dir: &Path, into: &mut Snapshot) {
             for entry in std::fs::read_dir(dir).unwrap() {
@@ -367,27 +387,20 @@ fn missing_target_file() {
 
 #[test]
 fn text_file_named_gpkg() {
-    let site = Site::new();
-    let (_, target) = site.valid_pair();
-    let reference = site.write("survey.gpkg", "id,x,y\nthis is not a GeoPackage\n");
-    site.expect_failure(
-        &local_match(reference, target, &[]),
-        2,
+    Site::new().refuses(
+        true,
+        "survey.gpkg",
+        "id,x,y\nthis is not a GeoPackage\n",
         &["survey.gpkg", "not a vector dataset"],
     );
 }
 
 #[test]
 fn garbage_geojson() {
-    let site = Site::new();
-    let (reference, _) = site.valid_pair();
-    let target = site.write(
+    Site::new().refuses(
+        false,
         "broken.geojson",
         "{\"type\": \"FeatureCollection\", \"features\": [ {{{ 12 ]\n",
-    );
-    site.expect_failure(
-        &local_match(reference, target, &[]),
-        2,
         &["broken.geojson", "not a vector dataset"],
     );
 }
@@ -445,12 +458,10 @@ fn unknown_id_field_lists_the_fields() {
 
 #[test]
 fn empty_feature_collection() {
-    let site = Site::new();
-    let (_, target) = site.valid_pair();
-    let reference = site.write("empty.geojson", geojson(&[], &[], Some(UTM33)));
-    site.expect_failure(
-        &local_match(reference, target, &[]),
-        2,
+    Site::new().refuses(
+        true,
+        "empty.geojson",
+        geojson(&[], &[], Some(UTM33)),
         &["empty.geojson", "no features with a geometry"],
     );
 }
@@ -478,16 +489,11 @@ fn features_all_without_geometry() {
 
 #[test]
 fn fewer_landmarks_than_one_neighbourhood() {
-    let site = Site::new();
-    let (_, target) = site.valid_pair();
     let four = jittered_grid(2, 5);
-    let reference = site.write(
+    Site::new().refuses(
+        true,
         "four.geojson",
         geojson(&four, &reference_ids(4), Some(UTM33)),
-    );
-    site.expect_failure(
-        &local_match(reference, target, &[]),
-        2,
         &["reference", "4 landmarks", "--neighbours"],
     );
 }
