@@ -200,14 +200,49 @@ impl Site {
         contents: impl AsRef<[u8]>,
         words: &[&str],
     ) {
-        let (reference, target) = self.valid_pair();
         let bad = self.write(name, contents);
         let (r, t) = if as_reference {
-            (bad, target)
+            (Some(bad), None)
         } else {
-            (reference, bad)
+            (None, Some(bad))
         };
-        self.expect_failure(&local_match(r, t, &[]), 2, words);
+        self.refuses_match(r, t, &[], words);
+    }
+
+    /// Matches `reference` against `target` (`None`: the valid survey of that side) with the
+    /// `extra` arguments and expects exit 2 with `words`.
+    fn refuses_match(
+        &self,
+        reference: Option<&'static str>,
+        target: Option<&'static str>,
+        extra: &[&str],
+        words: &[&str],
+    ) {
+        let (r, t) = self.valid_pair();
+        let args = local_match(reference.unwrap_or(r), target.unwrap_or(t), extra);
+        self.expect_failure(&args, 2, words);
+    }
+
+    /// Runs a match of the valid reference against the target written as `name` with a count
+    /// column `n` before `y`.
+    fn match_with_a_count_column_named_n(&self, name: &'static str, extra: &[&str]) -> Outcome {
+        let (reference, _) = self.valid_pair();
+        let target = self.write(name, target_with_a_count_column_named_n());
+        self.run(&local_match(reference, target, extra))
+    }
+
+    /// `file` (of `count` landmarks) reads whole (the control); cut to half its bytes, a match
+    /// of it against the valid target exits 2 with `words`.
+    fn refuses_when_cut_in_half(&self, file: &'static str, count: usize, words: &[&str]) {
+        let (_, target) = self.valid_pair();
+        let out = self.run(&["landmarks", file, "--out", "seen.csv"]);
+        assert_eq!(out.code, Some(0), "{out:#?}");
+        assert!(
+            out.stdout.starts_with(&format!("{count} landmarks")),
+            "{out:#?}"
+        );
+        truncate_to_half(&self.path(file));
+        self.expect_failure(&local_match(file, target, &[]), 2, words);
     }
 
     fn snapshot(&self) -> Snapshot {
@@ -271,14 +306,7 @@ impl Site {
                 );
             }
         }
-        let partial: Vec<&PathBuf> = after
-            .keys()
-            .filter(|k| k.to_string_lossy().contains("tiemark-partial"))
-            .collect();
-        assert!(
-            partial.is_empty(),
-            "staging folder left behind: {partial:?}"
-        );
+        assert_no_staging_left(&after);
         let changed: Vec<&PathBuf> = before
             .keys()
             .chain(after.keys())
@@ -289,6 +317,18 @@ impl Site {
             "files created, changed or removed by tiemark {args:?}: {changed:?}"
         );
     }
+}
+
+/// No hidden staging folder of a run is left in `snapshot`.
+fn assert_no_staging_left(snapshot: &Snapshot) {
+    let partial: Vec<&PathBuf> = snapshot
+        .keys()
+        .filter(|k| k.to_string_lossy().contains("tiemark-partial"))
+        .collect();
+    assert!(
+        partial.is_empty(),
+        "staging folder left behind: {partial:?}"
+    );
 }
 
 #[test]
@@ -316,14 +356,7 @@ fn positive_control_matches_and_writes_four_files() {
         );
     }
     let after = site.snapshot();
-    let partial: Vec<&PathBuf> = after
-        .keys()
-        .filter(|k| k.to_string_lossy().contains("tiemark-partial"))
-        .collect();
-    assert!(
-        partial.is_empty(),
-        "staging folder left behind: {partial:?}"
-    );
+    assert_no_staging_left(&after);
     for (name, bytes) in &inputs {
         assert_eq!(after.get(name), Some(bytes), "{name:?} changed");
     }
@@ -365,22 +398,20 @@ fn positive_control_matches_and_writes_four_files() {
 
 #[test]
 fn missing_reference_file() {
-    let site = Site::new();
-    let (_, target) = site.valid_pair();
-    site.expect_failure(
-        &local_match("no-such-survey.geojson", target, &[]),
-        2,
+    Site::new().refuses_match(
+        Some("no-such-survey.geojson"),
+        None,
+        &[],
         &["no-such-survey.geojson", "no such file"],
     );
 }
 
 #[test]
 fn missing_target_file() {
-    let site = Site::new();
-    let (reference, _) = site.valid_pair();
-    site.expect_failure(
-        &local_match(reference, "no-such-survey.csv", &[]),
-        2,
+    Site::new().refuses_match(
+        None,
+        Some("no-such-survey.csv"),
+        &[],
         &["no-such-survey.csv", "no such file"],
     );
 }
@@ -589,10 +620,7 @@ fn csv_attribute_named_like_a_coordinate_is_not_taken_for_one() {
     // A column `n` (a count) before `y`: GDAL takes the first matching column, so `n` became the
     // northing. The match must work as in the positive control.
     let site = Site::new();
-    let (reference, _) = site.valid_pair();
-    let text = target_with_a_count_column_named_n();
-    let target = site.write("with-n.csv", text);
-    let out = site.run(&local_match(reference, target, &[]));
+    let out = site.match_with_a_count_column_named_n("with-n.csv", &[]);
     assert_eq!(out.code, Some(0), "{out:#?}");
     assert!(site.path("out/transform.json").is_file());
 }
@@ -756,37 +784,26 @@ fn forced_output_folder_with_a_folder_under_a_tiemark_name() {
 
 #[test]
 fn neighbours_too_small() {
-    let site = Site::new();
-    let (reference, target) = site.valid_pair();
-    site.expect_failure(
-        &local_match(reference, target, &["--neighbours", "2"]),
-        2,
+    Site::new().refuses_match(
+        None,
+        None,
+        &["--neighbours", "2"],
         &["--neighbours", "(got 2)"],
     );
 }
 
 #[test]
 fn negative_tolerance() {
-    let site = Site::new();
-    let (reference, target) = site.valid_pair();
-    site.expect_failure(
-        &local_match(reference, target, &["--tolerance=-1"]),
-        2,
-        &["tolerance", "positive", "(got -1)"],
-    );
+    let words = ["tolerance", "positive", "(got -1)"];
+    Site::new().refuses_match(None, None, &["--tolerance=-1"], &words);
 }
 
 #[test]
 fn negative_tolerance_as_separate_argument() {
     // `--tolerance -1`, as a user types it, must get the same answer as `--tolerance=-1`
     // (clap takes `-1` for an unknown flag unless the argument allows negative numbers).
-    let site = Site::new();
-    let (reference, target) = site.valid_pair();
-    site.expect_failure(
-        &local_match(reference, target, &["--tolerance", "-1"]),
-        2,
-        &["tolerance", "positive", "(got -1)"],
-    );
+    let words = ["tolerance", "positive", "(got -1)"];
+    Site::new().refuses_match(None, None, &["--tolerance", "-1"], &words);
 }
 
 #[test]
@@ -910,14 +927,10 @@ fn csv_named_txt_gets_the_csv_column_handling() {
     // GDAL's CSV driver recognises only .csv/.tsv/.psv names; a .txt table is handed to it
     // explicitly. Its columns are chosen as for a .csv: `n` is not taken for the northing.
     let site = Site::new();
-    let (reference, _) = site.valid_pair();
-    let text = target_with_a_count_column_named_n();
-    let target = site.write("with-n.txt", text);
-    let out = site.run(&local_match(
-        reference,
-        target,
+    let out = site.match_with_a_count_column_named_n(
+        "with-n.txt",
         &["--target-id", "id", "--reference-id", "name"],
-    ));
+    );
     assert_eq!(out.code, Some(0), "{out:#?}");
     let t: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(site.path("out/transform.json")).unwrap())
@@ -933,22 +946,13 @@ fn truncated_flatgeobuf() {
     // GDAL prints an error for the feature it cannot read and then ends the layer as if it were
     // complete: tiemark used to go on with the features before it.
     let site = Site::new();
-    let (_, target) = site.valid_pair();
+
     let r = reference_points();
     let ids = reference_ids(r.len());
-    write_with_gdal("FlatGeobuf", &site.path("whole.fgb"), &r, &ids);
-    // Control: the whole file reads.
-    let out = site.run(&["landmarks", "whole.fgb", "--out", "seen.csv"]);
-    assert_eq!(out.code, Some(0), "{out:#?}");
-    assert!(
-        out.stdout.starts_with(&format!("{} landmarks", r.len())),
-        "{out:#?}"
-    );
     write_with_gdal("FlatGeobuf", &site.path("half.fgb"), &r, &ids);
-    truncate_to_half(&site.path("half.fgb"));
-    site.expect_failure(
-        &local_match("half.fgb", target, &[]),
-        2,
+    site.refuses_when_cut_in_half(
+        "half.fgb",
+        r.len(),
         &[
             "half.fgb",
             "layer 'landmarks'",
@@ -962,7 +966,6 @@ fn truncated_flatgeobuf() {
 #[test]
 fn truncated_shapefile() {
     let site = Site::new();
-    let (_, target) = site.valid_pair();
     let r = reference_points();
     std::fs::create_dir(site.path("shp")).unwrap();
     write_with_gdal(
@@ -971,12 +974,9 @@ fn truncated_shapefile() {
         &r,
         &reference_ids(r.len()),
     );
-    let out = site.run(&["landmarks", "shp/landmarks.shp", "--out", "seen.csv"]);
-    assert_eq!(out.code, Some(0), "{out:#?}");
-    truncate_to_half(&site.path("shp/landmarks.shp"));
-    site.expect_failure(
-        &local_match("shp/landmarks.shp", target, &[]),
-        2,
+    site.refuses_when_cut_in_half(
+        "shp/landmarks.shp",
+        r.len(),
         &[
             "landmarks.shp",
             "GDAL failed reading feature number",

@@ -408,34 +408,38 @@ pub fn write_landmarks(
     out_dir: &Path,
 ) -> Result<Vec<PathBuf>, ExperimentError> {
     let mut csv = String::from("variant,missing_fraction,noise_fraction,trials,top1,top5,success_rate,ms_per_landmark,signatures_per_landmark\n");
-    for r in rows {
-        csv += &format!(
-            "{},{},{},{},{:.4},{:.4},{:.4},{:.4},{:.2}\n",
-            r.variant,
-            r.missing_fraction,
-            r.noise_fraction,
-            r.trials,
-            r.top1,
-            r.top5,
-            r.success_rate,
-            r.ms_per_landmark,
-            r.signatures_per_landmark
-        );
-    }
     let mut md = String::from("| variant | missing | noise | trials | top-1 | top-5 | success | ms/landmark | signatures/landmark |\n|---|---:|---:|---:|---:|---:|---:|---:|---:|\n");
     for r in rows {
-        md += &format!(
-            "| {} | {:.0}% | {:.1}% | {} | {:.3} | {:.3} | {:.3} | {:.4} | {:.1} |\n",
-            r.variant,
-            100.0 * r.missing_fraction,
-            100.0 * r.noise_fraction,
-            r.trials,
-            r.top1,
-            r.top5,
-            r.success_rate,
-            r.ms_per_landmark,
-            r.signatures_per_landmark
-        );
+        // Each cell as the CSV and as the Markdown table write it.
+        let cells = [
+            (r.variant.to_string(), r.variant.to_string()),
+            (
+                r.missing_fraction.to_string(),
+                format!("{:.0}%", 100.0 * r.missing_fraction),
+            ),
+            (
+                r.noise_fraction.to_string(),
+                format!("{:.1}%", 100.0 * r.noise_fraction),
+            ),
+            (r.trials.to_string(), r.trials.to_string()),
+            (format!("{:.4}", r.top1), format!("{:.3}", r.top1)),
+            (format!("{:.4}", r.top5), format!("{:.3}", r.top5)),
+            (
+                format!("{:.4}", r.success_rate),
+                format!("{:.3}", r.success_rate),
+            ),
+            (
+                format!("{:.4}", r.ms_per_landmark),
+                format!("{:.4}", r.ms_per_landmark),
+            ),
+            (
+                format!("{:.2}", r.signatures_per_landmark),
+                format!("{:.1}", r.signatures_per_landmark),
+            ),
+        ];
+        let (c, m): (Vec<String>, Vec<String>) = cells.into_iter().unzip();
+        csv += &format!("{}\n", c.join(","));
+        md += &format!("| {} |\n", m.join(" | "));
     }
     crate::emit::atomic::write_set(
         out_dir,
