@@ -4,6 +4,10 @@
 //! hidden `.…tiemark-partial…` staging folder) and that the inputs are byte-for-byte unchanged.
 //! A positive control shows that the valid fixtures the failing cases are built from really
 //! match.
+//!
+//! The cases are grouped by topic: this file holds the fixtures and the first cases; each
+//! submodule (`mod` lines below) adds the cases of one topic and reaches the fixtures through
+//! `use super::*`.
 
 use gdal::spatial_ref::SpatialRef;
 use gdal::vector::{
