@@ -43,8 +43,8 @@ pub enum Error {
     /// the largest error).
     #[error(transparent)]
     Resources(Box<ResourceError>),
-    /// The landmarks defeat the k-d tree (e.g. a huge number sharing one coordinate).
-    #[error("{path}: the landmarks are degenerate (too many share one coordinate value to index); check for features copied onto one line or column")]
+    /// More landmarks than the k-d tree's 32-bit item indices hold.
+    #[error("{path}: more than 4,294,967,295 landmarks, which the spatial index cannot hold; split the survey into tiles and match them one by one")]
     Degenerate {
         /// File.
         path: PathBuf,

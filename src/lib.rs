@@ -19,7 +19,8 @@
 //! nothing ([`engine::match_surveys`]; [`engine::solve_points`] for points already in a working
 //! frame); before stage 3 it asks [`resources`] whether the run fits the machine's memory.
 //! [`config`] holds the configuration shared by the command line and pipeline files, every
-//! option with its one default. [`progress`] is how stages report progress. The writers
+//! option with its one default. [`image`] holds one band of a georeferenced raster in memory
+//! and converts between pixel/line and map coordinates. [`progress`] is how stages report progress. The writers
 //! ([`emit`], [`report`]) sit on top of the outcome, never the other way round. [`synth`] makes
 //! seeded synthetic surveys for tests, benchmarks and experiments; [`experiment`] (cargo feature
 //! `experiments`) measures the signature stage.
@@ -35,6 +36,7 @@ pub mod engine;
 pub mod experiment;
 pub mod fit;
 pub mod frame;
+pub mod image;
 pub mod ingest;
 pub mod matching;
 pub mod outcome;

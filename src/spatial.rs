@@ -18,8 +18,9 @@ pub struct PointIndex {
 impl PointIndex {
     /// Builds the tree. An empty slice gives an index that finds nothing.
     ///
-    /// Returns `None` when kiddo refuses the input (for example more than a leaf's worth of
-    /// points sharing one coordinate value); callers report that as degenerate input.
+    /// Returns `None` when kiddo refuses the input: its item indices are `u32`, so it takes at
+    /// most 4,294,967,295 points (kiddo 6.3's `ConstructionError`; repeated coordinates are
+    /// accepted). Callers report that as too many landmarks.
     pub fn new(points: &[[f64; 2]]) -> Option<Self> {
         if points.is_empty() {
             return Some(PointIndex { tree: None, len: 0 });
