@@ -88,6 +88,15 @@ impl GeoTransform {
         ])
     }
 
+    /// The geotransform of the same image resampled so that one new pixel spans `fx` old
+    /// pixels across and `fy` down (same top-left corner): the grid GDAL gives an overview
+    /// of `w × h` pixels made from a `W × H` image, with fx = W / w and fy = H / h, which
+    /// differ from the nominal factor when W or H is not a multiple of it.
+    pub fn scaled_xy(&self, fx: f64, fy: f64) -> GeoTransform {
+        let g = &self.0;
+        GeoTransform([g[0], g[1] * fx, g[2] * fy, g[3], g[4] * fx, g[5] * fy])
+    }
+
     /// The geotransform of a window whose top-left corner is pixel/line (p0, l0).
     pub fn window(&self, p0: f64, l0: f64) -> GeoTransform {
         let [x, y] = self.pixel_to_map(p0, l0);
@@ -213,6 +222,17 @@ mod tests {
             gt.pixel_to_map(101.0, 52.0)
         );
         assert!((gt.pixel_size() - 0.05).abs() < 1e-15);
+        // An overview of 3 × 2 pixels made from a 10 × 5 image: one pixel is 10/3 × 5/2.
+        let r = GeoTransform([500.0, 0.05, 0.01, 900.0, 0.02, -0.05]);
+        let o = r.scaled_xy(10.0 / 3.0, 2.5);
+        for [p, l] in [[1.0, 1.0], [3.0, 2.0], [0.5, 1.5]] {
+            let (a, b) = (
+                o.pixel_to_map(p, l),
+                r.pixel_to_map(p * 10.0 / 3.0, l * 2.5),
+            );
+            assert!((a[0] - b[0]).abs() < 1e-12 && (a[1] - b[1]).abs() < 1e-12);
+        }
+        assert_eq!(gt.scaled_xy(4.0, 4.0), gt.scaled(4.0));
     }
 
     #[test]
