@@ -1,4 +1,4 @@
-//! Stage 1 — ingest: read landmarks from a GDAL vector dataset.
+//! Stage 1 — ingest: read landmarks from a GDAL vector dataset, or open a raster image.
 //!
 //! **In:** a [`SurveyInput`]: the path of a dataset GDAL opens (GeoPackage, Shapefile,
 //! GeoJSON, FlatGeobuf, CSV with x/y or lon/lat columns, or anything else GDAL reads as
@@ -9,8 +9,11 @@
 //! cause.
 //!
 //! What a dataset holds is decided from what GDAL opens, not from the file's name
-//! ([`SourceKind`]): vector layers are read (`vector.rs`); a raster image is refused with
-//! [`IngestError::RasterNotSupported`] for now (a raster reader belongs beside the vector one).
+//! ([`SourceKind`]): vector layers are read (`vector.rs`). A raster image is opened by
+//! [`open_raster`] as a [`RasterSource`] (`raster.rs`: a band or the luminance, its
+//! geotransform and CRS, read decimated or by windows into an `Image`, with its validity
+//! mask); [`read_landmarks`] still refuses one with [`IngestError::RasterNotSupported`], as the
+//! keypoints that would make it landmarks are not connected yet.
 //!
 //! Points are taken as they are; polygons and multipolygons as their area-weighted centroid
 //! (`geo`'s `Centroid`); any other geometry as its centroid. Z and M are dropped. Features with
@@ -29,8 +32,14 @@
 
 mod csv;
 mod open;
+mod raster;
 mod validate;
 mod vector;
+
+pub use raster::{
+    BandChoice, RasterError, RasterInfo, RasterSource, ReadLevel, ReadPlan, LUMINANCE_WEIGHTS,
+    STRIP_PIXELS,
+};
 
 use gdal::errors::GdalError;
 use serde::{Deserialize, Serialize};
@@ -54,6 +63,10 @@ pub struct SurveyInput {
     /// layer's own CRS. Read by the working-frame stage, not by ingest.
     #[serde(default)]
     pub crs: Option<String>,
+    /// Band of a raster image: a number from 1, or "luminance" of red, green, blue; `None`:
+    /// the default rule of [`RasterSource`]. Not used for vector datasets.
+    #[serde(default)]
+    pub band: Option<BandChoice>,
 }
 
 impl SurveyInput {
@@ -64,8 +77,15 @@ impl SurveyInput {
             layer: None,
             id: None,
             crs: None,
+            band: None,
         }
     }
+}
+
+/// Opens the raster image of one survey read-only, with its `band` choice. Errors: the file is
+/// missing, unreadable, a vector dataset, not on a map grid, or has no such band.
+pub fn open_raster(input: &SurveyInput) -> Result<RasterSource, IngestError> {
+    RasterSource::open(&input.path, input.band)
 }
 
 /// What a dataset holds, as GDAL opens it.
@@ -163,7 +183,7 @@ pub enum IngestError {
         source: GdalError,
     },
     /// GDAL opens it as a raster image.
-    #[error("{path}: is a raster image (GDAL driver {driver}); tiemark reads landmarks from vector layers only in this version — extract points first or give a vector dataset")]
+    #[error("{path}: is a raster image (GDAL driver {driver}); matching takes landmarks from vector layers only in this version (finding landmarks in raster images is not connected yet) — extract points first or give a vector dataset")]
     RasterNotSupported {
         /// Path given.
         path: PathBuf,
@@ -306,6 +326,9 @@ pub enum IngestError {
         /// Landmarks read.
         count: usize,
     },
+    /// A raster image that cannot be read as asked.
+    #[error(transparent)]
+    Raster(#[from] RasterError),
     /// Any other GDAL failure while reading.
     #[error("{path}: reading failed: {}", gdal_words(.source))]
     Gdal {

@@ -11,6 +11,7 @@ use tiemark::config::{
     SurveyInput,
 };
 use tiemark::fit::prior;
+use tiemark::ingest::BandChoice;
 use tiemark::matching::Rank;
 use tiemark::signatures::{size_rule, KeySpace, VertexOrder};
 
@@ -93,6 +94,12 @@ pub struct MatchArgs {
     /// CRS of the target, or "local" for an unreferenced local grid (the fit is then the site calibration).
     #[arg(long)]
     target_crs: Option<String>,
+    /// Band of a raster reference: a number from 1, or "luminance" (default: the only band, the luminance of an RGB image, else band 1).
+    #[arg(long, value_parser = choice::<BandChoice>)]
+    reference_band: Option<BandChoice>,
+    /// Band of a raster target (as --reference-band).
+    #[arg(long, value_parser = choice::<BandChoice>)]
+    target_band: Option<BandChoice>,
     /// Projected CRS to work in (default: the reference's, or the UTM zone of a geographic reference).
     #[arg(long)]
     working_crs: Option<String>,
@@ -167,6 +174,9 @@ pub struct LandmarksArgs {
     /// Attribute holding landmark ids (default: the feature id).
     #[arg(long)]
     pub id: Option<String>,
+    /// Band of a raster image: a number from 1, or "luminance" (default: the only band, the luminance of an RGB image, else band 1).
+    #[arg(long, value_parser = choice::<BandChoice>)]
+    pub band: Option<BandChoice>,
     /// Replace an existing output file.
     #[arg(long)]
     pub force: bool,
@@ -181,12 +191,14 @@ impl MatchArgs {
                 layer: self.reference_layer,
                 id: self.reference_id,
                 crs: self.reference_crs,
+                band: self.reference_band,
             },
             target: SurveyInput {
                 path: self.target,
                 layer: self.target_layer,
                 id: self.target_id,
                 crs: self.target_crs,
+                band: self.target_band,
             },
             frame: FrameOptions {
                 working_crs: self.working_crs,
@@ -233,6 +245,8 @@ const FLAGS: &[(&str, &str)] = &[
     ("target.layer", "--target-layer"),
     ("target.id", "--target-id"),
     ("target.crs", "--target-crs"),
+    ("reference.band", "--reference-band"),
+    ("target.band", "--target-band"),
     ("frame.working_crs", "--working-crs"),
     ("signatures.neighbours", "--neighbours"),
     ("signatures.leave_out", "--leave-out"),
@@ -296,6 +310,36 @@ mod tests {
         };
         let (config, _) = args.into_config();
         assert_eq!(config, MatchConfig::new("a".into(), "b".into()));
+    }
+
+    #[test]
+    fn band_flags_take_a_number_or_luminance() {
+        let cli = Cli::try_parse_from([
+            "tiemark",
+            "match",
+            "a",
+            "b",
+            "--out",
+            "o",
+            "--reference-band",
+            "2",
+            "--target-band",
+            "luminance",
+        ])
+        .unwrap();
+        let Command::Match(args) = cli.command else {
+            panic!("not match")
+        };
+        let (config, _) = args.into_config();
+        assert_eq!(config.reference.band, Some(BandChoice::Band(2)));
+        assert_eq!(config.target.band, Some(BandChoice::Luminance));
+        for bad in ["0", "red", "-1"] {
+            assert!(
+                Cli::try_parse_from(["tiemark", "landmarks", "f", "--out", "o", "--band", bad])
+                    .is_err(),
+                "{bad}"
+            );
+        }
     }
 
     #[test]

@@ -77,6 +77,7 @@ fn run_landmarks(a: cli::LandmarksArgs) -> ExitCode {
     let input = SurveyInput {
         layer: a.layer,
         id: a.id,
+        band: a.band,
         ..SurveyInput::new(a.file)
     };
     let written = engine::read_survey(&input)
