@@ -23,10 +23,12 @@
 //! `GetMaskBand` / `GetMaskFlags`: all valid, a no-data value, an alpha band, a mask shared by
 //! the dataset). A full-resolution pixel is valid when its mask is non-zero — for an alpha band,
 //! when it is 255, fully opaque: a partly transparent pixel is blended with what lies behind —
-//! and its value is finite. A luminance sample needs all three bands valid. **A decimated
-//! sample is valid only when every full-resolution pixel it covers is**, read from the
-//! full-resolution mask, so that no collar or no-data border leaks into an average. Invalid
-//! samples hold 0 and are `false` in [`Image::valid`].
+//! and its value is finite. A luminance sample needs all three bands valid. **A sample
+//! averaged here is valid only when every full-resolution pixel it covers is** (read from the
+//! full-resolution mask), so that no collar or no-data border leaks into an average. A sample
+//! read from an overview takes the overview's own mask as the file stores it: there, a sample
+//! astride a collar is as valid as the overview's maker left it (not checked against the full
+//! resolution). Invalid samples hold 0 and are `false` in [`Image::valid`].
 //!
 //! **Decimation and memory.** `read(d)` returns sample (c, r) = the mean of the
 //! full-resolution pixels [c·d, (c+1)·d) × [r·d, (r+1)·d) on the grid `GeoTransform::scaled(d)`
