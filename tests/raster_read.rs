@@ -808,3 +808,32 @@ fn the_band_key_of_a_survey_takes_a_number_or_luminance() {
         assert_eq!(parse(&text).unwrap(), input, "{text}");
     }
 }
+
+#[test]
+fn gdal_average_resampling_rounds_integer_bands_which_is_why_the_reader_averages_itself() {
+    // The reason for ReadLevel::Averaged (seen with GDAL 3.6.2): GDAL's decimated RasterIO with
+    // average resampling into an f32 buffer gives whole numbers for a UInt16 band, where the
+    // block means are not. If GDAL ever stops rounding, this fails and the doc is out of date.
+    let dir = tempfile::tempdir().unwrap();
+    let p = dir.path().join("u16.tif");
+    let data: Vec<u16> = (0..16 * 16).map(|i| (i * 7 % 13) as u16).collect();
+    let ds = write_tiff(&p, 16, 16, std::slice::from_ref(&data), &[], Some(GT));
+    let band = ds.rasterband(1).unwrap();
+    let mut gdal_avg = vec![0f32; 16];
+    band.read_into_slice::<f32>(
+        (0, 0),
+        (16, 16),
+        (4, 4),
+        &mut gdal_avg,
+        Some(gdal::raster::ResampleAlg::Average),
+    )
+    .unwrap();
+    let as_f32: Vec<f32> = data.iter().map(|&v| f32::from(v)).collect();
+    let (mean, _) = block_means(&as_f32, &[], 16, 16, 4);
+    assert!(gdal_avg.iter().all(|v| v.fract() == 0.0), "{gdal_avg:?}");
+    assert!(mean.iter().any(|v| v.fract() != 0.0));
+    drop(band);
+    drop(ds);
+    let ours = open(&p).read(4).unwrap();
+    assert_close(&ours.pixels, &mean, 1e-6, "reader");
+}
