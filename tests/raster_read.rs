@@ -259,8 +259,20 @@ fn decimated_read_matches_gdals_overview_builder_and_the_block_mean() {
     let from_ovr = src.read(4).unwrap();
     assert_eq!(from_ovr.pixels, gdal_ovr, "the overview is read as it is");
     assert_eq!(from_ovr.geotransform, GeoTransform(GT).scaled(4.0));
-    // No overview at 8: the average of the file at that factor.
-    assert_eq!(src.plan(8).unwrap().level, ReadLevel::Averaged);
+    // At 8, the overview at 4 averaged 2 × 2; at 6 (not a multiple of 4), the file averaged.
+    let plan = src.plan(8).unwrap();
+    assert_eq!(
+        (plan.level, plan.block),
+        (ReadLevel::Overview { index: 0 }, 2)
+    );
+    let (mean, _) = block_means(&data, &[], w, h, 8);
+    assert_close(
+        &src.read(8).unwrap().pixels,
+        &mean,
+        1e-5,
+        "overview averaged",
+    );
+    assert_eq!(src.plan(6).unwrap().level, ReadLevel::Averaged);
 }
 
 #[test]
@@ -385,9 +397,10 @@ fn jpeg2000_lossless_reads_back_exactly() {
 }
 
 #[test]
-fn a_cog_is_read_from_its_overview() {
+fn a_cog_is_read_from_its_overviews() {
+    // A COG of 512 × 512 px in 128 px tiles has overviews at 2 (index 0) and 4 (index 1).
     let dir = tempfile::tempdir().unwrap();
-    let (w, h) = (256, 256);
+    let (w, h) = (512, 512);
     let data = random_f32(w, h, 10);
     let tif = dir.path().join("src.tif");
     let cog = dir.path().join("cog.tif");
@@ -396,10 +409,21 @@ fn a_cog_is_read_from_its_overview() {
     let opts = CslStringList::from_iter(["BLOCKSIZE=128", "RESAMPLING=AVERAGE", "OVERVIEWS=AUTO"]);
     drop(ds.create_copy(&driver, &cog, &opts).unwrap());
     let src = open(&cog);
-    assert_eq!(src.plan(2).unwrap().level, ReadLevel::Overview { index: 0 });
-    let img = src.read(2).unwrap();
-    let (want, _) = block_means(&data, &[], w, h, 2);
-    assert_close(&img.pixels, &want, 1e-4, "COG overview");
+    for (d, index, block) in [(2, 0, 1), (4, 1, 1), (8, 1, 2), (12, 1, 3)] {
+        let plan = src.plan(d).unwrap();
+        assert_eq!(
+            (plan.level, plan.block),
+            (ReadLevel::Overview { index }, block),
+            "{d}"
+        );
+        let img = src.read(d).unwrap();
+        assert_eq!((img.width, img.height), (w / d, h / d));
+        assert_eq!(img.geotransform, GeoTransform(GT).scaled(d as f64));
+        let (want, _) = block_means(&data, &[], w, h, d);
+        assert_close(&img.pixels, &want, 1e-4, &format!("COG at 1/{d}"));
+    }
+    // No overview at a factor of 3: the full resolution, averaged.
+    assert_eq!(src.plan(3).unwrap().level, ReadLevel::Averaged);
 }
 
 // ---------------------------------------------------------------------------------------------

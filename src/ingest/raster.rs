@@ -37,10 +37,11 @@
 //! the means of integer bands to whole numbers; see [`ReadLevel::Averaged`]). When the file has
 //! an overview at that factor (⌈W/d⌉ × ⌈H/d⌉ or ⌊W/d⌋ × ⌊H/d⌋ pixels) it is read instead, as
 //! it is, on GDAL's grid for it (`GeoTransform::scaled_xy(W/w, H/h)`), with validity from the
-//! overview's own mask. Either way the image is read in strips of rows ([`ReadPlan`]): no
-//! buffer holds more than [`STRIP_PIXELS`] full-resolution pixels (or one strip row when a
-//! single row needs more), so a 30 000 × 30 000 px mosaic is never in memory whole at full
-//! resolution. Only the result is.
+//! overview's own mask; failing that, the coarsest overview at a factor f that divides d,
+//! averaged here d/f × d/f pixels a sample (on that grid, `scaled(d/f)`). Either way the image
+//! is read in strips of rows ([`ReadPlan`]): no buffer holds more than [`STRIP_PIXELS`] pixels
+//! of the level read (or one strip row when a single row needs more), so a 30 000 × 30 000 px
+//! mosaic is never in memory whole at full resolution. Only the result is.
 
 use super::open::open_source;
 use super::{IngestError, SourceKind};
@@ -172,7 +173,8 @@ pub struct RasterInfo {
 pub enum ReadLevel {
     /// The full-resolution bands, as they are (decimation 1).
     FullResolution,
-    /// The file's overview with this index (0 = the largest), as it is.
+    /// The file's overview with this index (0 = the largest), as it is or averaged here
+    /// ([`ReadPlan::block`]).
     Overview {
         /// GDAL's overview index.
         index: usize,
@@ -194,6 +196,9 @@ pub struct ReadPlan {
     pub height: usize,
     /// The result's grid.
     pub geotransform: GeoTransform,
+    /// Level pixels a sample spans across and down: each sample is the mean of `block ×
+    /// block` level pixels (1: the level as it is).
+    pub block: usize,
     /// Rows of the result read per strip.
     pub rows_per_strip: usize,
     /// Pixels of the level (the full-resolution image for [`ReadLevel::Averaged`]) one strip
@@ -386,9 +391,13 @@ impl RasterSource {
         if d == 1 {
             return Ok(strip_plan(ReadLevel::FullResolution, w, h, 1, gt));
         }
-        if let Some((index, ow, oh)) = self.overview_at(d)? {
-            let ogt = gt.scaled_xy(w as f64 / ow as f64, h as f64 / oh as f64);
-            return Ok(strip_plan(ReadLevel::Overview { index }, ow, oh, 1, ogt));
+        if let Some((index, ow, oh, f)) = self.overview_at(d)? {
+            let m = d / f;
+            if ow / m > 0 && oh / m > 0 {
+                let ogt = gt.scaled_xy(w as f64 / ow as f64, h as f64 / oh as f64);
+                let level = ReadLevel::Overview { index };
+                return Ok(strip_plan(level, ow / m, oh / m, m, ogt.scaled(m as f64)));
+            }
         }
         Ok(strip_plan(
             ReadLevel::Averaged,
@@ -399,18 +408,26 @@ impl RasterSource {
         ))
     }
 
-    /// The overview of every band read whose size is ⌈W/d⌉ × ⌈H/d⌉ or ⌊W/d⌋ × ⌊H/d⌋.
-    fn overview_at(&self, d: usize) -> Result<Option<(usize, usize, usize)>, IngestError> {
+    /// The coarsest overview of every band read at a factor f that divides `d` — of
+    /// ⌈W/f⌉ × ⌈H/f⌉ or ⌊W/f⌋ × ⌊H/f⌋ pixels — as (index, width, height, f).
+    fn overview_at(&self, d: usize) -> Result<Option<(usize, usize, usize, usize)>, IngestError> {
         let (w, h) = (self.info.width, self.info.height);
         let first = self.band_handle(self.bands[0])?;
         let count = first.overview_count().unwrap_or(0).max(0) as usize;
+        let mut best: Option<(usize, usize, usize, usize)> = None;
         for index in 0..count {
             let Ok(o) = first.overview(index) else {
                 continue;
             };
             let (ow, oh) = o.size();
-            let fits = (ow == w.div_ceil(d) && oh == h.div_ceil(d)) || (ow == w / d && oh == h / d);
-            if !fits {
+            if ow == 0 || oh == 0 {
+                continue;
+            }
+            let f = (w as f64 / ow as f64).round() as usize;
+            let fits = f > 1
+                && d.is_multiple_of(f)
+                && ((ow == w.div_ceil(f) && oh == h.div_ceil(f)) || (ow == w / f && oh == h / f));
+            if !fits || best.is_some_and(|b| b.3 >= f) {
                 continue;
             }
             let all = self.bands[1..].iter().all(|&b| {
@@ -418,21 +435,17 @@ impl RasterSource {
                     .is_ok_and(|band| band.overview(index).is_ok_and(|ob| ob.size() == (ow, oh)))
             });
             if all {
-                return Ok(Some((index, ow, oh)));
+                best = Some((index, ow, oh, f));
             }
         }
-        Ok(None)
+        Ok(best)
     }
 
     /// The whole image at 1/`decimation` resolution, per the module doc (decimation 1: at full
     /// resolution), read strip by strip ([`plan`](Self::plan)).
     pub fn read(&self, decimation: usize) -> Result<Image, IngestError> {
         let plan = self.plan(decimation)?;
-        let d = match plan.level {
-            ReadLevel::Averaged => decimation,
-            _ => 1,
-        };
-        self.read_level(&plan, plan.level, (0, 0), d)
+        self.read_level(&plan, plan.level, (0, 0), plan.block)
     }
 
     /// The window of `width × height` pixels whose top-left pixel is (`p0`, `l0`), at full
@@ -597,6 +610,7 @@ fn strip_plan(
         width,
         height,
         geotransform: gt,
+        block: d,
         rows_per_strip: rows,
         strip_source_pixels: rows * per_row,
     }
