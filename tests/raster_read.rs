@@ -856,7 +856,6 @@ fn gdal_average_resampling_rounds_integer_bands_which_is_why_the_reader_averages
     let (mean, _) = block_means(&as_f32, &[], 16, 16, 4);
     assert!(gdal_avg.iter().all(|v| v.fract() == 0.0), "{gdal_avg:?}");
     assert!(mean.iter().any(|v| v.fract() != 0.0));
-    drop(band);
     drop(ds);
     let ours = open(&p).read(4).unwrap();
     assert_close(&ours.pixels, &mean, 1e-6, "reader");
