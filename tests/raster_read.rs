@@ -703,6 +703,13 @@ fn band_choices_and_their_refusals() {
     ));
     let src = open(&rgb);
     assert_eq!(src.band(), BandChoice::Luminance);
+    assert_eq!(
+        src.describe(),
+        format!(
+            "{} (GTiff): 8 × 8 px, 3 bands of Byte, pixel size 0.25 map units, with no CRS; read as the luminance of bands 1-3 as red, green, blue with ITU-R BT.709 weights (the default for an image whose bands 1-3 are red, green, blue); every pixel valid (no no-data value, mask or alpha band)",
+            rgb.display()
+        )
+    );
     let want = (0.2126 * 10.0 + 0.7152 * 20.0 + 0.0722 * 30.0) as f32;
     assert!((src.read(2).unwrap().at(1, 1) - want).abs() < 1e-4);
 

@@ -24,11 +24,11 @@
 //! the dataset). A full-resolution pixel is valid when its mask is non-zero — for an alpha band,
 //! when it is 255, fully opaque: a partly transparent pixel is blended with what lies behind —
 //! and its value is finite. A luminance sample needs all three bands valid. **A sample
-//! averaged here is valid only when every full-resolution pixel it covers is** (read from the
-//! full-resolution mask), so that no collar or no-data border leaks into an average. A sample
-//! read from an overview takes the overview's own mask as the file stores it: there, a sample
-//! astride a collar is as valid as the overview's maker left it (not checked against the full
-//! resolution). Invalid samples hold 0 and are `false` in [`Image::valid`].
+//! averaged here is valid only when every pixel it covers is** (read from the mask of the level
+//! averaged: the full resolution, unless an overview is read), so that no collar or no-data
+//! border leaks into an average. An overview's pixels take the overview's own mask as the file
+//! stores it: there, a pixel astride a collar is as valid as the overview's maker left it (not
+//! checked against the full resolution). Invalid samples hold 0 and are `false` in [`Image::valid`].
 //!
 //! **Decimation and memory.** `read(d)` returns sample (c, r) = the mean of the
 //! full-resolution pixels [c·d, (c+1)·d) × [r·d, (r+1)·d) on the grid `GeoTransform::scaled(d)`
@@ -316,14 +316,16 @@ impl RasterSource {
 
     /// One paragraph for a report or a log: the image, what is read of it and why, and how
     /// validity is known, e.g. `ortho.tif (GTiff): 30000 × 30000 px, 4 bands of Byte, pixel
-    /// size 0.25 map units, with a CRS; read as the luminance of bands 1-3 (ITU-R BT.709
-    /// weights; the default for an RGB image); valid pixels from the alpha band`.
+    /// size 0.25 map units, with a CRS; read as the luminance of bands 1-3 as red, green, blue
+    /// with ITU-R BT.709 weights (the default for an image whose bands 1-3 are red, green,
+    /// blue); valid pixels from the alpha band (fully opaque only)`.
     pub fn describe(&self) -> String {
         let i = &self.info;
         let what = match self.choice {
             BandChoice::Band(n) => format!("band {n} of {}", i.band_count),
             BandChoice::Luminance => {
-                "the luminance of bands 1-3 as red, green, blue (ITU-R BT.709 weights)".to_string()
+                "the luminance of bands 1-3 as red, green, blue with ITU-R BT.709 weights"
+                    .to_string()
             }
         };
         let why = match &self.default_reason {
