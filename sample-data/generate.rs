@@ -74,6 +74,8 @@
 //! This file is built as the `generate-sample-data` example of the tiemark crate but uses only
 //! gdal, proj, rand, rand_chacha, serde_json and std (never the tiemark library).
 
+mod scene;
+
 use std::collections::HashMap;
 use std::error::Error;
 use std::f64::consts::TAU;
@@ -1683,6 +1685,8 @@ struct Args {
     out: PathBuf,
     seed: u64,
     scale: f64,
+    /// Only the large raster scene (benchmark data), into `out`.
+    large: bool,
 }
 
 fn parse_args() -> Res<Args> {
@@ -1690,6 +1694,7 @@ fn parse_args() -> Res<Args> {
         out: PathBuf::from("sample-data"),
         seed: DEFAULT_SEED,
         scale: 1.0,
+        large: false,
     };
     let mut it = std::env::args().skip(1);
     let mut positional = false;
@@ -1707,8 +1712,9 @@ fn parse_args() -> Res<Args> {
         match key.as_str() {
             "--seed" => a.seed = value("--seed")?.parse()?,
             "--scale" => a.scale = value("--scale")?.parse()?,
+            "--large" => a.large = true,
             "-h" | "--help" => {
-                println!("usage: generate-sample-data [OUT_DIR] [--seed N] [--scale F]\n  OUT_DIR defaults to ./sample-data; --seed defaults to {DEFAULT_SEED}; --scale (default 1) multiplies the number of buildings");
+                println!("usage: generate-sample-data [OUT_DIR] [--seed N] [--scale F] [--large]\n  OUT_DIR defaults to ./sample-data (with --large: ./target/scene-large); --seed defaults to {DEFAULT_SEED}; --scale (default 1) multiplies the number of buildings; --large writes only the large raster scene (4000 x 4000 px orthophoto, 20,000 x 20,000 px mosaic) for benchmarks");
                 std::process::exit(0);
             }
             k if k.starts_with('-') => return Err(format!("unknown option {k}").into()),
@@ -1722,6 +1728,9 @@ fn parse_args() -> Res<Args> {
     if !(a.scale.is_finite() && a.scale >= 0.05 && a.scale <= 400.0) {
         return Err("--scale must be between 0.05 and 400".into());
     }
+    if a.large && !positional {
+        a.out = PathBuf::from("target/scene-large");
+    }
     Ok(a)
 }
 
@@ -1730,6 +1739,9 @@ fn main() -> Res<()> {
     let (seed, scale) = (args.seed, args.scale);
     let out = args.out;
     fs::create_dir_all(&out)?;
+    if args.large {
+        return scene::write_scene(&out, seed, scene::Size::Large);
+    }
     let l = scale.sqrt();
 
     // ---- 2019 reference -------------------------------------------------------------------
@@ -2266,6 +2278,9 @@ fn main() -> Res<()> {
     );
     write_json(&out.join("site-grid-truth.json"), &truth)?;
     write_pairs(&out.join("site-grid-true-pairs.csv"), &mut pairs)?;
+
+    // ---- the raster scene (orthophoto 2019, drone mosaic 2026) --------------------------------
+    scene::write_scene(&out, seed, scene::Size::Small)?;
 
     eprintln!("wrote {}", out.display());
     Ok(())
