@@ -67,9 +67,18 @@
 //! stage so the stages do not disturb each other. Re-running with the same arguments rewrites
 //! identical coordinates (GDAL may still stamp files with the current time).
 //!
-//! Usage: `generate-sample-data [OUT_DIR] [--seed N] [--scale F]` (defaults: `sample-data`,
-//! seed 20192026, scale 1). `--scale F` multiplies the number of buildings: the town's linear
-//! size grows with sqrt(F) at constant density, and so do all coverages and districts.
+//! Usage: `generate-sample-data [OUT_DIR] [--seed N] [--scale F] [--large]` (defaults:
+//! `sample-data`, seed 20192026, scale 1). `--scale F` multiplies the number of buildings: the
+//! town's linear size grows with sqrt(F) at constant density, and so do all coverages and
+//! districts.
+//!
+//! # The raster scene
+//!
+//! After the town, the module `scene` (`scene.rs`) writes a raster pair of a made-up hamlet
+//! east of the town: `scene-orthophoto-2019.tif` (reference), `scene-drone-2026.tif` (target)
+//! and `scene-drone-2026-truth.json`; it does not change with `--scale`. `--large` writes only
+//! a large raster pair (4000 x 4000 px orthophoto, 20,000 x 20,000 px mosaic) for benchmarks,
+//! into OUT_DIR (default `target/scene-large`).
 //!
 //! This file is built as the `generate-sample-data` example of the tiemark crate but uses only
 //! gdal, proj, rand, rand_chacha, serde_json and std (never the tiemark library).
