@@ -147,6 +147,11 @@ fn both_images_open_with_the_stated_crs_pixel_sizes_bands_and_validity() {
             );
             let (bands, mask) = pixels(&sample_data().join(name));
             assert!(mask.iter().all(|&m| m == 0 || m == 255));
+            let mask_band = band.open_mask_band().unwrap();
+            assert!(
+                mask_band.overview_count().unwrap() >= 3,
+                "{name}: mask overviews"
+            );
             // The collar: corners are outside the flight's footprint, the centre inside;
             // RGB is 0 in the collar but for JPEG ringing next to the footprint's edge (in a
             // 16 x 16 JPEG block that holds a valid pixel, so within 16 pixels of one).
