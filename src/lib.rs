@@ -20,7 +20,8 @@
 //! frame); before stage 3 it asks [`resources`] whether the run fits the machine's memory.
 //! [`config`] holds the configuration shared by the command line and pipeline files, every
 //! option with its one default. [`image`] holds one band of a georeferenced raster in memory
-//! and converts between pixel/line and map coordinates. [`progress`] is how stages report progress. The writers
+//! and converts between pixel/line and map coordinates; [`keypoints`] finds blobs in one at a
+//! scale given in metres on the ground. [`progress`] is how stages report progress. The writers
 //! ([`emit`], [`report`]) sit on top of the outcome, never the other way round. [`synth`] makes
 //! seeded synthetic surveys for tests, benchmarks and experiments; [`experiment`] (cargo feature
 //! `experiments`) measures the signature stage.
@@ -38,6 +39,7 @@ pub mod fit;
 pub mod frame;
 pub mod image;
 pub mod ingest;
+pub mod keypoints;
 pub mod matching;
 pub mod outcome;
 pub mod progress;
