@@ -306,6 +306,7 @@ mod tests {
             points,
             crs_wkt: crs.map(|c| Crs::parse(c, "test").unwrap().wkt),
             skipped: Default::default(),
+            raster: None,
         }
     }
 

@@ -1,19 +1,20 @@
-//! Stage 1 — ingest: read landmarks from a GDAL vector dataset, or open a raster image.
+//! Stage 1 — ingest: read landmarks from a GDAL vector dataset or a raster image.
 //!
 //! **In:** a [`SurveyInput`]: the path of a dataset GDAL opens (GeoPackage, Shapefile,
 //! GeoJSON, FlatGeobuf, CSV with x/y or lon/lat columns, or anything else GDAL reads as
-//! vectors), and optionally the layer and the id field. (Its `crs` is for the working-frame
-//! stage; ingest does not use it.)
-//! **Out:** a [`LandmarkSet`]: one landmark per feature — id, position in the file's own
-//! coordinates, the layer's CRS as WKT if it has one — and the skipped features counted by
-//! cause.
+//! vectors; or a georeferenced image: GeoTIFF, COG, VRT, JPEG 2000, …), and optionally the
+//! layer and the id field (vectors) or the band (rasters); for rasters also the keypoint
+//! detector's options. (Its `crs` is for the working-frame stage; ingest does not use it.)
+//! **Out:** a [`LandmarkSet`]: one landmark per feature or keypoint — id, position in the
+//! file's own coordinates, the CRS as WKT if it has one — and the skipped features counted by
+//! cause; for a raster also [`RasterLandmarks`] (the image, and each keypoint's pixel/line,
+//! scale and response).
 //!
 //! What a dataset holds is decided from what GDAL opens, not from the file's name
-//! ([`SourceKind`]): vector layers are read (`vector.rs`). A raster image is opened by
-//! [`open_raster`] as a [`RasterSource`] (`raster.rs`: a band or the luminance, its
-//! geotransform and CRS, read decimated or by windows into an `Image`, with its validity
-//! mask); [`read_landmarks`] still refuses one with [`IngestError::RasterNotSupported`], as the
-//! keypoints that would make it landmarks are not connected yet.
+//! ([`SourceKind`]): vector layers are read (`vector.rs`). A raster image is opened as a
+//! [`RasterSource`] (`raster.rs`: a band or the luminance, its geotransform and CRS, read
+//! decimated or by windows into an `Image`, with its validity mask) and its keypoints become
+//! the landmarks (`raster_landmarks.rs`, through [`crate::keypoints`]).
 //!
 //! Points are taken as they are; polygons and multipolygons as their area-weighted centroid
 //! (`geo`'s `Centroid`); any other geometry as its centroid. Z and M are dropped. Features with
@@ -33,9 +34,11 @@
 mod csv;
 mod open;
 mod raster;
+mod raster_landmarks;
 mod validate;
 mod vector;
 
+pub use raster_landmarks::RasterLandmarks;
 pub use raster::{
     BandChoice, RasterError, RasterInfo, RasterSource, ReadLevel, ReadPlan, LUMINANCE_WEIGHTS,
     STRIP_PIXELS,
@@ -45,6 +48,7 @@ use gdal::errors::GdalError;
 use serde::{Deserialize, Serialize};
 use std::fmt;
 use std::path::PathBuf;
+use crate::keypoints::KeypointParams;
 
 /// One input survey: which dataset, which layer and id field, and which CRS it is in. Used by
 /// the command line and, as a table, by pipeline files.
@@ -149,18 +153,46 @@ pub struct LandmarkSet {
     pub crs_wkt: Option<String>,
     /// Features skipped, by cause.
     pub skipped: SkipCounts,
+    /// For a raster survey, the image and its keypoints (one a landmark); `None` for vectors.
+    pub raster: Option<Box<RasterLandmarks>>,
 }
 
-/// Reads the landmarks of one survey. The dataset is opened read-only; what it holds is decided
-/// from what GDAL opens ([`SourceKind`]), and a raster is refused for now.
+/// Reads the landmarks of one survey, with the detector's defaults for a raster. The dataset is
+/// opened read-only; what it holds is decided from what GDAL opens ([`SourceKind`]).
 pub fn read_landmarks(input: &SurveyInput) -> Result<LandmarkSet, IngestError> {
+    read_landmarks_with(input, &KeypointParams::default(), None)
+}
+
+/// Reads the landmarks of one survey: a vector layer's features, or a raster's keypoints found
+/// at `keypoints.feature_size_m`, or — without one — at the default size for this image and an
+/// image of `other_pixel_m` metres a pixel (the other survey of the match, when it is a raster;
+/// [`KeypointParams::feature_size_for`]).
+pub fn read_landmarks_with(
+    input: &SurveyInput,
+    keypoints: &KeypointParams,
+    other_pixel_m: Option<f64>,
+) -> Result<LandmarkSet, IngestError> {
     let opened = open::open_source(&input.path)?;
     match opened.kind {
         SourceKind::Vector => vector::read_vector(input, opened),
-        SourceKind::Raster => Err(IngestError::RasterNotSupported {
-            path: input.path.clone(),
-            driver: opened.driver,
-        }),
+        SourceKind::Raster => {
+            let source = RasterSource::open(&input.path, input.band)?;
+            let own = raster_landmarks::pixel_metres(&source)?;
+            let size = keypoints.feature_size_for(own, other_pixel_m.unwrap_or(own));
+            raster_landmarks::read_keypoints(&source, size, keypoints)
+        }
+    }
+}
+
+/// The ground size of a raster survey's pixels in metres; `None` for a vector survey.
+pub fn raster_pixel_metres(input: &SurveyInput) -> Result<Option<f64>, IngestError> {
+    let opened = open::open_source(&input.path)?;
+    match opened.kind {
+        SourceKind::Vector => Ok(None),
+        SourceKind::Raster => {
+            let source = RasterSource::open(&input.path, input.band)?;
+            raster_landmarks::pixel_metres(&source).map(Some)
+        }
     }
 }
 
@@ -181,14 +213,6 @@ pub enum IngestError {
         /// GDAL's error.
         #[source]
         source: GdalError,
-    },
-    /// GDAL opens it as a raster image.
-    #[error("{path}: is a raster image (GDAL driver {driver}); matching takes landmarks from vector layers only in this version (finding landmarks in raster images is not connected yet) — extract points first or give a vector dataset")]
-    RasterNotSupported {
-        /// Path given.
-        path: PathBuf,
-        /// Short name of the GDAL driver that opened it.
-        driver: String,
     },
     /// The dataset has no layers.
     #[error("{path}: the dataset has no vector layers")]
@@ -329,6 +353,15 @@ pub enum IngestError {
     /// A raster image that cannot be read as asked.
     #[error(transparent)]
     Raster(#[from] RasterError),
+    /// The keypoint detector refused the image or its options.
+    #[error("{path}: {source}")]
+    Keypoints {
+        /// Path given.
+        path: PathBuf,
+        /// The detector's reason.
+        #[source]
+        source: crate::keypoints::KeypointError,
+    },
     /// Any other GDAL failure while reading.
     #[error("{path}: reading failed: {}", gdal_words(.source))]
     Gdal {

@@ -714,6 +714,12 @@ pub enum RasterError {
         /// GDAL's six terms.
         geotransform: [f64; 6],
     },
+    /// A CRS in degrees: pixels have no single size on the ground.
+    #[error("{path}: the image is on a geographic grid (degrees), whose pixels have no single size on the ground; warp it to a projected CRS (e.g. its UTM zone) first")]
+    Geographic {
+        /// Path given.
+        path: PathBuf,
+    },
     /// The band asked for does not exist.
     #[error("{path}: has no band {band}; the image has {count} band(s), numbered from 1 — choose one of them")]
     NoSuchBand {

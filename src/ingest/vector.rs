@@ -141,6 +141,7 @@ pub(super) fn read_vector(input: &SurveyInput, opened: Opened) -> Result<Landmar
         points,
         crs_wkt,
         skipped,
+        raster: None,
     };
     validate::check(&set)?;
     Ok(set)

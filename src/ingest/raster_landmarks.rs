@@ -1,0 +1,131 @@
+//! Landmarks of a raster survey: the keypoints of its image, found at a scale on the ground.
+//!
+//! **In:** an opened [`RasterSource`], the feature size in metres and the detector's
+//! [`KeypointParams`]. **Out:** a [`LandmarkSet`] whose landmarks are the image's keypoints
+//! (strongest first, ids `k1`, `k2`, …, positions in the image's CRS) with its
+//! [`RasterLandmarks`]: what the image is and, per keypoint, its full-resolution pixel/line,
+//! scale and response.
+//!
+//! The image is read decimated by the factor the detector would choose for itself, so that
+//! the band's finest scale is still at least Lowe's σ0 = 1.6 samples (see
+//! [`crate::keypoints`]); a 20,000 px mosaic searched for 2.5 m features is read at about a
+//! tenth of its size, in strips. The blur of that block averaging is passed on to the detector
+//! (a block mean of d × d pixels adds a variance of (d² − 1)/12 pixels², the variance of a
+//! uniform distribution over a pixel's width — common practice).
+//!
+//! The image's CRS must be projected: the detector needs pixels of one size in both directions,
+//! which a grid in degrees does not have away from the equator. A raster without a CRS is read
+//! with its geotransform in metres (a local grid).
+
+use super::raster::{RasterError, RasterSource};
+use super::{IngestError, LandmarkSet, SkipCounts};
+use crate::image::GeoTransform;
+use crate::keypoints::{self, Keypoint, KeypointParams, SIGMA0};
+use gdal::spatial_ref::SpatialRef;
+
+/// What a raster survey's landmarks came from.
+#[derive(Debug, Clone, PartialEq)]
+pub struct RasterLandmarks {
+    /// The image in words (size, band, pixel size, …).
+    pub description: String,
+    /// Full-resolution columns.
+    pub width: usize,
+    /// Full-resolution rows.
+    pub height: usize,
+    /// Full-resolution geotransform.
+    pub geotransform: GeoTransform,
+    /// Metres per unit of the image's CRS.
+    pub metres_per_unit: f64,
+    /// Ground size of a full-resolution pixel, metres.
+    pub pixel_m: f64,
+    /// The feature size searched, metres.
+    pub feature_size_m: f64,
+    /// The image was read with every `decimation × decimation` block as one sample.
+    pub decimation: usize,
+    /// One a landmark, same order: the keypoint with its position as full-resolution
+    /// pixel/line in `pixel` (its `sample` and `sigma_px` are on the decimated grid).
+    pub keypoints: Vec<Keypoint>,
+}
+
+/// Metres per unit of a raster's CRS (1 without one); an error for a geographic CRS.
+pub(super) fn metres_per_unit(source: &RasterSource) -> Result<f64, IngestError> {
+    let Some(wkt) = &source.info().crs_wkt else {
+        return Ok(1.0);
+    };
+    let srs = SpatialRef::from_wkt(wkt).map_err(|e| IngestError::Gdal {
+        path: source.path().to_path_buf(),
+        source: e,
+    })?;
+    if srs.is_geographic() {
+        return Err(IngestError::Raster(RasterError::Geographic {
+            path: source.path().to_path_buf(),
+        }));
+    }
+    Ok(srs.linear_units())
+}
+
+/// The ground size of a raster's pixels, metres.
+pub(super) fn pixel_metres(source: &RasterSource) -> Result<f64, IngestError> {
+    Ok(source.info().pixel_size * metres_per_unit(source)?)
+}
+
+/// Reads the image decimated as the detector needs and detects its keypoints.
+pub(super) fn read_keypoints(
+    source: &RasterSource,
+    feature_size_m: f64,
+    params: &KeypointParams,
+) -> Result<LandmarkSet, IngestError> {
+    let info = source.info();
+    let mpu = metres_per_unit(source)?;
+    let pixel_m = info.pixel_size * mpu;
+    let path = source.path().to_path_buf();
+    let detector_error = |e: keypoints::KeypointError| IngestError::Keypoints {
+        path: path.clone(),
+        source: e,
+    };
+    params.validate().map_err(detector_error)?;
+    // The factor `keypoints::detect` would choose on the full-resolution image.
+    let sigma_lo_px = feature_size_m / (2.0 * std::f64::consts::SQRT_2) / pixel_m
+        / 2f64.powi(params.octaves_either_side as i32);
+    let d = ((sigma_lo_px / SIGMA0).floor() as usize)
+        .clamp(1, info.width.min(info.height).max(1));
+    let image = source.read(d)?;
+    let k = d as f64;
+    let blurred = KeypointParams {
+        input_blur_px: (params.input_blur_px.powi(2) + (k * k - 1.0) / 12.0).sqrt() / k,
+        ..params.clone()
+    };
+    let found = keypoints::detect(&image, feature_size_m, mpu, &blurred).map_err(detector_error)?;
+    let to_pixel = info.geotransform.inverse().ok_or_else(|| {
+        IngestError::Raster(RasterError::NotGeoreferenced { path: path.clone() })
+    })?;
+    let keypoints: Vec<Keypoint> = found
+        .keypoints
+        .into_iter()
+        .map(|mut kp| {
+            kp.pixel = to_pixel.pixel_to_map(kp.map[0], kp.map[1]);
+            kp
+        })
+        .collect();
+    let set = LandmarkSet {
+        source: path.clone(),
+        layer: format!("keypoints of {}", source.band()),
+        ids: (1..=keypoints.len()).map(|i| format!("k{i}")).collect(),
+        points: keypoints.iter().map(|kp| kp.map).collect(),
+        crs_wkt: info.crs_wkt.clone(),
+        skipped: SkipCounts::default(),
+        raster: Some(Box::new(RasterLandmarks {
+            description: source.describe(),
+            width: info.width,
+            height: info.height,
+            geotransform: info.geotransform,
+            metres_per_unit: mpu,
+            pixel_m,
+            feature_size_m,
+            decimation: d * found.decimation,
+            keypoints,
+        })),
+    };
+    super::validate::check(&set)?;
+    Ok(set)
+}
