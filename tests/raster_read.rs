@@ -807,6 +807,17 @@ fn reads_outside_the_image_and_vector_files_are_refused() {
         s.contains("GeoJSON") && s.contains("not a raster image"),
         "{s}"
     );
+
+    let garbage = dir.path().join("garbage.tif");
+    std::fs::write(&garbage, b"II*\0 not really a TIFF").unwrap();
+    let (e, s) = raster_error(RasterSource::open(&garbage, None));
+    assert!(matches!(e, RasterError::Unreadable { .. }), "{s}");
+    assert!(
+        s.contains("garbage.tif") && s.contains("not an image GDAL can read"),
+        "{s}"
+    );
+    let missing = RasterSource::open(&dir.path().join("nowhere.tif"), None).unwrap_err();
+    assert!(matches!(missing, IngestError::NotFound { .. }), "{missing}");
 }
 
 #[test]

@@ -235,7 +235,12 @@ impl RasterSource {
     /// rule of the module doc). Errors: the file is missing or unreadable, is a vector
     /// dataset, is not on a map grid, or has no such band.
     pub fn open(path: &Path, band: Option<BandChoice>) -> Result<RasterSource, IngestError> {
-        let opened = open_source(path)?;
+        let opened = open_source(path).map_err(|e| match e {
+            IngestError::Unreadable { path, source } => {
+                IngestError::Raster(RasterError::Unreadable { path, source })
+            }
+            other => other,
+        })?;
         if opened.kind != SourceKind::Raster || opened.dataset.raster_count() == 0 {
             return Err(RasterError::NotRaster {
                 path: path.to_path_buf(),
@@ -684,6 +689,15 @@ fn gdal_error(path: &Path, source: gdal::errors::GdalError) -> IngestError {
 /// What is wrong with a raster survey. Every variant names the file.
 #[derive(Debug, thiserror::Error)]
 pub enum RasterError {
+    /// GDAL cannot open it.
+    #[error("{path}: not an image GDAL can read ({}); give a GeoTIFF, JPEG 2000, VRT or another raster GDAL reads", super::gdal_words(.source))]
+    Unreadable {
+        /// Path given.
+        path: PathBuf,
+        /// GDAL's error.
+        #[source]
+        source: gdal::errors::GdalError,
+    },
     /// A vector dataset where a raster image was expected.
     #[error("{path}: is a vector dataset (GDAL driver {driver}), not a raster image; give a georeferenced image (GeoTIFF, JPEG 2000, VRT, …)")]
     NotRaster {
