@@ -30,6 +30,7 @@
 pub use crate::fit::FitParams;
 pub use crate::frame::FrameOptions;
 pub use crate::ingest::SurveyInput;
+pub use crate::keypoints::KeypointParams;
 pub use crate::matching::MatchingParams;
 pub use crate::signatures::SignatureChoice;
 use serde::{Deserialize, Serialize};
@@ -61,6 +62,8 @@ pub struct MatchConfig {
     pub matching: MatchingParams,
     /// Robust fit.
     pub fit: FitParams,
+    /// Keypoints of raster surveys.
+    pub keypoints: KeypointParams,
 }
 
 /// A pipeline file: a match and where its outputs go.
@@ -85,6 +88,9 @@ pub struct PipelineFile {
     /// `[fit]`.
     #[serde(default)]
     pub fit: FitParams,
+    /// `[keypoints]` (raster surveys).
+    #[serde(default)]
+    pub keypoints: KeypointParams,
 }
 
 /// A configuration could not be used.
@@ -115,6 +121,9 @@ pub enum ConfigError {
     /// A fit option is out of range.
     #[error(transparent)]
     Fit(#[from] crate::fit::FitError),
+    /// A keypoint option is out of range.
+    #[error(transparent)]
+    Keypoints(#[from] crate::keypoints::KeypointError),
 }
 
 impl MatchConfig {
@@ -127,6 +136,7 @@ impl MatchConfig {
             signatures: SignatureChoice::default(),
             matching: MatchingParams::default(),
             fit: FitParams::default(),
+            keypoints: KeypointParams::default(),
         }
     }
 
@@ -135,6 +145,7 @@ impl MatchConfig {
         self.signatures.validate()?;
         self.matching.validate()?;
         self.fit.validate()?;
+        self.keypoints.validate()?;
         Ok(())
     }
 }
@@ -173,6 +184,7 @@ impl PipelineFile {
             signatures,
             matching,
             fit,
+            keypoints,
         } = self;
         let config = MatchConfig {
             reference,
@@ -181,6 +193,7 @@ impl PipelineFile {
             signatures,
             matching,
             fit,
+            keypoints,
         };
         (config, output)
     }

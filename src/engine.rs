@@ -13,6 +13,7 @@ use crate::config::{ConfigError, MatchConfig};
 use crate::fit::{self, FitInput, Rejection, Solution};
 use crate::frame::{self, FrameError};
 use crate::ingest::{self, IngestError, LandmarkSet, SurveyInput};
+use crate::keypoints::KeypointParams;
 use crate::matching::{self, Candidate, MatchingError};
 use crate::outcome::{MatchOutcome, Search};
 use crate::progress::{stage, Progress};
@@ -57,9 +58,27 @@ impl From<ResourceError> for Error {
     }
 }
 
-/// Reads one survey's landmarks.
-pub fn read_survey(input: &SurveyInput) -> Result<LandmarkSet, IngestError> {
-    ingest::read_landmarks(input)
+/// Reads one survey's landmarks: a vector layer's features, or a raster's keypoints at
+/// `keypoints.feature_size_m` (or the default size for its own pixels).
+pub fn read_survey(
+    input: &SurveyInput,
+    keypoints: &KeypointParams,
+) -> Result<LandmarkSet, IngestError> {
+    ingest::read_landmarks_with(input, keypoints, None)
+}
+
+/// Reads both surveys of a match. When both are rasters and no feature size is given, both
+/// are searched at the default size for the pair's pixel sizes, so that the same features are
+/// found in both ([`KeypointParams::feature_size_for`]).
+pub fn read_surveys(config: &MatchConfig) -> Result<(LandmarkSet, LandmarkSet), IngestError> {
+    let pixels = [
+        ingest::raster_pixel_metres(&config.reference)?,
+        ingest::raster_pixel_metres(&config.target)?,
+    ];
+    Ok((
+        ingest::read_landmarks_with(&config.reference, &config.keypoints, pixels[1])?,
+        ingest::read_landmarks_with(&config.target, &config.keypoints, pixels[0])?,
+    ))
 }
 
 /// What the robust fit needs to know of the working frame.
@@ -84,12 +103,7 @@ impl FrameFacts {
 /// nothing.
 pub fn match_surveys(config: &MatchConfig, progress: &dyn Progress) -> Result<MatchOutcome, Error> {
     config.validate()?;
-    let (reference, target) = stage(progress, "reading surveys", None, |_| {
-        Ok::<_, IngestError>((
-            read_survey(&config.reference)?,
-            read_survey(&config.target)?,
-        ))
-    })?;
+    let (reference, target) = stage(progress, "reading surveys", None, |_| read_surveys(config))?;
     let frame = frame::working_frame(
         &reference,
         config.reference.crs.as_deref(),

@@ -38,17 +38,17 @@ mod raster_landmarks;
 mod validate;
 mod vector;
 
-pub use raster_landmarks::RasterLandmarks;
 pub use raster::{
     BandChoice, RasterError, RasterInfo, RasterSource, ReadLevel, ReadPlan, LUMINANCE_WEIGHTS,
     STRIP_PIXELS,
 };
+pub use raster_landmarks::RasterLandmarks;
 
+use crate::keypoints::KeypointParams;
 use gdal::errors::GdalError;
 use serde::{Deserialize, Serialize};
 use std::fmt;
 use std::path::PathBuf;
-use crate::keypoints::KeypointParams;
 
 /// One input survey: which dataset, which layer and id field, and which CRS it is in. Used by
 /// the command line and, as a table, by pipeline files.

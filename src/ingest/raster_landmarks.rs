@@ -85,10 +85,11 @@ pub(super) fn read_keypoints(
     };
     params.validate().map_err(detector_error)?;
     // The factor `keypoints::detect` would choose on the full-resolution image.
-    let sigma_lo_px = feature_size_m / (2.0 * std::f64::consts::SQRT_2) / pixel_m
+    let sigma_lo_px = feature_size_m
+        / (2.0 * std::f64::consts::SQRT_2)
+        / pixel_m
         / 2f64.powi(params.octaves_either_side as i32);
-    let d = ((sigma_lo_px / SIGMA0).floor() as usize)
-        .clamp(1, info.width.min(info.height).max(1));
+    let d = ((sigma_lo_px / SIGMA0).floor() as usize).clamp(1, info.width.min(info.height).max(1));
     let image = source.read(d)?;
     let k = d as f64;
     let blurred = KeypointParams {
@@ -96,9 +97,10 @@ pub(super) fn read_keypoints(
         ..params.clone()
     };
     let found = keypoints::detect(&image, feature_size_m, mpu, &blurred).map_err(detector_error)?;
-    let to_pixel = info.geotransform.inverse().ok_or_else(|| {
-        IngestError::Raster(RasterError::NotGeoreferenced { path: path.clone() })
-    })?;
+    let to_pixel = info
+        .geotransform
+        .inverse()
+        .ok_or_else(|| IngestError::Raster(RasterError::NotGeoreferenced { path: path.clone() }))?;
     let keypoints: Vec<Keypoint> = found
         .keypoints
         .into_iter()

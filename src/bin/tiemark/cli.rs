@@ -7,8 +7,8 @@ use clap::{Args, Parser, Subcommand};
 use serde::de::DeserializeOwned;
 use std::path::PathBuf;
 use tiemark::config::{
-    FitParams, FrameOptions, MatchConfig, MatchingParams, OutputOptions, SignatureChoice,
-    SurveyInput,
+    FitParams, FrameOptions, KeypointParams, MatchConfig, MatchingParams, OutputOptions,
+    SignatureChoice, SurveyInput,
 };
 use tiemark::fit::prior;
 use tiemark::ingest::BandChoice;
@@ -159,6 +159,8 @@ pub struct MatchArgs {
     /// Research: rank candidates by key distance, or by key distance over the keys' predicted noise (distance or sensitivity).
     #[arg(long, help_heading = "Signature research (to compare variants; the defaults are measured best)", value_parser = choice::<Rank>, default_value_t = MatchingParams::default().rank)]
     rank: Rank,
+    #[command(flatten)]
+    raster: KeypointArgs,
 }
 
 #[derive(Args)]
@@ -180,6 +182,29 @@ pub struct LandmarksArgs {
     /// Replace an existing output file.
     #[arg(long)]
     pub force: bool,
+    #[command(flatten)]
+    pub raster: KeypointArgs,
+}
+
+/// Options of the keypoint detector for raster surveys (`match` and `landmarks`).
+#[derive(Args, Debug)]
+pub struct KeypointArgs {
+    #[arg(long, help_heading = "Raster surveys", allow_negative_numbers = true, help = format!("Size (diameter) in metres on the ground of the features found as keypoints in a raster [default: {} of the coarser image's pixels]", KeypointParams::default().default_feature_size_m(1.0, 1.0)))]
+    feature_size: Option<f64>,
+    /// Keypoints kept at most in a raster, spread over the image.
+    #[arg(long, help_heading = "Raster surveys", default_value_t = KeypointParams::default().target_count)]
+    keypoints: usize,
+}
+
+impl KeypointArgs {
+    /// The detector's options.
+    pub fn params(&self) -> KeypointParams {
+        KeypointParams {
+            feature_size_m: self.feature_size,
+            target_count: self.keypoints,
+            ..KeypointParams::default()
+        }
+    }
 }
 
 impl MatchArgs {
@@ -227,6 +252,7 @@ impl MatchArgs {
                 max_rotation_deg: self.max_rotation,
                 max_scale_ppm: self.max_scale_error,
             },
+            keypoints: self.raster.params(),
         };
         let output = OutputOptions {
             dir: self.out,
@@ -260,6 +286,8 @@ const FLAGS: &[(&str, &str)] = &[
     ("fit.tolerance_m", "--tolerance"),
     ("fit.confidence", "--confidence"),
     ("fit.max_rounds", "--max-rounds"),
+    ("keypoints.feature_size_m", "--feature-size"),
+    ("keypoints.target_count", "--keypoints"),
     ("fit.seed", "--seed"),
     ("fit.false_alarm_level", "--false-alarm-level"),
     ("fit.min_control_points", "--min-control-points"),

@@ -80,7 +80,7 @@ fn run_landmarks(a: cli::LandmarksArgs) -> ExitCode {
         band: a.band,
         ..SurveyInput::new(a.file)
     };
-    let written = engine::read_survey(&input)
+    let written = engine::read_survey(&input, &a.raster.params())
         .map_err(|e| e.to_string())
         .and_then(|set| {
             emit::write_landmarks(&set, &a.out, a.force).map_err(|e| e.to_string())?;
