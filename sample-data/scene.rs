@@ -1522,6 +1522,9 @@ fn footprint(w: usize, h: usize, rng: &mut ChaCha8Rng) -> Vec<P> {
 /// Writes the orthophoto, the mosaic and the truth file into `out`.
 pub fn write_scene(out: &Path, seed: u64, size: Size) -> Res<()> {
     std::fs::create_dir_all(out)?;
+    // GDAL's block cache (default 5% of RAM) would otherwise fill with the large mosaic while
+    // its overviews are built; a strip of all bands (15 MB for 20,000 px) fits many times.
+    gdal::config::set_config_option("GDAL_CACHEMAX", "256")?;
     let dm = size.dims();
     let mut rng = ChaCha8Rng::seed_from_u64(seed);
     rng.set_stream(100);
