@@ -34,6 +34,7 @@ pub(crate) mod atomic;
 pub mod csv;
 pub mod gpkg;
 pub mod json;
+pub mod raster;
 
 use crate::config::OutputOptions;
 use crate::ingest::LandmarkSet;
@@ -77,6 +78,14 @@ pub enum EmitError {
         /// GDAL's error.
         #[source]
         source: gdal::errors::GdalError,
+    },
+    /// A raster output could not be made (the message says which step failed and what to do).
+    #[error("{path}: {message}")]
+    Raster {
+        /// The output (or input) concerned.
+        path: PathBuf,
+        /// What failed, GDAL's words, and what to do.
+        message: String,
     },
     /// Unsupported output format.
     #[error("{0}: unknown output format; use a .gpkg, .geojson, .fgb or .csv file name")]
