@@ -936,6 +936,166 @@ pub fn warp_to_reference(
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::emit::atomic::{put_in_place, Staging};
+    use gdal::raster::{Buffer, ColorInterpretation};
+    use gdal::DriverManager;
+
+    /// A 64 × 64 Byte GeoTIFF (UTM 33N, 1 m pixels) of `bands` bands holding a ramp; with
+    /// `alpha`, the last band is alpha, 0 in the left 8 columns; with `mask`, a per-dataset
+    /// mask instead, 0 in the top 8 rows.
+    fn tif(path: &Path, bands: usize, alpha: bool, mask: bool) {
+        let driver = DriverManager::get_driver_by_name("GTiff").unwrap();
+        let mut ds = driver
+            .create_with_band_type::<u8, _>(path, 64, 64, bands)
+            .unwrap();
+        ds.set_geo_transform(&[455_000.0, 1.0, 0.0, 5_210_000.0, 0.0, -1.0])
+            .unwrap();
+        ds.set_spatial_ref(&SpatialRef::from_epsg(32633).unwrap())
+            .unwrap();
+        for b in 1..=bands {
+            let mut band = ds.rasterband(b).unwrap();
+            let data: Vec<u8> = if alpha && b == bands {
+                band.set_color_interpretation(ColorInterpretation::AlphaBand)
+                    .unwrap();
+                (0..64 * 64)
+                    .map(|i| if i % 64 < 8 { 0 } else { 255 })
+                    .collect()
+            } else {
+                (0..64 * 64).map(|i| ((i % 64) * 2 + b) as u8).collect()
+            };
+            band.write((0, 0), (64, 64), &mut Buffer::new((64, 64), data))
+                .unwrap();
+        }
+        if mask {
+            let mut band = ds.rasterband(1).unwrap();
+            band.create_mask_band(true).unwrap();
+            let mut m = band.open_mask_band().unwrap();
+            let data: Vec<u8> = (0..64 * 64)
+                .map(|i| if i < 8 * 64 { 0 } else { 255 })
+                .collect();
+            m.write((0, 0), (64, 64), &mut Buffer::new((64, 64), data))
+                .unwrap();
+        }
+    }
+
+    fn gcps_shifted(dx: f64, dy: f64) -> Vec<Gcp> {
+        [(0.0, 0.0), (64.0, 0.0), (0.0, 64.0), (64.0, 64.0)]
+            .iter()
+            .enumerate()
+            .map(|(i, &(p, l))| Gcp {
+                id: format!("g{i}"),
+                pixel: p,
+                line: l,
+                x: 455_000.0 + p + dx,
+                y: 5_210_000.0 - l + dy,
+            })
+            .collect()
+    }
+
+    #[test]
+    fn staged_outputs_work_from_the_output_folder_and_carry_alpha() {
+        // GDAL (the reference) reads all three files after the staging folder is put in place.
+        let dir = tempfile::tempdir().unwrap();
+        let target = dir.path().join("rgba.tif");
+        tif(&target, 4, true, false);
+        let wkt = SpatialRef::from_epsg(32633).unwrap().to_wkt().unwrap();
+        let out = dir.path().join("out");
+        let staging = Staging::beside(&out).unwrap();
+        let stage = |name: &str| staging.path.join(name);
+        write_gcp_vrt(&target, &gcps_shifted(3.0, 0.0), &wkt, &stage(GCP_VRT)).unwrap();
+        let gt = GeoTransform([455_000.0, 1.0, 0.0, 5_210_000.0, 0.0, -1.0]);
+        let shift = Similarity {
+            tx: 3.0,
+            ..Similarity::IDENTITY
+        };
+        write_georeferenced_vrt(&target, &gt, &shift, &wkt, &stage(GEOREFERENCED_VRT)).unwrap();
+        let grid = ReferenceGrid {
+            crs_wkt: wkt.clone(),
+            geotransform: GeoTransform([454_990.0, 1.0, 0.0, 5_210_010.0, 0.0, -1.0]),
+            width: 100,
+            height: 100,
+        };
+        let options = WarpOptions {
+            resampling: Resampling::Nearest,
+            ..WarpOptions::default()
+        };
+        warp_to_reference(
+            &stage(GCP_VRT),
+            &grid,
+            &options,
+            &stage(COREGISTERED_TIF),
+            None,
+        )
+        .unwrap();
+        put_in_place(
+            staging,
+            &out,
+            &[GCP_VRT, GEOREFERENCED_VRT, COREGISTERED_TIF],
+        )
+        .unwrap();
+        let leftovers: Vec<_> = std::fs::read_dir(dir.path())
+            .unwrap()
+            .flatten()
+            .filter(|e| e.file_name().to_string_lossy().starts_with('.'))
+            .collect();
+        assert!(leftovers.is_empty(), "{leftovers:?}");
+
+        let original = Dataset::open(&target).unwrap();
+        for name in [GCP_VRT, GEOREFERENCED_VRT] {
+            let vrt = Dataset::open(out.join(name)).unwrap();
+            assert_eq!(vrt.raster_count(), 4);
+            assert_eq!(
+                vrt.rasterband(4).unwrap().color_interpretation(),
+                ColorInterpretation::AlphaBand
+            );
+            for b in 1..=4 {
+                let read = |ds: &Dataset| ds.rasterband(b).unwrap().read_band_as::<u8>().unwrap();
+                assert_eq!(read(&vrt).data(), read(&original).data(), "{name} band {b}");
+            }
+        }
+        // The warp: the target's footprint (64 × 64 pixels, shifted 3 m east) on the grid,
+        // three colour bands and the alpha band; where the target's alpha is 0 (its left 8
+        // columns) the output's is 0 too, and the colours are the target's, 3 pixels on.
+        let tif = Dataset::open(out.join(COREGISTERED_TIF)).unwrap();
+        assert_eq!(tif.raster_size(), (64, 64));
+        assert_eq!(tif.geo_transform().unwrap()[0], 455_003.0);
+        assert_eq!(tif.raster_count(), 4);
+        let alpha = tif.rasterband(4).unwrap().read_band_as::<u8>().unwrap();
+        let red = tif.rasterband(1).unwrap().read_band_as::<u8>().unwrap();
+        let want_red = original
+            .rasterband(1)
+            .unwrap()
+            .read_band_as::<u8>()
+            .unwrap();
+        for i in 0..64 * 64 {
+            assert_eq!(
+                alpha.data()[i],
+                if i % 64 < 8 { 0 } else { 255 },
+                "pixel {i}"
+            );
+            if i % 64 >= 8 {
+                assert_eq!(red.data()[i], want_red.data()[i], "pixel {i}");
+            }
+        }
+    }
+
+    #[test]
+    fn a_per_dataset_mask_becomes_the_vrts_mask() {
+        let dir = tempfile::tempdir().unwrap();
+        let target = dir.path().join("masked.tif");
+        tif(&target, 1, false, true);
+        let wkt = SpatialRef::from_epsg(32633).unwrap().to_wkt().unwrap();
+        let vrt_path = dir.path().join(GCP_VRT);
+        write_gcp_vrt(&target, &gcps_shifted(0.0, 0.0), &wkt, &vrt_path).unwrap();
+        let vrt = Dataset::open(&vrt_path).unwrap();
+        let band = vrt.rasterband(1).unwrap();
+        assert!(band.mask_flags().unwrap().is_per_dataset());
+        let mask = band.open_mask_band().unwrap().read_band_as::<u8>().unwrap();
+        let want: Vec<u8> = (0..64 * 64)
+            .map(|i| if i < 8 * 64 { 0 } else { 255 })
+            .collect();
+        assert_eq!(mask.data(), &want[..]);
+    }
 
     #[test]
     fn the_similarity_after_the_geotransform_is_one_affine() {
