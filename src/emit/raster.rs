@@ -195,8 +195,8 @@ fn raster_err(path: &Path, message: impl Into<String>) -> EmitError {
 /// reference map coordinates, in the data axis order of GIS: easting or longitude first) in
 /// the reference CRS `reference_crs_wkt`. The VRT has no geotransform and no dataset CRS, only
 /// the GCP list, so GDAL's warper uses the GCPs. The target is referred to by its absolute
-/// path (module doc). Every band of the target is carried with its data type, no-data value
-/// and colour interpretation, and a per-dataset mask as the VRT's mask.
+/// path (module doc). Every band of the target is carried with its data type, no-data value,
+/// colour interpretation and colour table, and a per-dataset mask as the VRT's mask.
 pub fn write_gcp_vrt(
     target_image: &Path,
     gcps: &[Gcp],
@@ -330,6 +330,8 @@ struct BandInfo {
     data_type: String,
     nodata: Option<f64>,
     colour: String,
+    /// The colour table (RGBA entries) of a paletted band; empty otherwise.
+    palette: Vec<[i16; 4]>,
 }
 
 /// Opens the target image (read only) and describes it.
@@ -393,10 +395,20 @@ fn describe(target: &Path) -> Result<SourceRaster, EmitError> {
                 .mask_flags()
                 .is_ok_and(|f| f.is_per_dataset() && !f.is_alpha() && !f.is_nodata());
         }
+        let palette = band
+            .color_table()
+            .map(|t| {
+                (0..t.entry_count())
+                    .filter_map(|k| t.entry_as_rgb(k))
+                    .map(|e| [e.r, e.g, e.b, e.a])
+                    .collect()
+            })
+            .unwrap_or_default();
         bands.push(BandInfo {
             data_type: band.band_type().name(),
             nodata: band.no_data_value(),
             colour: band.color_interpretation().name(),
+            palette,
         });
     }
     Ok(SourceRaster {
@@ -436,6 +448,16 @@ impl SourceRaster {
             }
             if !b.colour.is_empty() {
                 let _ = writeln!(xml, "    <ColorInterp>{}</ColorInterp>", escape(&b.colour));
+            }
+            if !b.palette.is_empty() {
+                xml.push_str("    <ColorTable>\n");
+                for [r, g, bl, a] in &b.palette {
+                    let _ = writeln!(
+                        xml,
+                        "      <Entry c1=\"{r}\" c2=\"{g}\" c3=\"{bl}\" c4=\"{a}\" />"
+                    );
+                }
+                xml.push_str("    </ColorTable>\n");
             }
             source(xml, &(i + 1).to_string(), "    ");
             xml.push_str("  </VRTRasterBand>\n");
@@ -1076,6 +1098,56 @@ mod tests {
             if i % 64 >= 8 {
                 assert_eq!(red.data()[i], want_red.data()[i], "pixel {i}");
             }
+        }
+    }
+
+    #[test]
+    fn a_colour_table_is_carried() {
+        use gdal::raster::{ColorEntry, ColorTable, PaletteInterpretation, RgbaEntry};
+        let dir = tempfile::tempdir().unwrap();
+        let target = dir.path().join("paletted.tif");
+        tif(&target, 1, false, false);
+        // (A TIFF colour map has no alpha: every entry reads back opaque.)
+        let colours = [[0, 0, 0, 255], [200, 30, 10, 255], [10, 180, 40, 255]];
+        {
+            let ds = Dataset::open_ex(
+                &target,
+                gdal::DatasetOptions {
+                    open_flags: gdal::GdalOpenFlags::GDAL_OF_UPDATE,
+                    ..Default::default()
+                },
+            )
+            .unwrap();
+            let mut table = ColorTable::new(PaletteInterpretation::Rgba);
+            for (k, [r, g, b, a]) in colours.iter().enumerate() {
+                let e = ColorEntry::Rgba(RgbaEntry {
+                    r: *r,
+                    g: *g,
+                    b: *b,
+                    a: *a,
+                });
+                table.set_color_entry(k as u16, &e);
+            }
+            ds.rasterband(1).unwrap().set_color_table(&table);
+        }
+        let wkt = SpatialRef::from_epsg(32633).unwrap().to_wkt().unwrap();
+        let vrt_path = dir.path().join(GCP_VRT);
+        write_gcp_vrt(&target, &gcps_shifted(0.0, 0.0), &wkt, &vrt_path).unwrap();
+        let vrt = Dataset::open(&vrt_path).unwrap();
+        let band = vrt.rasterband(1).unwrap();
+        let table = band.color_table().expect("a colour table");
+        // GeoTIFF pads a Byte band's table to 256 entries: the VRT has all of the target's.
+        let source = Dataset::open(&target).unwrap();
+        let source_count = source
+            .rasterband(1)
+            .unwrap()
+            .color_table()
+            .unwrap()
+            .entry_count();
+        assert_eq!(table.entry_count(), source_count);
+        for (k, want) in colours.iter().enumerate() {
+            let e = table.entry_as_rgb(k).unwrap();
+            assert_eq!([e.r, e.g, e.b, e.a], *want);
         }
     }
 
