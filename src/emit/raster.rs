@@ -491,6 +491,8 @@ fn escape(s: &str) -> String {
             '>' => out.push_str("&gt;"),
             '"' => out.push_str("&quot;"),
             '\'' => out.push_str("&apos;"),
+            // XML 1.0 has no place for control characters (but tab and line breaks).
+            c if c.is_control() && !matches!(c, '\t' | '\n' | '\r') => out.push(' '),
             c => out.push(c),
         }
     }
@@ -1194,6 +1196,7 @@ mod tests {
     #[test]
     fn xml_text_is_escaped_and_wkt_put_on_one_line() {
         assert_eq!(escape("a<b & \"c\"'"), "a&lt;b &amp; &quot;c&quot;&apos;");
+        assert_eq!(escape("id\u{1}7"), "id 7");
         assert_eq!(
             one_line("GEOGCS[\"x\",\n\tDATUM[\"y\"]]"),
             "GEOGCS[\"x\",  DATUM[\"y\"]]"
