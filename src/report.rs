@@ -77,6 +77,7 @@ pub fn accepted(r: &MatchOutcome, s: &Solution) -> String {
         r.target.points.len(),
         tcrs
     );
+    let _ = writeln!(o, "{}", skipped_line(r));
     let _ = writeln!(
         o,
         "working    {} — {}",
@@ -155,6 +156,21 @@ pub fn accepted(r: &MatchOutcome, s: &Solution) -> String {
     let _ = writeln!(o);
     let _ = writeln!(o, "CAUTION: {CAUTION}");
     o
+}
+
+/// The features each survey's reader skipped, by cause (every report has this line, so that a
+/// survey read in part never passes for a whole one), e.g. `skipped    reference: none; target:
+/// 3 (2 without a geometry, 1 with an empty geometry)`.
+pub fn skipped_line(r: &MatchOutcome) -> String {
+    let side = |s: &crate::ingest::SkipCounts| match s.total() {
+        0 => "none".to_string(),
+        n => format!("{n} ({s})"),
+    };
+    format!(
+        "skipped    reference: {}; target: {}",
+        side(&r.reference.skipped),
+        side(&r.target.skipped)
+    )
 }
 
 /// The summary with the list of files written.
@@ -267,6 +283,7 @@ pub fn rejection(r: &MatchOutcome, rejection: &Rejection) -> String {
         cfg.target.path.display(),
         frame.target.len()
     );
+    let _ = writeln!(o, "{}", skipped_line(r));
     let _ = writeln!(o, "working    {}", frame.crs.label());
     let _ = writeln!(o);
     let _ = writeln!(o, "why: {}", reason(&rejection.reason));

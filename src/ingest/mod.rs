@@ -1,10 +1,11 @@
 //! Stage 1 — ingest: read landmarks from a GDAL vector dataset or a raster image.
 //!
 //! **In:** a [`SurveyInput`]: the path of a dataset GDAL opens (GeoPackage, Shapefile,
-//! GeoJSON, FlatGeobuf, CSV with x/y or lon/lat columns, or anything else GDAL reads as
-//! vectors; or a georeferenced image: GeoTIFF, COG, VRT, JPEG 2000, …), and optionally the
-//! layer and the id field (vectors) or the band (rasters); for rasters also the keypoint
-//! detector's options. (Its `crs` is for the working-frame stage; ingest does not use it.)
+//! GeoJSON, FlatGeobuf, CSV with x/y, lon/lat or easting/northing columns, or anything else
+//! GDAL reads as vectors; or a georeferenced image: GeoTIFF, COG, VRT, JPEG 2000, …), and
+//! optionally the layer, the id field and, for a CSV table, the x and y columns (vectors) or
+//! the band (rasters); for rasters also the keypoint detector's options. (Its `crs` is for the
+//! working-frame stage; ingest does not use it.)
 //! **Out:** a [`LandmarkSet`]: one landmark per feature or keypoint — id, position in the
 //! file's own coordinates, the CRS as WKT if it has one — and the skipped features counted by
 //! cause; for a raster also [`RasterLandmarks`] (the image, and each keypoint's pixel/line,
@@ -14,22 +15,38 @@
 //! ([`SourceKind`]): vector layers are read (`vector.rs`). A raster image is opened as a
 //! [`RasterSource`] (`raster.rs`: a band or the luminance, its geotransform and CRS, read
 //! decimated or by windows into an `Image`, with its validity mask) and its keypoints become
-//! the landmarks (`raster_landmarks.rs`, through [`crate::keypoints`]).
+//! the landmarks (`raster_landmarks.rs`, through [`crate::keypoints`]). A file that exists but
+//! cannot be read (permission denied) is said to be so before GDAL is asked.
 //!
 //! Points are taken as they are; polygons and multipolygons as their area-weighted centroid
-//! (`geo`'s `Centroid`); any other geometry as its centroid. Z and M are dropped. Features with
-//! no geometry, or an empty one, are skipped and counted ([`SkipCounts`]). A GDAL error while
-//! fetching the features (a truncated or damaged file) is an error naming the feature, not a
-//! short read. The input is opened read-only and is never modified.
+//! (`geo`'s `Centroid`); any other geometry as its centroid. Z and M are dropped. A GDAL error
+//! while fetching the features (a truncated or damaged file) is an error naming the feature,
+//! not a short read. The input is opened read-only and is never modified.
 //!
-//! When GDAL reads the file with its CSV driver, x is the column named x, lon, long, longitude,
-//! easting, east or e (the first of these names present, any case), y the column named y, lat,
-//! latitude, northing, north or n; a row whose coordinate text is not a finite number is an
-//! error, not a skipped feature (`csv.rs`).
+//! **Skipped or refused.** A feature that carries no position is skipped and counted by cause
+//! ([`SkipCounts`], shown in every report): no geometry, an empty geometry, or an invalid one
+//! (coordinates from which no finite centroid follows, e.g. a polygon whose area overflows).
+//! Such a feature offers nothing to match and the matcher is built for landmarks missing on
+//! either side, so the run goes on and says how many were left out; a layer left with no
+//! landmark is an error. A feature whose position is there but unusable is an error naming it,
+//! never a skip, because it means the numbers of the file are damaged or in the wrong units:
+//! a coordinate that is not finite or whose magnitude exceeds [`COORDINATE_LIMIT`] (1e15,
+//! beyond any CRS's range on Earth: a million times the Earth's circumference in metres), a
+//! CSV cell that is not a number. So are fewer than 3 landmarks, duplicated positions and a
+//! set all on one line (`validate.rs`).
 //!
-//! Checks that make the rest of the pipeline meaningful happen here, with the file named in
-//! the error (`validate.rs`): non-finite coordinates, duplicate positions, and a set that is
-//! all on one line.
+//! **Ids** are the id field's text exactly as GDAL hands it over, byte for byte: not trimmed
+//! (`" 12"` and `"12"` are two ids), not converted lossily. An id field whose values repeat, a
+//! value that is not valid UTF-8 (the file's encoding is not declared), and a number GDAL may
+//! have clamped or rounded (an Integer64 at its limit, a Real beyond 2^53 or with more digits
+//! than GDAL prints) are errors. A blank value is a missing id, an error too.
+//!
+//! When GDAL reads the file with its CSV driver, every column is read as text (no type
+//! detection, which would turn `0012` into `12` and a 25-digit id into a rounded real) and the
+//! position is parsed here from the x and y columns (`csv.rs`): the columns named by
+//! `x_column` / `y_column`, else one pair of conventional names (x/y, lon/lat,
+//! easting/northing, any case); two pairs, or two columns for one axis, are refused as
+//! ambiguous. A cell that is not a finite number is an error, not a skipped feature.
 
 mod csv;
 mod open;
@@ -71,6 +88,12 @@ pub struct SurveyInput {
     /// the default rule of [`RasterSource`]. Not used for vector datasets.
     #[serde(default)]
     pub band: Option<BandChoice>,
+    /// CSV tables only: the column holding x (easting or longitude); `None`: chosen by name.
+    #[serde(default)]
+    pub x_column: Option<String>,
+    /// CSV tables only: the column holding y (northing or latitude); `None`: chosen by name.
+    #[serde(default)]
+    pub y_column: Option<String>,
 }
 
 impl SurveyInput {
@@ -82,6 +105,8 @@ impl SurveyInput {
             id: None,
             crs: None,
             band: None,
+            x_column: None,
+            y_column: None,
         }
     }
 }
@@ -108,14 +133,21 @@ pub struct SkipCounts {
     pub no_geometry: usize,
     /// Features whose geometry is empty (e.g. a point with no coordinates).
     pub empty: usize,
+    /// Features whose geometry has coordinates but no finite centroid (e.g. a polygon whose
+    /// area overflows).
+    pub invalid: usize,
 }
 
 impl SkipCounts {
     /// All skipped features.
     pub fn total(&self) -> usize {
-        self.no_geometry + self.empty
+        self.no_geometry + self.empty + self.invalid
     }
 }
+
+/// The largest coordinate magnitude accepted, in the file's units: 1e15 (common practice: no
+/// CRS on Earth needs more than about 4e7 m or 360°; a larger number is damage or wrong units).
+pub const COORDINATE_LIMIT: f64 = 1e15;
 
 /// The causes with a count, e.g. `2 without a geometry, 1 with an empty geometry`; `none` when
 /// nothing was skipped.
@@ -124,6 +156,10 @@ impl fmt::Display for SkipCounts {
         let parts: Vec<String> = [
             (self.no_geometry, "without a geometry"),
             (self.empty, "with an empty geometry"),
+            (
+                self.invalid,
+                "with an invalid geometry (no finite centroid)",
+            ),
         ]
         .iter()
         .filter(|(n, _)| *n > 0)
@@ -283,22 +319,23 @@ pub enum IngestError {
         #[source]
         source: Box<GdalError>,
     },
-    /// A coordinate is NaN or infinite.
-    #[error("{path}, layer '{layer}': landmark '{id}' has a non-finite coordinate ({x}, {y}); fix or remove that feature")]
-    NonFinite {
+    /// A landmark's position is not finite or beyond [`COORDINATE_LIMIT`].
+    #[error("{path}, layer '{layer}': landmark '{id}' (feature {fid}) lies outside the coordinate range: ({x:e}, {y:e}); coordinates must be finite numbers within ±1e15 — fix or remove that feature, or check the file's units")]
+    OutOfRange {
         /// Path given.
         path: PathBuf,
         /// Layer read.
         layer: String,
         /// Landmark id.
         id: String,
+        /// Feature id.
+        fid: String,
         /// x read.
         x: f64,
         /// y read.
         y: f64,
     },
-    /// A CSV row has text in its coordinate columns that is not a finite number (GDAL gives such
-    /// a row no geometry).
+    /// A CSV row has text in its coordinate columns that is not a finite number.
     #[error("{path}, layer '{layer}': landmark '{id}' has a non-finite or unreadable coordinate ({cells}); fix or remove that row")]
     UnreadableCoordinate {
         /// Path given.
@@ -311,7 +348,7 @@ pub enum IngestError {
         cells: String,
     },
     /// Two CSV columns could both hold the same coordinate.
-    #[error("{path}: the columns '{first}' and '{second}' could both hold the {axis} coordinate; rename or remove one of them")]
+    #[error("{path}: the columns '{first}' and '{second}' could both hold the {axis} coordinate; rename or remove one of them{}", COLUMN_OPTIONS)]
     AmbiguousColumns {
         /// Path given.
         path: PathBuf,
@@ -321,6 +358,120 @@ pub enum IngestError {
         first: String,
         /// The other.
         second: String,
+    },
+    /// A CSV table has two pairs of coordinate columns (say lon/lat and easting/northing).
+    #[error("{path}: two pairs of coordinate columns, '{first_x}'/'{first_y}' and '{second_x}'/'{second_y}'; say which pair holds the positions{}", COLUMN_OPTIONS)]
+    AmbiguousPairs {
+        /// Path given.
+        path: PathBuf,
+        /// x of one pair.
+        first_x: String,
+        /// y of that pair.
+        first_y: String,
+        /// x of the other pair.
+        second_x: String,
+        /// y of the other pair.
+        second_y: String,
+    },
+    /// A CSV table has no recognised pair of coordinate columns (and no geometry column).
+    #[error("{path}: no coordinate columns found: x is looked for under the names {}, y under {} (any case, as one pair), and the file's columns are {columns}{}", csv::X_NAMES.join(", "), csv::Y_NAMES.join(", "), COLUMN_OPTIONS)]
+    NoCoordinateColumns {
+        /// Path given.
+        path: PathBuf,
+        /// The file's columns.
+        columns: String,
+    },
+    /// A column named by `x_column` / `y_column` is not in the table, or is unusable.
+    #[error("{path}: {problem}; the file's columns are {columns}")]
+    BadCoordinateColumn {
+        /// Path given.
+        path: PathBuf,
+        /// What is wrong, e.g. `no column named 'east' (x_column)`.
+        problem: String,
+        /// The file's columns.
+        columns: String,
+    },
+    /// `x_column` / `y_column` given for a dataset that is not a CSV table.
+    #[error("{path}: x_column / y_column name the coordinate columns of a CSV table, but GDAL reads this file with its {driver} driver, whose geometries give the positions; leave them out")]
+    ColumnsNotApplicable {
+        /// Path given.
+        path: PathBuf,
+        /// Driver that opened it.
+        driver: String,
+    },
+    /// A CSV table holds a NUL byte, which GDAL's CSV reader misreads.
+    #[error("{path}: holds a NUL byte (at byte {offset}); GDAL's CSV reader ends a cell there and misreads the rows after it — remove it (the file may not be text)")]
+    NulInCsv {
+        /// Path given.
+        path: PathBuf,
+        /// Its byte offset.
+        offset: u64,
+    },
+    /// The path exists but cannot be read.
+    #[error("{path}: cannot be read ({reason}); check the file's permissions (your user needs read access, and access to its folders) or copy it somewhere readable")]
+    CannotRead {
+        /// Path given.
+        path: PathBuf,
+        /// Why, e.g. "permission denied".
+        reason: String,
+    },
+    /// The id field's values repeat.
+    #[error("{path}, layer '{layer}': the id field '{field}' does not tell the features apart: {repeated} of its values repeat ({examples}); choose a field with one value per feature, or none to use the feature ids")]
+    DuplicateIds {
+        /// Path given.
+        path: PathBuf,
+        /// Layer read.
+        layer: String,
+        /// Id field (or "feature id").
+        field: String,
+        /// How many distinct values occur more than once.
+        repeated: usize,
+        /// A few of them with their counts, e.g. `'house' 120 times, 'shed' 4 times`.
+        examples: String,
+    },
+    /// An id is not valid UTF-8 text.
+    #[error("{path}, layer '{layer}': feature {fid}: the value of id field '{field}' is not valid UTF-8 text ({shown}); {}", encoding_advice(.driver))]
+    IdNotUtf8 {
+        /// Path given.
+        path: PathBuf,
+        /// Layer read.
+        layer: String,
+        /// Feature id.
+        fid: String,
+        /// Id field.
+        field: String,
+        /// The bytes, invalid ones as `\xNN`.
+        shown: String,
+        /// GDAL driver that read it.
+        driver: String,
+    },
+    /// An id is a number GDAL may have clamped or rounded.
+    #[error("{path}, layer '{layer}': feature {fid}: id field '{field}' holds numbers that GDAL reads as {kind}, and this one reads as {value}, which may not be the number written ({why}); store the ids as text (a string field; quoted in GeoJSON), or choose another id field")]
+    LossyNumericId {
+        /// Path given.
+        path: PathBuf,
+        /// Layer read.
+        layer: String,
+        /// Feature id.
+        fid: String,
+        /// Id field.
+        field: String,
+        /// "64-bit integers" or "floating-point numbers".
+        kind: String,
+        /// The value as read.
+        value: String,
+        /// Why it is not trusted.
+        why: String,
+    },
+    /// Fewer landmarks than any 2-D transform needs.
+    #[error("{path}, layer '{layer}': only {count} {} read; at least {MIN_LANDMARKS} landmarks, not all on one line, are needed to fix a 2-D transform (and signatures need more); use a survey with more landmarks", landmark_word(*count))]
+    TooFewLandmarks {
+        /// Path given.
+        path: PathBuf,
+        /// Layer read.
+        layer: String,
+        /// Landmarks read.
+        count: usize,
     },
     /// Two landmarks share a position.
     #[error("{path}, layer '{layer}': {count} duplicated positions, e.g. '{first}' and '{second}' at ({x}, {y}); remove or merge duplicated features and run again")]
@@ -371,6 +522,30 @@ pub enum IngestError {
         #[source]
         source: GdalError,
     },
+}
+
+/// The fewest landmarks a survey may have: three, not on one line.
+pub const MIN_LANDMARKS: usize = 3;
+
+/// "landmark" or "landmarks".
+fn landmark_word(count: usize) -> &'static str {
+    if count == 1 {
+        "landmark"
+    } else {
+        "landmarks"
+    }
+}
+
+/// How to name the coordinate columns of a CSV table, at the end of a message.
+const COLUMN_OPTIONS: &str = "; or name the columns with x_column and y_column (on the command line --reference-x-column and --reference-y-column, --target-x-column and --target-y-column, or --x-column and --y-column of landmarks)";
+
+/// How to make GDAL read text in the right encoding, by driver.
+fn encoding_advice(driver: &str) -> &'static str {
+    match driver {
+        "ESRI Shapefile" => "declare the .dbf file's encoding: a .cpg file beside the .shp holding its code page (e.g. CP1252 or ISO-8859-1), or the environment variable SHAPE_ENCODING=CP1252 (GDAL then converts the text to UTF-8); or save the file again as UTF-8",
+        "CSV" => "GDAL reads CSV text as it is: save the table as UTF-8 (e.g. iconv -f CP1252 -t UTF-8)",
+        _ => "save the file again with its text in UTF-8 (GDAL's drivers for GeoPackage, GeoJSON and FlatGeobuf expect UTF-8)",
+    }
 }
 
 /// GDAL's own words for an error: its message when it has one, else the error's description.

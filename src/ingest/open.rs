@@ -1,8 +1,8 @@
 //! Opening a dataset read-only with GDAL and telling what it holds.
 //!
 //! **In:** a path. **Out:** an [`Opened`]: the dataset as GDAL opened it (read-only, no open
-//! options), its [`SourceKind`], the short name of the driver that opened it, and the name to
-//! give GDAL to open it again; or an [`IngestError`] naming the file.
+//! options), its [`SourceKind`] and the short name of the driver that opened it; or an [`IngestError`] naming the file — one that does not exist or cannot be
+//! read (permission denied) is said to be so before GDAL is asked.
 //!
 //! The kind comes from what GDAL opens, not from the file's name: a GeoTIFF named `.gpkg` is a
 //! raster, a GeoJSON named `.dat` is a vector dataset. Vector layers win: a file GDAL opens
@@ -21,15 +21,44 @@ use gdal::{Dataset, DatasetOptions, GdalOpenFlags, Metadata};
 use std::marker::PhantomData;
 use std::path::{Path, PathBuf};
 
+/// Refuses a path that does not exist or cannot be read, before GDAL is asked (GDAL says only
+/// that no driver recognises a file it may not read). A file must open for reading; a folder
+/// (GDAL reads a folder of Shapefiles as one dataset) must be listable.
+fn check_readable(path: &Path) -> Result<(), IngestError> {
+    let cannot = |e: std::io::Error| {
+        if e.kind() == std::io::ErrorKind::NotFound {
+            IngestError::NotFound {
+                path: path.to_path_buf(),
+            }
+        } else {
+            IngestError::CannotRead {
+                path: path.to_path_buf(),
+                reason: io_words(&e),
+            }
+        }
+    };
+    let meta = std::fs::metadata(path).map_err(cannot)?;
+    if meta.is_dir() {
+        std::fs::read_dir(path).map(drop).map_err(cannot)
+    } else {
+        std::fs::File::open(path).map(drop).map_err(cannot)
+    }
+}
+
+/// An I/O error in a few words: `permission denied`, else the system's message.
+fn io_words(e: &std::io::Error) -> String {
+    match e.kind() {
+        std::io::ErrorKind::PermissionDenied => "permission denied".into(),
+        _ => e.to_string(),
+    }
+}
+
 /// A dataset as GDAL opened it.
 pub(super) struct Opened {
     /// What it holds.
     pub kind: SourceKind,
     /// Short name of the driver that opened it (`GPKG`, `CSV`, `GTiff`, …).
     pub driver: String,
-    /// The name GDAL opened: the path, or `CSV:` and the path for a `.txt` table (see
-    /// [`open_source`]).
-    pub gdal_name: PathBuf,
     /// The dataset, read-only, opened without open options.
     pub dataset: Dataset,
 }
@@ -50,18 +79,14 @@ pub(super) struct Opened {
 /// numbers as ungridded. Any other file that does not open (a `.gpkg` that is not one) is an
 /// error.
 pub(super) fn open_source(path: &Path) -> Result<Opened, IngestError> {
-    if !path.exists() {
-        return Err(IngestError::NotFound {
-            path: path.to_path_buf(),
-        });
-    }
+    check_readable(path)?;
     let vector_only = || GdalOpenFlags::GDAL_OF_VECTOR | GdalOpenFlags::GDAL_OF_READONLY;
     let probe = {
         let _quiet = QuietGdal::new();
         open_with(path, vector_only(), None, None)
     };
     let probe = match probe {
-        Ok(ds) if ds.layer_count() > 0 => return Ok(opened(SourceKind::Vector, path, ds)),
+        Ok(ds) if ds.layer_count() > 0 => return Ok(opened(SourceKind::Vector, ds)),
         other => other.ok(),
     };
     if probe.is_none() && has_extension(path, "txt") {
@@ -72,7 +97,7 @@ pub(super) fn open_source(path: &Path) -> Result<Opened, IngestError> {
         };
         if let Ok(ds) = csv {
             if ds.layer_count() > 0 {
-                return Ok(opened(SourceKind::Vector, &name, ds));
+                return Ok(opened(SourceKind::Vector, ds));
             }
         }
     }
@@ -81,35 +106,16 @@ pub(super) fn open_source(path: &Path) -> Result<Opened, IngestError> {
         | GdalOpenFlags::GDAL_OF_READONLY;
     match open_with(path, any, None, None) {
         Ok(ds) => match kind_of(&ds) {
-            SourceKind::Raster => Ok(opened(SourceKind::Raster, path, ds)),
+            SourceKind::Raster => Ok(opened(SourceKind::Raster, ds)),
             // No layers, no bands: a vector dataset without layers (reported as such later),
             // preferably as the vector drivers opened it.
-            SourceKind::Vector => Ok(opened(SourceKind::Vector, path, probe.unwrap_or(ds))),
+            SourceKind::Vector => Ok(opened(SourceKind::Vector, probe.unwrap_or(ds))),
         },
         Err(source) => Err(IngestError::Unreadable {
             path: path.to_path_buf(),
             source,
         }),
     }
-}
-
-/// Opens the dataset of `opened` again as vectors, with the driver that opened it and that
-/// driver's `open_options`. `path` is the path the user gave, for the error.
-pub(super) fn reopen_vector(
-    path: &Path,
-    opened: &Opened,
-    open_options: &[&str],
-) -> Result<Dataset, IngestError> {
-    open_with(
-        &opened.gdal_name,
-        GdalOpenFlags::GDAL_OF_VECTOR | GdalOpenFlags::GDAL_OF_READONLY,
-        Some(&[opened.driver.as_str()]),
-        Some(open_options),
-    )
-    .map_err(|source| IngestError::Unreadable {
-        path: path.to_path_buf(),
-        source,
-    })
 }
 
 fn open_with(
@@ -129,11 +135,10 @@ fn open_with(
     )
 }
 
-fn opened(kind: SourceKind, gdal_name: &Path, dataset: Dataset) -> Opened {
+fn opened(kind: SourceKind, dataset: Dataset) -> Opened {
     Opened {
         kind,
         driver: dataset.driver().short_name(),
-        gdal_name: gdal_name.to_path_buf(),
         dataset,
     }
 }
@@ -276,7 +281,6 @@ mod tests {
         let p = write(dir.path(), "survey.txt", "id,x,y\na,1.5,2\nb,3,4.25\n");
         let o = open_source(&p).unwrap();
         assert_eq!((o.kind, o.driver.as_str()), (SourceKind::Vector, "CSV"));
-        assert_eq!(o.gdal_name, csv_prefixed(&p));
     }
 
     #[test]

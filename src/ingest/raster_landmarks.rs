@@ -128,6 +128,6 @@ pub(super) fn read_keypoints(
             keypoints,
         })),
     };
-    super::validate::check(&set)?;
+    super::validate::check(&set, None)?;
     Ok(set)
 }

@@ -1,31 +1,82 @@
 //! Checks on a [`LandmarkSet`] that make the rest of the pipeline meaningful.
 //!
-//! **In:** the landmarks of one layer as read. **Out:** `Ok(())`, or the first problem found,
-//! naming the file and the layer: a non-finite coordinate, duplicated positions, or a set that
-//! is all on one line.
+//! **In:** the landmarks of one layer as read, and the id field they were read from. **Out:**
+//! `Ok(())`, or the first problem found, naming the file and the layer: repeated ids, a
+//! position outside the coordinate range, fewer than [`MIN_LANDMARKS`] landmarks, duplicated
+//! positions, or a set that is all on one line.
 
-use super::{IngestError, LandmarkSet};
+use super::{IngestError, LandmarkSet, COORDINATE_LIMIT, MIN_LANDMARKS};
+use std::collections::HashMap;
 
-/// Runs every check, in this order: coordinates finite, positions distinct, points spread over
-/// an area.
-pub(super) fn check(set: &LandmarkSet) -> Result<(), IngestError> {
-    check_finite(set)?;
+/// Runs every check, in this order: ids distinct, coordinates in range, enough landmarks,
+/// positions distinct, points spread over an area. `id_field` is the field the ids came from
+/// (`None`: feature ids).
+pub(super) fn check(set: &LandmarkSet, id_field: Option<&str>) -> Result<(), IngestError> {
+    check_ids(set, id_field)?;
+    check_range(set)?;
+    if set.points.len() < MIN_LANDMARKS {
+        return Err(IngestError::TooFewLandmarks {
+            path: set.source.clone(),
+            layer: set.layer.clone(),
+            count: set.points.len(),
+        });
+    }
     check_duplicates(set)?;
     check_spread(set)?;
     Ok(())
 }
 
-/// Rejects the first landmark (in reading order) with a NaN or infinite coordinate.
-fn check_finite(set: &LandmarkSet) -> Result<(), IngestError> {
-    match set
-        .points
+/// Whether both coordinates are finite and within ±[`COORDINATE_LIMIT`].
+pub(super) fn in_range(p: [f64; 2]) -> bool {
+    p.iter().all(|v| v.abs() <= COORDINATE_LIMIT)
+}
+
+/// How many example values a repeated-id message shows.
+const EXAMPLES: usize = 3;
+
+/// Rejects ids that occur more than once: counts the values that repeat and shows the
+/// [`EXAMPLES`] most frequent (ties in reading order) with their counts.
+fn check_ids(set: &LandmarkSet, id_field: Option<&str>) -> Result<(), IngestError> {
+    // Per value: (count, first position).
+    let mut seen: HashMap<&str, (usize, usize)> = HashMap::with_capacity(set.ids.len());
+    for (i, id) in set.ids.iter().enumerate() {
+        seen.entry(id.as_str()).or_insert((0, i)).0 += 1;
+    }
+    let mut repeated: Vec<(&str, usize, usize)> = seen
+        .into_iter()
+        .filter(|(_, (n, _))| *n > 1)
+        .map(|(id, (n, first))| (id, n, first))
+        .collect();
+    if repeated.is_empty() {
+        return Ok(());
+    }
+    repeated.sort_by(|a, b| b.1.cmp(&a.1).then(a.2.cmp(&b.2)));
+    let mut examples: Vec<String> = repeated
         .iter()
-        .position(|p| !(p[0].is_finite() && p[1].is_finite()))
-    {
-        Some(i) => Err(IngestError::NonFinite {
+        .take(EXAMPLES)
+        .map(|(id, n, _)| format!("'{id}' {n} times"))
+        .collect();
+    if repeated.len() > EXAMPLES {
+        examples.push("…".into());
+    }
+    Err(IngestError::DuplicateIds {
+        path: set.source.clone(),
+        layer: set.layer.clone(),
+        field: id_field.unwrap_or("feature id").to_string(),
+        repeated: repeated.len(),
+        examples: examples.join(", "),
+    })
+}
+
+/// Rejects the first landmark (in reading order) outside the coordinate range. (The reader
+/// refuses such a feature already, naming its feature id; this keeps the promise for any set.)
+fn check_range(set: &LandmarkSet) -> Result<(), IngestError> {
+    match set.points.iter().position(|p| !in_range(*p)) {
+        Some(i) => Err(IngestError::OutOfRange {
             path: set.source.clone(),
             layer: set.layer.clone(),
             id: set.ids[i].clone(),
+            fid: format!("number {}", i + 1),
             x: set.points[i][0],
             y: set.points[i][1],
         }),
@@ -65,16 +116,10 @@ fn check_duplicates(set: &LandmarkSet) -> Result<(), IngestError> {
 /// Rejects a set whose points lie on one line: their spread across the principal axis of the
 /// point cloud is at most 1e-9 of their spread along it. The spread is measured on the points
 /// themselves (from a local origin): the covariance's smaller eigenvalue is no test, as rounding
-/// leaves it near 1e-16 of the larger even for points exactly on a line at an angle.
+/// leaves it near 1e-16 of the larger even for points exactly on a line at an angle. Needs at
+/// least [`MIN_LANDMARKS`] points within the coordinate range (checked before), so that no sum
+/// overflows.
 fn check_spread(set: &LandmarkSet) -> Result<(), IngestError> {
-    let collinear = || IngestError::Collinear {
-        path: set.source.clone(),
-        layer: set.layer.clone(),
-        count: set.points.len(),
-    };
-    if set.points.len() < 3 {
-        return Err(collinear());
-    }
     let origin = set.points[0];
     let local: Vec<[f64; 2]> = set
         .points
@@ -105,7 +150,11 @@ fn check_spread(set: &LandmarkSet) -> Result<(), IngestError> {
     let along = range(&|p| cos * p[0] + sin * p[1]);
     let across = range(&|p| cos * p[1] - sin * p[0]);
     if across <= 1e-9 * along {
-        return Err(collinear());
+        return Err(IngestError::Collinear {
+            path: set.source.clone(),
+            layer: set.layer.clone(),
+            count: set.points.len(),
+        });
     }
     Ok(())
 }

@@ -4,37 +4,35 @@
 //! landmarks, checked (`validate.rs`), with the skipped features counted by cause; or an
 //! [`IngestError`] naming the file (and the layer, field or feature at fault).
 //!
-//! A table GDAL opened with its CSV driver is opened again with the open options that make
-//! its rows points (`csv.rs`). Every feature is fetched with GDAL's error state watched: GDAL
-//! reports a feature it cannot read (a truncated FlatGeobuf or Shapefile) by an error message
-//! and then ends the layer as if it were complete, which is turned into
-//! [`IngestError::ReadFailed`] here.
+//! Every feature is fetched with GDAL's error state watched: GDAL reports a feature it cannot
+//! read (a truncated FlatGeobuf or Shapefile) by an error message and then ends the layer as
+//! if it were complete, which is turned into [`IngestError::ReadFailed`] here. The rows of a
+//! CSV table get their position from its x and y columns (`csv.rs`); other features from their
+//! geometry. Ids are read as GDAL's raw bytes ([`field_bytes`]) and must be UTF-8.
 
-use super::open::{clear_gdal_error, reopen_vector, take_gdal_failure, Opened};
-use super::{csv, validate, IngestError, LandmarkSet, SkipCounts, SurveyInput};
+use super::csv::{self, RowPosition};
+use super::open::{clear_gdal_error, take_gdal_failure, Opened};
+use super::validate::{self, in_range};
+use super::{IngestError, LandmarkSet, SkipCounts, SurveyInput};
 use gdal::vector::{Feature, Geometry, LayerAccess};
+use gdal_sys::OGRFieldType;
 use geo::Centroid;
-use std::collections::HashSet;
 use std::path::Path;
 
 /// Reads the landmarks of one layer of a dataset GDAL opened as vectors.
 pub(super) fn read_vector(input: &SurveyInput, opened: Opened) -> Result<LandmarkSet, IngestError> {
     let path = input.path.as_path();
     let is_csv = csv::is_csv(&opened);
-    // The x and y columns of a CSV table, when it has both.
-    let csv_columns = if is_csv {
-        csv::coordinate_columns(path, &opened.dataset)?
-    } else {
-        None
-    };
-    let reopened = if is_csv {
-        let options = csv::point_open_options(csv_columns.as_ref());
-        let options: Vec<&str> = options.iter().map(String::as_str).collect();
-        Some(reopen_vector(path, &opened, &options)?)
-    } else {
-        None
-    };
-    let ds = reopened.as_ref().unwrap_or(&opened.dataset);
+    if !is_csv && (input.x_column.is_some() || input.y_column.is_some()) {
+        return Err(IngestError::ColumnsNotApplicable {
+            path: path.to_path_buf(),
+            driver: opened.driver.clone(),
+        });
+    }
+    if is_csv {
+        csv::check_no_nul(path)?;
+    }
+    let ds = &opened.dataset;
     if ds.layer_count() == 0 {
         return Err(IngestError::NoLayers {
             path: path.to_path_buf(),
@@ -54,7 +52,21 @@ pub(super) fn read_vector(input: &SurveyInput, opened: Opened) -> Result<Landmar
         })?,
     };
     let layer_name = layer.name();
-    let field_names: Vec<String> = layer.defn().fields().map(|f| f.name()).collect();
+    let (field_names, field_types): (Vec<String>, Vec<OGRFieldType::Type>) = layer
+        .defn()
+        .fields()
+        .map(|f| (f.name(), f.field_type()))
+        .unzip();
+    let columns = if is_csv {
+        csv::coordinate_columns(
+            path,
+            &field_names,
+            input.x_column.as_deref(),
+            input.y_column.as_deref(),
+        )?
+    } else {
+        None
+    };
     let id_index = match &input.id {
         Some(f) => Some(
             field_names
@@ -78,8 +90,6 @@ pub(super) fn read_vector(input: &SurveyInput, opened: Opened) -> Result<Landmar
     let mut ids = Vec::new();
     let mut points = Vec::new();
     let mut skipped = SkipCounts::default();
-    // Feature ids of CSV rows without geometry, to look at their text afterwards.
-    let mut csv_without_geometry = HashSet::new();
     let mut n = 0usize;
     each_feature(path, &layer_name, &mut layer, |feature| {
         let fid = feature
@@ -87,47 +97,71 @@ pub(super) fn read_vector(input: &SurveyInput, opened: Opened) -> Result<Landmar
             .map(|f| f.to_string())
             .unwrap_or_else(|| n.to_string());
         n += 1;
-        let p = match feature.geometry().map(position) {
-            None | Some(Position::Missing) => {
-                skipped.no_geometry += 1;
-                if let (Some(_), Some(fid)) = (&csv_columns, feature.fid()) {
-                    csv_without_geometry.insert(fid);
+        let id_of = |feature: &Feature| -> Result<String, IngestError> {
+            let Some(i) = id_index else {
+                return Ok(fid.clone());
+            };
+            let at = |e: IdProblem| {
+                e.into_error(path, &layer_name, &fid, &field_names[i], &opened.driver)
+            };
+            id_value(feature, i, field_types[i]).map_err(at)
+        };
+        let position = match &columns {
+            Some(c) => match csv::row_position(
+                c,
+                field_bytes(feature, c.xi).as_deref(),
+                field_bytes(feature, c.yi).as_deref(),
+            ) {
+                RowPosition::Blank => Position::Missing,
+                RowPosition::At(p) => Position::At(p),
+                RowPosition::Bad(cells) => {
+                    return Err(IngestError::UnreadableCoordinate {
+                        path: path.to_path_buf(),
+                        layer: layer_name.clone(),
+                        id: id_of(feature).unwrap_or_else(|_| fid.clone()),
+                        cells,
+                    })
                 }
+            },
+            None => feature.geometry().map_or(Position::Missing, position),
+        };
+        let p = match position {
+            Position::Missing => {
+                skipped.no_geometry += 1;
                 return Ok(());
             }
-            Some(Position::Empty) => {
+            Position::Empty => {
                 skipped.empty += 1;
                 return Ok(());
             }
-            Some(Position::At(p)) => p,
+            Position::Invalid => {
+                skipped.invalid += 1;
+                return Ok(());
+            }
+            Position::At(p) => p,
         };
-        let id = match id_index {
-            Some(i) => field_text(feature, i).ok_or_else(|| IngestError::MissingId {
+        let id = id_of(feature)?;
+        if !in_range(p) {
+            return Err(IngestError::OutOfRange {
                 path: path.to_path_buf(),
                 layer: layer_name.clone(),
-                fid: fid.clone(),
-                field: field_names[i].clone(),
-            })?,
-            None => fid,
-        };
+                id,
+                fid,
+                x: p[0],
+                y: p[1],
+            });
+        }
         ids.push(id);
         points.push(p);
         Ok(())
     })?;
-    if let Some(columns) = &csv_columns {
-        if !csv_without_geometry.is_empty() {
-            let id_field = id_index.map(|i| field_names[i].as_str());
-            csv::check_rows_without_geometry(
-                path,
-                &opened.dataset,
-                &layer_name,
-                columns,
-                id_field,
-                &csv_without_geometry,
-            )?;
-        }
-    }
     if points.is_empty() {
+        if is_csv && columns.is_none() {
+            return Err(IngestError::NoCoordinateColumns {
+                path: path.to_path_buf(),
+                columns: csv::listed(&field_names),
+            });
+        }
         return Err(IngestError::Empty {
             path: path.to_path_buf(),
             layer: layer_name,
@@ -143,7 +177,7 @@ pub(super) fn read_vector(input: &SurveyInput, opened: Opened) -> Result<Landmar
         skipped,
         raster: None,
     };
-    validate::check(&set)?;
+    validate::check(&set, id_index.map(|i| field_names[i].as_str()))?;
     Ok(set)
 }
 
@@ -191,11 +225,15 @@ enum Position {
     Missing,
     /// The geometry has no coordinates.
     Empty,
-    /// The landmark position.
+    /// The geometry has coordinates but no finite centroid.
+    Invalid,
+    /// The landmark position (checked against the coordinate range by the caller).
     At([f64; 2]),
 }
 
-/// The landmark position of a geometry.
+/// The landmark position of a geometry. A point is its position, whatever its numbers (the
+/// caller checks the range); a centroid that is undefined or not finite makes the geometry
+/// [`Position::Invalid`].
 fn position(g: &Geometry) -> Position {
     if is_null(g) {
         return Position::Missing;
@@ -208,13 +246,18 @@ fn position(g: &Geometry) -> Position {
     match flat.to_geo() {
         Ok(geo::Geometry::Point(p)) => Position::At([p.x(), p.y()]),
         Ok(other) => match other.centroid() {
-            Some(c) => Position::At([c.x(), c.y()]),
-            None => Position::Empty,
+            Some(c) if c.x().is_finite() && c.y().is_finite() => Position::At([c.x(), c.y()]),
+            _ => Position::Invalid,
         },
         // GDAL geometries that `geo` cannot hold (curves): fall back to the envelope centre.
         Err(_) => {
             let e = flat.envelope();
-            Position::At([(e.MinX + e.MaxX) / 2.0, (e.MinY + e.MaxY) / 2.0])
+            let c = [(e.MinX + e.MaxX) / 2.0, (e.MinY + e.MaxY) / 2.0];
+            if c.iter().all(|v| v.is_finite()) {
+                Position::At(c)
+            } else {
+                Position::Invalid
+            }
         }
     }
 }
@@ -226,17 +269,140 @@ fn is_null(g: &Geometry) -> bool {
     unsafe { g.c_geometry().is_null() }
 }
 
-/// A field's value as text; `None` when unset, null or blank. (GDAL reads an unset field as
-/// "" or 0, so the set-and-not-null flag is asked first.)
+/// A field's value as GDAL's raw bytes (`OGR_F_GetFieldAsString`, no conversion); `None` when
+/// unset or null. (GDAL reads an unset field as "" or 0, so the set-and-not-null flag is asked
+/// first.)
 #[allow(unsafe_code)]
-pub(super) fn field_text(feature: &Feature, index: usize) -> Option<String> {
+pub(super) fn field_bytes(feature: &Feature, index: usize) -> Option<Vec<u8>> {
     // SAFETY: `feature` wraps a live OGRFeatureH for the duration of the call, and `index` is a
-    // field index taken from the layer definition.
-    let set = unsafe { gdal_sys::OGR_F_IsFieldSetAndNotNull(feature.c_feature(), index as i32) };
-    if set == 0 {
-        return None;
+    // field index taken from the layer definition. The string GDAL returns is owned by the
+    // feature (valid until the next call on it); it is checked for NULL and copied at once.
+    unsafe {
+        let h = feature.c_feature();
+        if gdal_sys::OGR_F_IsFieldSetAndNotNull(h, index as i32) == 0 {
+            return None;
+        }
+        let text = gdal_sys::OGR_F_GetFieldAsString(h, index as i32);
+        if text.is_null() {
+            return None;
+        }
+        Some(std::ffi::CStr::from_ptr(text).to_bytes().to_vec())
     }
-    let text = feature.field_as_string(index).ok().flatten()?;
-    let text = text.trim().to_string();
-    (!text.is_empty()).then_some(text)
+}
+
+/// Why a feature's id cannot be used as read.
+#[derive(Debug, Clone, PartialEq)]
+pub(super) enum IdProblem {
+    /// Unset, null, or nothing but white space.
+    Missing,
+    /// Not valid UTF-8: the bytes shown with the invalid ones as `\xNN`.
+    NotUtf8(String),
+    /// A number GDAL may have clamped or rounded: its type, the value read, why.
+    Lossy(&'static str, String, &'static str),
+}
+
+impl IdProblem {
+    fn into_error(
+        self,
+        path: &Path,
+        layer: &str,
+        fid: &str,
+        field: &str,
+        driver: &str,
+    ) -> IngestError {
+        let (path, layer, fid, field) = (
+            path.to_path_buf(),
+            layer.to_string(),
+            fid.to_string(),
+            field.to_string(),
+        );
+        match self {
+            IdProblem::Missing => IngestError::MissingId {
+                path,
+                layer,
+                fid,
+                field,
+            },
+            IdProblem::NotUtf8(shown) => IngestError::IdNotUtf8 {
+                path,
+                layer,
+                fid,
+                field,
+                shown,
+                driver: driver.to_string(),
+            },
+            IdProblem::Lossy(kind, value, why) => IngestError::LossyNumericId {
+                path,
+                layer,
+                fid,
+                field,
+                kind: kind.into(),
+                value,
+                why: why.into(),
+            },
+        }
+    }
+}
+
+/// The largest magnitude below which every integer is exactly a `f64`: 2^53.
+const EXACT_INTEGERS: f64 = 9_007_199_254_740_992.0;
+
+/// A feature's id from field `index` of type `field_type`: its text exactly, byte for byte
+/// (white space kept), if it is valid UTF-8, not blank, and — for a numeric field — a number
+/// GDAL cannot have clamped (an Integer64 at its limits) or rounded (a Real of magnitude 2^53
+/// or more, or one whose text as GDAL prints it does not read back as the same number).
+#[allow(unsafe_code)]
+pub(super) fn id_value(
+    feature: &Feature,
+    index: usize,
+    field_type: OGRFieldType::Type,
+) -> Result<String, IdProblem> {
+    let bytes = field_bytes(feature, index).ok_or(IdProblem::Missing)?;
+    let text = match String::from_utf8(bytes) {
+        Ok(t) => t,
+        Err(e) => return Err(IdProblem::NotUtf8(escaped(e.as_bytes()))),
+    };
+    if text.trim().is_empty() {
+        return Err(IdProblem::Missing);
+    }
+    // SAFETY: reads the wrapped handle; `feature` outlives its uses below.
+    let h = unsafe { feature.c_feature() };
+    match field_type {
+        OGRFieldType::OFTInteger64 => {
+            // SAFETY: as in `field_bytes`; the field is set (checked there).
+            let v = unsafe { gdal_sys::OGR_F_GetFieldAsInteger64(h, index as i32) };
+            if v == i64::MAX || v == i64::MIN {
+                return Err(IdProblem::Lossy(
+                    "64-bit integers",
+                    text,
+                    "GDAL clamps a larger integer to this limit",
+                ));
+            }
+        }
+        OGRFieldType::OFTReal => {
+            // SAFETY: as above.
+            let v = unsafe { gdal_sys::OGR_F_GetFieldAsDouble(h, index as i32) };
+            if !(v.abs() < EXACT_INTEGERS) || text.parse::<f64>().ok() != Some(v) {
+                return Err(IdProblem::Lossy(
+                    "floating-point numbers",
+                    text,
+                    "such a number keeps about 15 significant digits and GDAL prints 15",
+                ));
+            }
+        }
+        _ => {}
+    }
+    Ok(text)
+}
+
+/// Bytes as text, each byte of an invalid UTF-8 sequence as `\xNN`.
+pub(super) fn escaped(bytes: &[u8]) -> String {
+    let mut out = String::new();
+    for chunk in bytes.utf8_chunks() {
+        out.push_str(chunk.valid());
+        for b in chunk.invalid() {
+            out.push_str(&format!("\\x{b:02X}"));
+        }
+    }
+    out
 }

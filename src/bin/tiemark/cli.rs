@@ -88,6 +88,18 @@ pub struct MatchArgs {
     /// Attribute holding target landmark ids.
     #[arg(long)]
     target_id: Option<String>,
+    /// CSV reference: the column holding x (easting or longitude) [default: by name: x, lon, easting, …].
+    #[arg(long)]
+    reference_x_column: Option<String>,
+    /// CSV reference: the column holding y (northing or latitude) [default: by name: y, lat, northing, …].
+    #[arg(long)]
+    reference_y_column: Option<String>,
+    /// CSV target: the column holding x.
+    #[arg(long)]
+    target_x_column: Option<String>,
+    /// CSV target: the column holding y.
+    #[arg(long)]
+    target_y_column: Option<String>,
     /// CRS of the reference, overriding the file's (anything PROJ accepts, e.g. EPSG:32633).
     #[arg(long)]
     reference_crs: Option<String>,
@@ -179,6 +191,12 @@ pub struct LandmarksArgs {
     /// Band of a raster image: a number from 1, or "luminance" (default: the only band, the luminance of an RGB image, else band 1).
     #[arg(long, value_parser = choice::<BandChoice>)]
     pub band: Option<BandChoice>,
+    /// CSV only: the column holding x (easting or longitude) [default: by name: x, lon, easting, …].
+    #[arg(long)]
+    pub x_column: Option<String>,
+    /// CSV only: the column holding y (northing or latitude) [default: by name: y, lat, northing, …].
+    #[arg(long)]
+    pub y_column: Option<String>,
     /// Replace an existing output file.
     #[arg(long)]
     pub force: bool,
@@ -217,6 +235,8 @@ impl MatchArgs {
                 id: self.reference_id,
                 crs: self.reference_crs,
                 band: self.reference_band,
+                x_column: self.reference_x_column,
+                y_column: self.reference_y_column,
             },
             target: SurveyInput {
                 path: self.target,
@@ -224,6 +244,8 @@ impl MatchArgs {
                 id: self.target_id,
                 crs: self.target_crs,
                 band: self.target_band,
+                x_column: self.target_x_column,
+                y_column: self.target_y_column,
             },
             frame: FrameOptions {
                 working_crs: self.working_crs,
@@ -268,11 +290,15 @@ const FLAGS: &[(&str, &str)] = &[
     ("reference.layer", "--reference-layer"),
     ("reference.id", "--reference-id"),
     ("reference.crs", "--reference-crs"),
+    ("reference.x_column", "--reference-x-column"),
+    ("reference.y_column", "--reference-y-column"),
     ("target.layer", "--target-layer"),
     ("target.id", "--target-id"),
     ("target.crs", "--target-crs"),
     ("reference.band", "--reference-band"),
     ("target.band", "--target-band"),
+    ("target.x_column", "--target-x-column"),
+    ("target.y_column", "--target-y-column"),
     ("frame.working_crs", "--working-crs"),
     ("signatures.neighbours", "--neighbours"),
     ("signatures.leave_out", "--leave-out"),

@@ -78,6 +78,8 @@ fn run_landmarks(a: cli::LandmarksArgs) -> ExitCode {
         layer: a.layer,
         id: a.id,
         band: a.band,
+        x_column: a.x_column,
+        y_column: a.y_column,
         ..SurveyInput::new(a.file)
     };
     let written = engine::read_survey(&input, &a.raster.params())
