@@ -320,7 +320,7 @@ pub enum IngestError {
         source: Box<GdalError>,
     },
     /// A landmark's position is not finite or beyond [`COORDINATE_LIMIT`].
-    #[error("{path}, layer '{layer}': landmark '{id}' (feature {fid}) lies outside the coordinate range: ({x:e}, {y:e}); coordinates must be finite numbers within ±1e15 — fix or remove that feature, or check the file's units")]
+    #[error("{path}, layer '{layer}': landmark '{id}' (feature {fid}) has a coordinate that is non-finite or outside the range ±1e15: ({x:e}, {y:e}); fix or remove that feature, or check the file's units")]
     OutOfRange {
         /// Path given.
         path: PathBuf,

@@ -18,6 +18,8 @@ use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 use std::process::{Command, Stdio};
 
+mod ingest;
+
 /// The GeoJSON `crs` member value for WGS 84 / UTM zone 33N.
 const UTM33: &str = "urn:ogc:def:crs:EPSG::32633";
 
