@@ -335,8 +335,9 @@ pub enum IngestError {
         /// y read.
         y: f64,
     },
-    /// A CSV row has text in its coordinate columns that is not a finite number.
-    #[error("{path}, layer '{layer}': landmark '{id}' has a non-finite or unreadable coordinate ({cells}); fix or remove that row")]
+    /// A CSV row has text in its coordinate columns that is not a number within the
+    /// coordinate range.
+    #[error("{path}, layer '{layer}': landmark '{id}' has a non-finite, out-of-range (beyond ±1e15) or unreadable coordinate ({cells}); fix or remove that row")]
     UnreadableCoordinate {
         /// Path given.
         path: PathBuf,
