@@ -31,8 +31,8 @@
 //! landmark is an error. A feature whose position is there but unusable is an error naming it,
 //! never a skip, because it means the numbers of the file are damaged or in the wrong units:
 //! a coordinate that is not finite or whose magnitude exceeds [`COORDINATE_LIMIT`] (1e15,
-//! beyond any CRS's range on Earth: a million times the Earth's circumference in metres), a
-//! CSV cell that is not a number. So are fewer than 3 landmarks, duplicated positions and a
+//! far beyond any CRS's range on Earth, whose circumference is about 4e7 m), a CSV cell that
+//! is not a number. So are fewer than 3 landmarks, duplicated positions and a
 //! set all on one line (`validate.rs`).
 //!
 //! **Ids** are the id field's text exactly as GDAL hands it over, byte for byte: not trimmed

@@ -382,7 +382,8 @@ pub(super) fn id_value(
         OGRFieldType::OFTReal => {
             // SAFETY: as above.
             let v = unsafe { gdal_sys::OGR_F_GetFieldAsDouble(h, index as i32) };
-            if !(v.abs() < EXACT_INTEGERS) || text.parse::<f64>().ok() != Some(v) {
+            let exact = v.abs() < EXACT_INTEGERS && text.parse::<f64>().ok() == Some(v);
+            if !exact {
                 return Err(IdProblem::Lossy(
                     "floating-point numbers",
                     text,
