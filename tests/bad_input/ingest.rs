@@ -512,3 +512,35 @@ fn the_landmarks_command_takes_the_column_options() {
         "{out:#?}"
     );
 }
+
+#[test]
+fn pipeline_files_take_the_column_keys() {
+    let site = Site::new();
+    site.valid_pair();
+    site.write(
+        "px.csv",
+        target_with_columns("id,px,py", |_, _| String::new()),
+    );
+    let text = "[reference]\npath = \"../reference.geojson\"\n\n[target]\npath = \"../px.csv\"\ncrs = \"local\"\n\n[output]\ndir = \"out\"\n";
+    site.write("pipelines/p.toml", text);
+    // Without the keys the message names them as keys of this survey.
+    site.expect_failure(
+        &["run", "pipelines/p.toml"],
+        2,
+        &[
+            "px.csv",
+            "no coordinate columns found",
+            "x_column and y_column",
+        ],
+    );
+    site.write(
+        "pipelines/p.toml",
+        text.replace(
+            "crs = \"local\"\n",
+            "crs = \"local\"\nx_column = \"px\"\ny_column = \"py\"\n",
+        ),
+    );
+    let out = site.run(&["run", "pipelines/p.toml"]);
+    assert_eq!(out.code, Some(0), "{out:#?}");
+    assert!(site.path("pipelines/out/transform.json").is_file());
+}
