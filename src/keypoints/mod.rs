@@ -234,9 +234,9 @@ pub enum KeypointError {
         need: &'static str,
     },
     /// The geotransform gives no usable pixel size.
-    #[error("the image's geotransform gives no pixel size ({pixel_size} map units); the raster needs a geotransform with pixels of non-zero area")]
+    #[error("the image's geotransform gives no pixel size ({pixel_size} m); the raster needs a geotransform with pixels of non-zero area")]
     NoPixelSize {
-        /// `GeoTransform::pixel_size` times the metres per unit.
+        /// `GeoTransform::pixel_size` times the metres per unit (metres).
         pixel_size: f64,
     },
     /// The feature size is not a positive length.
