@@ -21,7 +21,8 @@
 //! [`config`] holds the configuration shared by the command line and pipeline files, every
 //! option with its one default. [`image`] holds one band of a georeferenced raster in memory
 //! and converts between pixel/line and map coordinates; [`keypoints`] finds blobs in one at a
-//! scale given in metres on the ground. [`progress`] is how stages report progress. The writers
+//! scale given in metres on the ground; [`refine`] refines control points on the pixels by
+//! local image correlation, after the robust fit. [`progress`] is how stages report progress. The writers
 //! ([`emit`], [`report`]) sit on top of the outcome, never the other way round. [`synth`] makes
 //! seeded synthetic surveys for tests, benchmarks and experiments; [`experiment`] (cargo feature
 //! `experiments`) measures the signature stage.
@@ -43,6 +44,7 @@ pub mod keypoints;
 pub mod matching;
 pub mod outcome;
 pub mod progress;
+pub mod refine;
 pub mod report;
 pub mod resources;
 pub mod signatures;

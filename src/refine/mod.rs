@@ -1,0 +1,481 @@
+//! Area-based refinement of control points on the pixels.
+//!
+//! **In:** the reference and target images ([`Image`], one band each, with their
+//! geotransforms), the fitted target → reference [`Similarity`] (map coordinates), control
+//! points as reference map positions, and [`RefineParams`]. **Out:** per point either a
+//! [`Refined`] correspondence (the reference position, the target position the image
+//! correlation puts it at, the correlation value and its clarity figures, the shift the
+//! refinement made, in reference samples and map units) or a [`NotRefined`] reason (the caller
+//! keeps the fitted position then).
+//!
+//! How: around the point, a `patch_px × patch_px` patch of reference samples (on the
+//! reference's own grid, no resampling) is compared with a window of the target resampled
+//! through the inverse of the fitted transform onto the same grid (Keys' cubic convolution,
+//! [`resample`]), over whole-sample shifts of up to `search_px` each way ([`measure`]). The
+//! peak of that surface is located to a fraction of a sample ([`peak`]); the window is then
+//! resampled again at the shift found and the residual shift measured, until it is below
+//! 0.01 sample (at most `max_iterations` times). Near zero residual the per-axis peak fit is
+//! unbiased (its error vanishes at zero offset by symmetry), so the iteration removes the
+//! peak-fit bias that one pass leaves. The refined position is kept only where the final peak
+//! is clear: its value at least `min_peak`, at least `min_ratio` times the best other local
+//! maximum two or more samples away, curving down by at least `min_curvature` (per sample²,
+//! relative to the peak) in its flattest direction (refuses edges and flat patches), and not
+//! on the border of the search range.
+//!
+//! Invalid samples (no data, outside the footprint) are refused, not masked: a patch or window
+//! that needs one gives [`NotRefined::InvalidSamples`] (or [`NotRefined::OutsideReference`] /
+//! [`NotRefined::OutsideTarget`] past an image's edge).
+//!
+//! The target should be at about the reference's ground sampling distance (a raster reader can
+//! read it decimated): the resampling is a point read, without a low-pass filter against
+//! aliasing.
+//!
+//! MEASUREMENT
+//!
+//! [`refine_all`] spreads the points over the machine's cores with `std::thread::scope`, one
+//! [`Refiner`] (FFT plans and buffers) a thread, points dealt round-robin; a point costs well
+//! under a millisecond, so a thread pool would gain nothing over that and add a dependency.
+
+pub mod measure;
+pub mod peak;
+pub mod resample;
+
+pub use measure::{Correlator, Measure, Surface};
+pub use peak::{find_peak, Clarity, Peak, SubPixel};
+
+use crate::fit::similarity::Similarity;
+use crate::image::{GeoTransform, Image};
+use serde::{Deserialize, Serialize};
+
+/// The options of the refinement. [`Default`] is the tool's default; [`RefineParams::for_measure`]
+/// gives the thresholds measured for each measure (see the module doc).
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct RefineParams {
+    /// Side of the reference patch, in reference samples (even, 8 to 512).
+    pub patch_px: usize,
+    /// Largest shift searched each way, in reference samples (1 to `patch_px / 4`).
+    pub search_px: usize,
+    /// How patches are compared.
+    pub measure: Measure,
+    /// How the peak is located between samples.
+    pub subpixel: SubPixel,
+    /// Smallest peak value kept (the measure's own scale, see [`Measure`]).
+    pub min_peak: f64,
+    /// Smallest ratio of the peak to the best other local maximum.
+    pub min_ratio: f64,
+    /// Smallest curvature of the peak in its flattest direction, per sample², relative to the
+    /// peak value.
+    pub min_curvature: f64,
+    /// Most resampling passes (the first included).
+    pub max_iterations: usize,
+}
+
+impl Default for RefineParams {
+    fn default() -> Self {
+        RefineParams::for_measure(Measure::Orientation)
+    }
+}
+
+impl RefineParams {
+    /// The default patch and search sizes with the thresholds measured for `measure`.
+    pub fn for_measure(measure: Measure) -> RefineParams {
+        let (min_peak, min_ratio, min_curvature) = match measure {
+            Measure::Intensity => (0.5, 1.2, 0.02),
+            Measure::Gradient => (0.3, 1.2, 0.02),
+            Measure::Phase => (0.1, 1.5, 0.02),
+            Measure::Orientation => (0.1, 1.5, 0.02),
+        };
+        RefineParams {
+            patch_px: 32,
+            search_px: 8,
+            measure,
+            subpixel: SubPixel::Parabola,
+            min_peak,
+            min_ratio,
+            min_curvature,
+            max_iterations: 4,
+        }
+    }
+
+    /// Checks the options alone (no data needed); the error names the pipeline-file key.
+    pub fn validate(&self) -> Result<(), ParamError> {
+        let bad = |key: &'static str, value: String, want: &'static str| {
+            Err(ParamError { key, value, want })
+        };
+        if self.patch_px < 8 || self.patch_px > 512 || self.patch_px % 2 != 0 {
+            return bad(
+                "refine.patch_px",
+                self.patch_px.to_string(),
+                "an even number from 8 to 512",
+            );
+        }
+        if self.search_px < 1 || self.search_px > self.patch_px / 4 {
+            return bad(
+                "refine.search_px",
+                self.search_px.to_string(),
+                "from 1 to a quarter of refine.patch_px",
+            );
+        }
+        for (key, v) in [
+            ("refine.min_peak", self.min_peak),
+            ("refine.min_ratio", self.min_ratio),
+            ("refine.min_curvature", self.min_curvature),
+        ] {
+            if !v.is_finite() {
+                return bad(key, v.to_string(), "a finite number");
+            }
+        }
+        if self.max_iterations < 1 || self.max_iterations > 20 {
+            return bad(
+                "refine.max_iterations",
+                self.max_iterations.to_string(),
+                "from 1 to 20",
+            );
+        }
+        Ok(())
+    }
+}
+
+/// An option of the refinement out of range.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+#[error("{key} = {value} is out of range: use {want}")]
+pub struct ParamError {
+    /// The pipeline-file key.
+    pub key: &'static str,
+    /// The value given.
+    pub value: String,
+    /// What is accepted.
+    pub want: &'static str,
+}
+
+/// A control point refined on the pixels.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct Refined {
+    /// The reference map position (as given).
+    pub reference: [f64; 2],
+    /// The target map position the correlation puts it at.
+    pub target: [f64; 2],
+    /// The target map position the fitted transform put it at (before refinement).
+    pub predicted_target: [f64; 2],
+    /// The measure's value at the peak (`clarity.peak`).
+    pub correlation: f64,
+    /// The clarity figures of the final peak.
+    pub clarity: Clarity,
+    /// The shift the refinement made, in reference samples (columns, rows): the target
+    /// content of the reference point was found this far from where the fitted transform put
+    /// it, measured on the reference grid.
+    pub shift_px: [f64; 2],
+    /// The same shift in reference map units (metres in a projected CRS in metres):
+    /// transform(`target`) − transform(`predicted_target`).
+    pub shift_map: [f64; 2],
+    /// Resampling passes made.
+    pub iterations: usize,
+}
+
+impl Refined {
+    /// The length of the shift in reference map units.
+    pub fn shift_length(&self) -> f64 {
+        self.shift_map[0].hypot(self.shift_map[1])
+    }
+}
+
+/// Which image a refusal is about.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Side {
+    /// The reference image.
+    Reference,
+    /// The target image.
+    Target,
+}
+
+/// Which part of the keep test a peak failed.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Unclear {
+    /// The peak value is below `min_peak`.
+    LowPeak,
+    /// Another local maximum comes within `min_ratio` of the peak.
+    Ambiguous,
+    /// The peak is flatter than `min_curvature` in some direction (an edge or a flat patch).
+    Flat,
+    /// The maximum is on the border of the search range.
+    AtSearchEdge,
+}
+
+/// Why a control point was not refined (the caller keeps its fitted position).
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize, thiserror::Error)]
+pub enum NotRefined {
+    /// A geotransform has no inverse or the transform is not a valid similarity.
+    #[error("the geotransforms or the fitted transform cannot be inverted")]
+    NoGeometry,
+    /// The reference patch reaches past the reference image's edge.
+    #[error("the reference patch reaches past the edge of the reference image")]
+    OutsideReference,
+    /// The target window reaches past the target image's edge.
+    #[error("the target window reaches past the edge of the target image")]
+    OutsideTarget,
+    /// The patch or window needs samples that are not valid data.
+    #[error("{count} samples of the {side:?} patch are not valid data (no data or outside the footprint)")]
+    InvalidSamples {
+        /// Which image.
+        side: Side,
+        /// How many samples (or cubic-convolution reads) were invalid.
+        count: usize,
+    },
+    /// The reference patch has no contrast to correlate.
+    #[error("the reference patch is flat (no contrast to correlate)")]
+    NoTexture,
+    /// The correlation peak is not clear enough to keep.
+    #[error("the correlation peak is not clear ({test:?}: peak {:.3}, ratio {:.2}, curvature {:.3})", clarity.peak, clarity.ratio, clarity.curvature)]
+    Unclear {
+        /// The part of the test that failed first (in the order of [`Unclear`]).
+        test: Unclear,
+        /// The figures.
+        clarity: Clarity,
+    },
+    /// The shift left the search range or did not settle within `max_iterations`.
+    #[error("the refinement did not settle (shift {:.2}, {:.2} samples)", shift_px[0], shift_px[1])]
+    Unsettled {
+        /// The shift reached, in reference samples.
+        shift_px: [f64; 2],
+    },
+}
+
+/// The refinement with its FFT plans and buffers, for many points of one image pair.
+#[derive(Debug)]
+pub struct Refiner {
+    params: RefineParams,
+    correlator: Correlator,
+}
+
+/// The linear part of a geotransform applied to a sample-index displacement.
+fn linear(gt: &GeoTransform, d: [f64; 2]) -> [f64; 2] {
+    let g = &gt.0;
+    [g[1] * d[0] + g[2] * d[1], g[4] * d[0] + g[5] * d[1]]
+}
+
+impl Refiner {
+    /// Plans for `params` (assumed valid: see [`RefineParams::validate`]).
+    pub fn new(params: RefineParams) -> Refiner {
+        Refiner {
+            params,
+            correlator: Correlator::new(params.patch_px),
+        }
+    }
+
+    /// The options in use.
+    pub fn params(&self) -> &RefineParams {
+        &self.params
+    }
+
+    /// Refines one control point; see [`refine_point`].
+    pub fn refine(
+        &mut self,
+        reference: &Image,
+        target: &Image,
+        target_to_reference: &Similarity,
+        at_reference_map: [f64; 2],
+    ) -> Result<Refined, NotRefined> {
+        let prm = self.params;
+        let (p, s) = (prm.patch_px, prm.search_px);
+        let (Some(ref_inv), Some(tgt_inv)) = (
+            reference.geotransform.inverse(),
+            target.geotransform.inverse(),
+        ) else {
+            return Err(NotRefined::NoGeometry);
+        };
+        let to_target = target_to_reference.inverse();
+        if !target_to_reference.is_valid() || !to_target.is_valid() {
+            return Err(NotRefined::NoGeometry);
+        }
+        let pl = ref_inv.pixel_to_map(at_reference_map[0], at_reference_map[1]);
+        let (x, y) = (pl[0] - 0.5, pl[1] - 0.5);
+        if !(x.is_finite() && y.is_finite()) {
+            return Err(NotRefined::NoGeometry);
+        }
+        // The reference patch with its one-sample margin.
+        let nr = p + 2;
+        let (c0, r0) = (
+            x.round() as i64 - (p / 2) as i64 - 1,
+            y.round() as i64 - (p / 2) as i64 - 1,
+        );
+        if c0 < 0
+            || r0 < 0
+            || c0 + nr as i64 > reference.width as i64
+            || r0 + nr as i64 > reference.height as i64
+        {
+            return Err(NotRefined::OutsideReference);
+        }
+        let (c0, r0) = (c0 as usize, r0 as usize);
+        let mut patch = Vec::with_capacity(nr * nr);
+        let mut invalid = 0;
+        for r in r0..r0 + nr {
+            for c in c0..c0 + nr {
+                invalid += usize::from(!reference.is_valid(c, r));
+                patch.push(f64::from(reference.at(c, r)));
+            }
+        }
+        if invalid > 0 {
+            return Err(NotRefined::InvalidSamples {
+                side: Side::Reference,
+                count: invalid,
+            });
+        }
+        let m = patch.iter().sum::<f64>() / patch.len() as f64;
+        let var = patch.iter().map(|v| (v - m).powi(2)).sum::<f64>() / patch.len() as f64;
+        if var.sqrt() <= 1e-9 * (1.0 + m.abs()) {
+            return Err(NotRefined::NoTexture);
+        }
+        // The target window: (p + 2s + 2)² reference-grid positions, first sample at
+        // (c0 − s, r0 − s), moved by the shift found so far.
+        let nt = p + 2 * s + 2;
+        let mut window = vec![0.0; nt * nt];
+        let mut shift = [0.0f64; 2];
+        let mut last = None;
+        let mut iterations = 0;
+        for _ in 0..prm.max_iterations {
+            iterations += 1;
+            let (mut outside, mut invalid) = (0usize, 0usize);
+            for j in 0..nt {
+                for i in 0..nt {
+                    let sc = (c0 + i) as f64 - s as f64 + shift[0];
+                    let sr = (r0 + j) as f64 - s as f64 + shift[1];
+                    let q = to_target.apply(reference.geotransform.sample_to_map(sc, sr));
+                    let t = tgt_inv.pixel_to_map(q[0], q[1]);
+                    let (tx, ty) = (t[0] - 0.5, t[1] - 0.5);
+                    match resample::cubic(target, tx, ty) {
+                        Some(v) => window[j * nt + i] = v,
+                        None => {
+                            let inside = tx >= 1.0
+                                && ty >= 1.0
+                                && tx + 2.0 < target.width as f64
+                                && ty + 2.0 < target.height as f64;
+                            if inside {
+                                invalid += 1;
+                            } else {
+                                outside += 1;
+                            }
+                        }
+                    }
+                }
+            }
+            if outside > 0 {
+                return Err(NotRefined::OutsideTarget);
+            }
+            if invalid > 0 {
+                return Err(NotRefined::InvalidSamples {
+                    side: Side::Target,
+                    count: invalid,
+                });
+            }
+            let surface = self.correlator.surface(prm.measure, &patch, &window, s);
+            let Some(peak) = find_peak(&surface, prm.subpixel) else {
+                return Err(NotRefined::NoTexture);
+            };
+            let d = peak.shift();
+            shift = [shift[0] + d[0], shift[1] + d[1]];
+            last = Some(peak);
+            if peak.on_border {
+                break;
+            }
+            if shift[0].abs() > s as f64 || shift[1].abs() > s as f64 {
+                return Err(NotRefined::Unsettled { shift_px: shift });
+            }
+            if d[0].abs() < 0.01 && d[1].abs() < 0.01 {
+                break;
+            }
+        }
+        let peak = last.expect("at least one pass");
+        let c = peak.clarity;
+        let test = if peak.on_border {
+            Some(Unclear::AtSearchEdge)
+        } else if !(c.peak >= prm.min_peak) {
+            Some(Unclear::LowPeak)
+        } else if !(c.ratio >= prm.min_ratio) {
+            Some(Unclear::Ambiguous)
+        } else if !(c.curvature >= prm.min_curvature) {
+            Some(Unclear::Flat)
+        } else {
+            None
+        };
+        if let Some(test) = test {
+            return Err(NotRefined::Unclear { test, clarity: c });
+        }
+        let last_d = peak.shift();
+        if last_d[0].abs() >= 0.05 || last_d[1].abs() >= 0.05 {
+            return Err(NotRefined::Unsettled { shift_px: shift });
+        }
+        let predicted_target = to_target.apply(at_reference_map);
+        let moved = reference
+            .geotransform
+            .sample_to_map(x + shift[0], y + shift[1]);
+        let target_pos = to_target.apply(moved);
+        let d = linear(&reference.geotransform, shift);
+        Ok(Refined {
+            reference: at_reference_map,
+            target: target_pos,
+            predicted_target,
+            correlation: c.peak,
+            clarity: c,
+            shift_px: shift,
+            shift_map: d,
+            iterations,
+        })
+    }
+}
+
+/// Refines one control point: the reference map position `at_reference_map`, which the fitted
+/// `target_to_reference` similarity (map coordinates) puts at its inverse image in the target.
+/// Plans its FFTs anew; for many points use [`refine_all`] or a [`Refiner`].
+pub fn refine_point(
+    reference: &Image,
+    target: &Image,
+    target_to_reference: &Similarity,
+    at_reference_map: [f64; 2],
+    params: &RefineParams,
+) -> Result<Refined, NotRefined> {
+    Refiner::new(*params).refine(reference, target, target_to_reference, at_reference_map)
+}
+
+/// Refines every point (reference map positions), in order, on all cores (see the module doc).
+pub fn refine_all(
+    reference: &Image,
+    target: &Image,
+    target_to_reference: &Similarity,
+    points: &[[f64; 2]],
+    params: &RefineParams,
+) -> Vec<Result<Refined, NotRefined>> {
+    let threads = std::thread::available_parallelism()
+        .map_or(1, |n| n.get())
+        .min(points.len().div_ceil(8))
+        .max(1);
+    let run = |k: usize| {
+        let mut refiner = Refiner::new(*params);
+        (k..points.len())
+            .step_by(threads)
+            .map(|i| {
+                (
+                    i,
+                    refiner.refine(reference, target, target_to_reference, points[i]),
+                )
+            })
+            .collect::<Vec<_>>()
+    };
+    if threads == 1 {
+        return run(0).into_iter().map(|(_, r)| r).collect();
+    }
+    let mut out: Vec<Option<Result<Refined, NotRefined>>> = vec![None; points.len()];
+    std::thread::scope(|scope| {
+        let handles: Vec<_> = (0..threads).map(|k| scope.spawn(move || run(k))).collect();
+        for h in handles {
+            for (i, r) in h.join().expect("refinement thread panicked") {
+                out[i] = Some(r);
+            }
+        }
+    });
+    out.into_iter()
+        .map(|r| r.expect("every point refined"))
+        .collect()
+}
