@@ -33,15 +33,21 @@ pub enum Measure {
     /// Orientation correlation (Fitch et al. 2002): the mean cosine of the angle between the
     /// gradient directions at corresponding samples, in [−1, 1].
     Orientation,
+    /// Orientation correlation of the doubled gradient angles (sgn(g)², g = ∂I/∂x + i·∂I/∂y):
+    /// the mean cosine of twice the angle between the gradient directions, in [−1, 1]. Blind to
+    /// the sign of the gradient, so an edge whose contrast is reversed between the two images
+    /// (vegetation against soil in red and near infrared) still counts.
+    AxialOrientation,
 }
 
 impl Measure {
     /// Every measure, in the order the module doc's table lists them.
-    pub const ALL: [Measure; 4] = [
+    pub const ALL: [Measure; 5] = [
         Measure::Intensity,
         Measure::Gradient,
         Measure::Phase,
         Measure::Orientation,
+        Measure::AxialOrientation,
     ];
 
     /// The name used in pipeline files and reports.
@@ -51,6 +57,7 @@ impl Measure {
             Measure::Gradient => "gradient",
             Measure::Phase => "phase",
             Measure::Orientation => "orientation",
+            Measure::AxialOrientation => "axial-orientation",
         }
     }
 }
@@ -265,12 +272,14 @@ impl Correlator {
                 self.cross_power(true);
                 self.read_surface(s, 1.0 / (p * p) as f64)
             }
-            Measure::Orientation => {
+            Measure::Orientation | Measure::AxialOrientation => {
                 let t = gradients(reference, nr);
                 let w = centre(&gradients(target, nt), p + 2 * s, s, p);
+                let axial = measure == Measure::AxialOrientation;
+                let f = |g| if axial { unit(g) * unit(g) } else { unit(g) };
                 for i in 0..p * p {
-                    self.a[i] = unit(t[i]);
-                    self.b[i] = unit(w[i]);
+                    self.a[i] = f(t[i]);
+                    self.b[i] = f(w[i]);
                 }
                 self.cross_power(false);
                 // The unnormalised inverse transform gives p² times the cyclic correlation, a sum
