@@ -121,7 +121,7 @@ pub fn find_peak(surface: &Surface, sub: SubPixel) -> Option<Peak> {
         }
         let local_max = (-1..=1).all(|j| {
             (-1..=1)
-                .all(|k| (j == 0 && k == 0) || surface.at(x + k, y + j).is_none_or(|w| !(w > val)))
+                .all(|k| (j == 0 && k == 0) || surface.at(x + k, y + j).is_none_or(|w| w <= val))
         });
         if local_max {
             second = val;
