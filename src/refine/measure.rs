@@ -6,13 +6,14 @@
 //! (p = patch side, s = search radius). **Out:** a [`Surface`] of `(2s + 1)²` values, where
 //! the value at shift (dx, dy) compares the reference at u with the target at u + (dx, dy).
 //!
-//! Four measures ([`Measure`]): zero-mean normalised cross-correlation of the intensities
+//! Five measures ([`Measure`]): zero-mean normalised cross-correlation of the intensities
 //! (Lewis 1995; computed directly, normalised at each shift), the same of the gradient vectors,
-//! phase correlation (Kuglin & Hines 1975; Hann-windowed p × p windows), and orientation
+//! phase correlation (Kuglin & Hines 1975; Hann-windowed p × p windows), orientation
 //! correlation (Fitch, Kadyrov, Christmas & Kittler, BMVC 2002: the correlation of the unit
-//! gradient directions, sgn(∂I/∂x + i·∂I/∂y)). The FFT measures compare the central p × p of
-//! the target window with the reference patch, cyclically; the direct ones slide the p × p
-//! reference over the larger target window.
+//! gradient directions, sgn(∂I/∂x + i·∂I/∂y)), and the same of the doubled angles (blind to a
+//! reversal of contrast). The FFT measures (phase, both orientations) compare the central
+//! p × p of the target window with the reference patch, cyclically; the direct ones slide the
+//! p × p reference over the larger target window.
 
 use rustfft::num_complex::Complex64;
 use rustfft::{Fft, FftPlanner};
