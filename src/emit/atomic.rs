@@ -1,24 +1,43 @@
 //! Atomic output: the one place where tiemark puts its files in place.
 //!
 //! **In:** new files, written into a hidden staging folder ([`Staging`]) or, for a single
-//! file, by a writer given a temporary path ([`write_file`]).
+//! file, by a writer given a temporary path ([`write_file`]), and what the output may replace
+//! ([`Mode`]).
 //! **Out:** the files at their final paths, either all of them or none: on any error the
 //! output folder (or file) is left as it was, and nothing tiemark made is left behind (but for
 //! parent folders of the output it had to create).
 //!
-//! Beside an output folder or file `NAME` (in the same parent folder) these hidden names are
-//! used, `PID` being the process id:
+//! For an output folder or file `NAME` these hidden names are used, `HOST` being this
+//! machine's name (every character but letters and digits replaced by `_`), `PID` the process
+//! id and `N` a count within the process:
 //!
-//! - `.NAME.tiemark-partial-PID`: the staging folder where the new files are written
+//! - `.NAME.tiemark-partial-HOST-PID-N`: the staging folder where the new files are written
 //!   ([`Staging`]); for a single file, the temporary file (with `NAME`'s extension appended,
-//!   for drivers that go by the extension).
+//!   for drivers that go by the extension). Also, for a moment, the probe that checks before
+//!   any work that the output can be written ([`probe`]).
 //! - `.NAME.tiemark-backup-PID`: while the new files go into an existing folder, the previous
 //!   tiemark files moved aside ([`put_in_place`]).
 //! - `.NAME.tiemark-discard-PID`: the same folder once every new file is in place, being
 //!   deleted.
 //!
-//! Only the files a caller names are moved; every other file in an existing output folder is
-//! left untouched.
+//! They are made in the output's parent folder, so that every move is a rename within one
+//! file system; when the output folder exists and is on another device than its parent (a
+//! mount point), inside the output folder instead. A rename never crosses devices.
+//!
+//! A new output folder is claimed exclusively: it is made by renaming the staging folder to
+//! it, which fails when another run (or program) made it meanwhile, and then nothing is
+//! written. Into an existing empty folder ([`Mode::Fresh`]) every file goes in without
+//! replacing anything ([`move_no_replace`]). Only the files a caller names are moved; every
+//! other file in an existing output folder is left untouched.
+//!
+//! # Interrupts and stale leftovers
+//!
+//! Every staging folder and temporary file is registered while it exists; on SIGINT, SIGTERM
+//! or SIGHUP the binary's signal watcher calls [`remove_leftovers`], which waits for moves in
+//! progress (milliseconds) to finish and removes them. A staging folder or temporary file of
+//! this machine whose process is no longer alive (killed with `kill -9`, power loss) is removed
+//! the next time a run stages in the same folder; one of another machine (a shared network
+//! folder) is left alone.
 //!
 //! # After a crash
 //!
@@ -27,22 +46,25 @@
 //! moment:
 //!
 //! - no backup or discard folder: the output is as it was (or, if it did not exist, complete);
-//!   delete any `.NAME.tiemark-partial-PID` folder or file.
+//!   any `.NAME.tiemark-partial-…` folder or file is removed by the next run (or delete it).
 //! - a `.NAME.tiemark-backup-PID` folder: the move was interrupted and the output folder may
 //!   hold a mix of previous and new tiemark files. The backup folder holds the previous version
 //!   of every tiemark file moved aside so far; moving all of its files back into the output
 //!   folder (replacing files of the same name) restores the previous outputs (a new file that
 //!   had no previous version stays: delete it if it is unwanted). Or run tiemark again for a
-//!   complete new set. Then delete the backup and `.NAME.tiemark-partial-PID` folders.
+//!   complete new set. Then delete the backup folder.
 //! - a `.NAME.tiemark-discard-PID` folder and no backup folder: the new files were all in
-//!   place; delete it and any `.NAME.tiemark-partial-PID` folder.
+//!   place; delete it.
 //!
 //! A new folder (the output folder did not exist) is put in place by one rename, so a crash
-//! leaves either no output folder or the complete one.
+//! leaves either no output folder or the complete one. Into an existing empty folder a crash
+//! may leave some of the new files: delete them or run again with `--force`.
 
 use super::EmitError;
 use std::io;
 use std::path::{Path, PathBuf};
+use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
+use std::sync::{Mutex, MutexGuard, OnceLock};
 
 /// A file-system step failed: where, and why; the message says what to do.
 #[derive(Debug)]
@@ -54,7 +76,7 @@ pub(crate) struct Failure {
 }
 
 impl Failure {
-    fn new(path: &Path, source: io::Error) -> Failure {
+    pub(crate) fn new(path: &Path, source: io::Error) -> Failure {
         Failure {
             path: path.to_path_buf(),
             source,
@@ -63,24 +85,55 @@ impl Failure {
 
     /// "`step` failed: `source`; `advice`", of `source`'s kind.
     fn failed(path: &Path, step: &str, source: io::Error, advice: &str) -> Failure {
+        let kind = source.kind();
+        let full = disk_full(&source);
+        let mut message = format!("{step} failed: {source}; {advice}");
+        if full {
+            message = format!("disk full: {message}");
+        }
         Failure {
             path: path.to_path_buf(),
-            source: io::Error::new(source.kind(), format!("{step} failed: {source}; {advice}")),
+            source: io::Error::new(kind, message),
         }
     }
 }
 
 impl From<Failure> for EmitError {
     fn from(f: Failure) -> EmitError {
-        EmitError::Io {
-            path: f.path,
-            source: f.source,
-        }
+        EmitError::from_io(&f.path, f.source)
     }
+}
+
+/// The disk (or the user's quota on it) is full: ENOSPC or EDQUOT, or a message of one
+/// carried through another error.
+pub(crate) fn disk_full(e: &io::Error) -> bool {
+    // 28 and 122 are ENOSPC and EDQUOT on Linux (asm-generic/errno-base.h, errno.h).
+    matches!(
+        e.kind(),
+        io::ErrorKind::StorageFull | io::ErrorKind::QuotaExceeded
+    ) || matches!(e.raw_os_error(), Some(28) | Some(122))
+        || disk_full_text(&e.to_string())
+}
+
+/// A message that says the disk or quota is full (the OS's words, or SQLite's for a
+/// GeoPackage).
+pub(crate) fn disk_full_text(message: &str) -> bool {
+    let m = message.to_ascii_lowercase();
+    [
+        "no space left on device",
+        "disk quota exceeded",
+        "database or disk is full",
+        "disk full",
+    ]
+    .iter()
+    .any(|w| m.contains(w))
 }
 
 /// One rename step: from, to.
 type Rename<'a> = &'a mut dyn FnMut(&Path, &Path) -> io::Result<()>;
+
+/// The device a folder is on (`None`: not an existing folder); tests inject other devices.
+type Device<'a> = &'a dyn Fn(&Path) -> Option<u64>;
 
 fn parent_of(target: &Path) -> PathBuf {
     match target.parent() {
@@ -89,37 +142,233 @@ fn parent_of(target: &Path) -> PathBuf {
     }
 }
 
-/// `.NAME.tiemark-TAG-PID` beside `target`.
-fn hidden_beside(target: &Path, tag: &str) -> PathBuf {
-    let name = target
+fn name_of(target: &Path) -> String {
+    target
         .file_name()
         .map(|n| n.to_string_lossy().to_string())
-        .unwrap_or_default();
-    parent_of(target).join(format!(".{name}.tiemark-{tag}-{}", std::process::id()))
+        .unwrap_or_default()
+}
+
+/// `.NAME.tiemark-TAG-PID` in `home`.
+fn hidden_in(home: &Path, target: &Path, tag: &str) -> PathBuf {
+    home.join(format!(
+        ".{}.tiemark-{tag}-{}",
+        name_of(target),
+        std::process::id()
+    ))
+}
+
+/// This machine's name with every character but ASCII letters and digits replaced by `_`.
+fn host() -> &'static str {
+    static HOST: OnceLock<String> = OnceLock::new();
+    HOST.get_or_init(|| {
+        let raw = std::fs::read_to_string("/proc/sys/kernel/hostname")
+            .or_else(|_| std::fs::read_to_string("/etc/hostname"))
+            .unwrap_or_default();
+        let name: String = raw
+            .trim()
+            .chars()
+            .map(|c| if c.is_ascii_alphanumeric() { c } else { '_' })
+            .collect();
+        if name.is_empty() {
+            "host".to_string()
+        } else {
+            name
+        }
+    })
+}
+
+const PARTIAL: &str = ".tiemark-partial-";
+
+/// `.NAME.tiemark-partial-HOST-PID-N` in `home`, with a new `N`.
+fn partial_in(home: &Path, target: &Path) -> PathBuf {
+    static COUNT: AtomicUsize = AtomicUsize::new(0);
+    let n = COUNT.fetch_add(1, Ordering::Relaxed);
+    home.join(format!(
+        ".{}{PARTIAL}{}-{}-{n}",
+        name_of(target),
+        host(),
+        std::process::id()
+    ))
+}
+
+/// The process id in a staging name of this machine (`None`: not one, or another machine's).
+fn partial_pid(file_name: &str) -> Option<u32> {
+    let rest = &file_name[file_name.rfind(PARTIAL)? + PARTIAL.len()..];
+    let mut parts = rest.splitn(3, '-');
+    if parts.next()? != host() {
+        return None;
+    }
+    parts.next()?.parse().ok()
+}
+
+/// Whether process `pid` of this machine is alive; true when that cannot be told (no
+/// `/proc`), so that nothing is removed on a guess.
+fn alive(pid: u32) -> bool {
+    !Path::new("/proc/self").exists() || Path::new("/proc").join(pid.to_string()).exists()
+}
+
+/// Removes the staging folders and temporary files in `home` left by dead runs of this
+/// machine (best effort: what cannot be removed stays).
+fn clear_stale(home: &Path) {
+    let own = std::process::id();
+    for entry in std::fs::read_dir(home).into_iter().flatten().flatten() {
+        let name = entry.file_name().to_string_lossy().to_string();
+        if let Some(pid) = partial_pid(&name) {
+            if pid != own && !alive(pid) {
+                remove_hidden(&entry.path());
+            }
+        }
+    }
+}
+
+/// Removes a staging folder, or a temporary file and every file beside it whose name starts
+/// with its name (a GeoPackage's `-journal`). A folder is retried a few times, as a writer
+/// may still be making files in it.
+fn remove_hidden(path: &Path) {
+    match std::fs::symlink_metadata(path) {
+        Ok(m) if m.is_dir() => {
+            for _ in 0..20 {
+                if std::fs::remove_dir_all(path).is_ok() || !exists(path) {
+                    return;
+                }
+                std::thread::sleep(std::time::Duration::from_millis(5));
+            }
+        }
+        _ => {
+            let _ = std::fs::remove_file(path);
+            let stem = name_of(path);
+            let parent = parent_of(path);
+            for entry in std::fs::read_dir(&parent).into_iter().flatten().flatten() {
+                if !stem.is_empty() && entry.file_name().to_string_lossy().starts_with(&stem) {
+                    let _ = std::fs::remove_file(entry.path());
+                }
+            }
+        }
+    }
+}
+
+/// Staging folders and temporary files of this process that exist now.
+static LEFTOVERS: Mutex<Vec<PathBuf>> = Mutex::new(Vec::new());
+/// Held while files move into place, so that an interrupt lets the moves finish.
+static MOVING: Mutex<()> = Mutex::new(());
+
+fn lock<T>(m: &Mutex<T>) -> MutexGuard<'_, T> {
+    m.lock().unwrap_or_else(|poisoned| poisoned.into_inner())
+}
+
+fn register(path: &Path) {
+    lock(&LEFTOVERS).push(path.to_path_buf());
+}
+
+fn unregister(path: &Path) {
+    lock(&LEFTOVERS).retain(|p| p != path);
+}
+
+/// Set once an output of this process is completely in place.
+static COMPLETED: AtomicBool = AtomicBool::new(false);
+
+/// What [`remove_leftovers`] found.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Leftovers {
+    /// Staging folders and temporary files removed.
+    pub removed: usize,
+    /// Whether an output of this process was already completely in place.
+    pub completed: bool,
+}
+
+/// Removes every staging folder and temporary file of this process, after any move into
+/// place in progress has finished; for a signal watcher that ends the process right after.
+/// Holds the registry until the process ends, so no new staging folder is made meanwhile.
+pub fn remove_leftovers() -> Leftovers {
+    let moving = lock(&MOVING);
+    let leftovers = lock(&LEFTOVERS);
+    for p in leftovers.iter() {
+        remove_hidden(p);
+    }
+    let found = Leftovers {
+        removed: leftovers.len(),
+        completed: COMPLETED.load(Ordering::SeqCst),
+    };
+    std::mem::forget(leftovers);
+    std::mem::forget(moving);
+    found
 }
 
 fn exists(path: &Path) -> bool {
     std::fs::symlink_metadata(path).is_ok()
 }
 
-/// A hidden staging folder beside `target`, removed on drop unless committed.
+/// The device of an existing folder.
+fn device(path: &Path) -> Option<u64> {
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::MetadataExt;
+        std::fs::metadata(path)
+            .ok()
+            .filter(|m| m.is_dir())
+            .map(|m| m.dev())
+    }
+    #[cfg(not(unix))]
+    {
+        let _ = path;
+        None
+    }
+}
+
+/// Where the hidden folders of `target` go so that every rename stays on one device: its
+/// parent, or `target` itself when it is an existing folder on another device than its parent
+/// (a mount point).
+fn home_of(target: &Path, device: Device) -> PathBuf {
+    let parent = parent_of(target);
+    match (device(target), device(&parent)) {
+        (Some(t), Some(p)) if t != p => target.to_path_buf(),
+        _ => parent,
+    }
+}
+
+/// What the output folder or file may hold when the new files go in.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub(crate) enum Mode {
+    /// New or empty (no `--force`): nothing is replaced; if another run, or another program,
+    /// made the folder or put a file in it meanwhile, nothing is moved.
+    Fresh,
+    /// Replace tiemark's files there (`--force`), all of them or none.
+    Replace,
+}
+
+/// A hidden staging folder for an output folder, removed on drop unless committed.
 pub(crate) struct Staging {
     pub(crate) path: PathBuf,
+    /// The folder it is in (see [`home_of`]); backup and discard folders go there too.
+    home: PathBuf,
     done: bool,
 }
 
 impl Staging {
-    /// Makes `.NAME.tiemark-partial-PID` beside `target` (and `target`'s parent folders),
-    /// replacing a stale one of the same name.
-    pub(crate) fn beside(target: &Path) -> Result<Staging, Failure> {
+    /// Makes a staging folder for the output folder `target` (and `target`'s parent folders)
+    /// where every rename into `target` stays on one device, after removing stale ones of
+    /// dead runs there.
+    pub(crate) fn for_target(target: &Path) -> Result<Staging, Failure> {
+        Staging::for_target_with(target, &device)
+    }
+
+    fn for_target_with(target: &Path, device: Device) -> Result<Staging, Failure> {
         let parent = parent_of(target);
         std::fs::create_dir_all(&parent).map_err(|e| Failure::new(&parent, e))?;
-        let path = hidden_beside(target, "partial");
-        if exists(&path) {
-            std::fs::remove_dir_all(&path).map_err(|e| Failure::new(&path, e))?;
+        let home = home_of(target, device);
+        clear_stale(&home);
+        let path = partial_in(&home, target);
+        register(&path);
+        if let Err(e) = std::fs::create_dir(&path) {
+            unregister(&path);
+            return Err(Failure::new(&path, e));
         }
-        std::fs::create_dir(&path).map_err(|e| Failure::new(&path, e))?;
-        Ok(Staging { path, done: false })
+        Ok(Staging {
+            path,
+            home,
+            done: false,
+        })
     }
 }
 
@@ -128,14 +377,81 @@ impl Drop for Staging {
         if !self.done {
             let _ = std::fs::remove_dir_all(&self.path);
         }
+        unregister(&self.path);
     }
+}
+
+/// Checks that the output `target` (a folder or file, existing or not) can be written: makes
+/// and removes a hidden folder with a small file where its staging folder will go (the
+/// nearest existing folder on the way there) and, for an existing folder, inside it. Writes
+/// nothing that stays.
+pub(crate) fn probe(target: &Path, folder: bool) -> Result<(), Failure> {
+    let mut places = vec![home_of(target, &device)];
+    if folder && device(target).is_some() {
+        places.push(target.to_path_buf());
+    }
+    for place in places {
+        let mut at = place.as_path();
+        while !exists(at) {
+            match at.parent() {
+                Some(p) if !p.as_os_str().is_empty() => at = p,
+                _ => {
+                    at = Path::new(".");
+                    break;
+                }
+            }
+        }
+        let dir = partial_in(at, target);
+        register(&dir);
+        let made = std::fs::create_dir(&dir)
+            .and_then(|()| std::fs::write(dir.join("probe"), b"tiemark"))
+            .map_err(|e| {
+                Failure::failed(
+                    at,
+                    "making a trial folder",
+                    e,
+                    "nothing was done: choose another output, or fix the permissions",
+                )
+            });
+        let _ = std::fs::remove_dir_all(&dir);
+        unregister(&dir);
+        made?;
+    }
+    Ok(())
+}
+
+/// Moves `from` to `to` unless `to` exists (then `AlreadyExists`, `from` untouched): a hard
+/// link then removing `from`, which cannot replace anything; on a file system without hard
+/// links, a check for `to` then `rename`.
+fn move_no_replace(from: &Path, to: &Path, rename: Rename) -> io::Result<()> {
+    match std::fs::hard_link(from, to) {
+        Ok(()) => {
+            // A left-over link in the staging folder goes with it.
+            let _ = std::fs::remove_file(from);
+            Ok(())
+        }
+        Err(e) if e.kind() == io::ErrorKind::AlreadyExists => Err(e),
+        Err(_) if exists(to) => Err(io::Error::from(io::ErrorKind::AlreadyExists)),
+        Err(_) => rename(from, to),
+    }
+}
+
+/// The message of a folder that another run (or program) made or wrote into meanwhile.
+fn taken(target: &Path, what: &str) -> String {
+    format!(
+        "{what} while this run worked; nothing was written: choose another output folder and \
+         run again, or set --force to replace tiemark's files in {}",
+        target.display()
+    )
 }
 
 /// Puts the files `names` of `staging` into the folder `target`, all of them or none.
 ///
-/// When `target` does not exist the staging folder is renamed to it (one atomic step). When
-/// it is a folder, the tiemark files among `names` already in it are moved into a hidden
-/// backup folder beside it, the new ones (those of `names` the staging folder holds) are moved
+/// When `target` does not exist the staging folder is renamed to it (one atomic step, which
+/// fails if another run made it meanwhile). When it is a folder: with [`Mode::Fresh`] it must
+/// be empty (but for the staging folder) and the new files go in without replacing anything;
+/// with [`Mode::Replace`] the tiemark files among `names` already in it are moved into a
+/// hidden backup folder, the new ones (those of `names` the staging folder holds) are moved
 /// in, and the backup is renamed to a discard folder and deleted. On any failure every step
 /// done so far is undone (new files back out, previous ones back in) and the error names the
 /// file and what to do; if undoing fails too, the error names the backup folder holding the
@@ -143,10 +459,16 @@ impl Drop for Staging {
 /// touched. Refused before anything moves: `target` being a file, a folder in `target` under
 /// one of `names`, and a backup folder of this process id left by an interrupted run (one of
 /// another id is not looked for).
-pub(crate) fn put_in_place(staging: Staging, target: &Path, names: &[&str]) -> Result<(), Failure> {
-    put_in_place_with(staging, target, names, &mut |from, to| {
+pub(crate) fn put_in_place(
+    staging: Staging,
+    target: &Path,
+    names: &[&str],
+    mode: Mode,
+) -> Result<(), Failure> {
+    put_in_place_with(staging, target, names, mode, &mut |from, to| {
         std::fs::rename(from, to)
     })
+    .inspect(|()| COMPLETED.store(true, Ordering::SeqCst))
 }
 
 /// [`put_in_place`] with every rename done by `rename` (tests inject failures here).
@@ -154,12 +476,35 @@ fn put_in_place_with(
     mut staging: Staging,
     target: &Path,
     names: &[&str],
+    mode: Mode,
     rename: Rename,
 ) -> Result<(), Failure> {
+    let _moving = lock(&MOVING);
     match std::fs::metadata(target) {
         Err(e) if e.kind() == io::ErrorKind::NotFound => {
-            rename(&staging.path, target).map_err(|e| {
-                Failure::failed(
+            return match rename(&staging.path, target) {
+                Ok(()) => {
+                    staging.done = true;
+                    Ok(())
+                }
+                Err(e)
+                    if matches!(
+                        e.kind(),
+                        io::ErrorKind::AlreadyExists | io::ErrorKind::DirectoryNotEmpty
+                    ) =>
+                {
+                    Err(Failure::new(
+                        target,
+                        io::Error::new(
+                            io::ErrorKind::AlreadyExists,
+                            taken(
+                                target,
+                                "another run of tiemark (or another program) made this folder",
+                            ),
+                        ),
+                    ))
+                }
+                Err(e) => Err(Failure::failed(
                     target,
                     &format!(
                         "moving the new output folder into place from {}",
@@ -167,10 +512,8 @@ fn put_in_place_with(
                     ),
                     e,
                     "nothing was written: fix the cause and run again",
-                )
-            })?;
-            staging.done = true;
-            return Ok(());
+                )),
+            };
         }
         Err(e) => return Err(Failure::new(target, e)),
         Ok(m) if !m.is_dir() => {
@@ -183,6 +526,9 @@ fn put_in_place_with(
             ))
         }
         Ok(_) => {}
+    }
+    if mode == Mode::Fresh {
+        return fill_empty(&staging, target, names, rename);
     }
     let mut previous = Vec::new();
     for name in names {
@@ -208,8 +554,8 @@ fn put_in_place_with(
         .copied()
         .filter(|n| exists(&staging.path.join(n)))
         .collect();
-    let backup = hidden_beside(target, "backup");
-    let discard = hidden_beside(target, "discard");
+    let backup = hidden_in(&staging.home, target, "backup");
+    let discard = hidden_in(&staging.home, target, "discard");
     if exists(&discard) {
         std::fs::remove_dir_all(&discard).map_err(|e| Failure::new(&discard, e))?;
     }
@@ -341,77 +687,218 @@ fn swap<'n>(
     })
 }
 
+/// The [`Mode::Fresh`] moves into an existing folder: refused if it holds anything but the
+/// staging folder; else each new file goes in without replacing anything, and if one cannot
+/// (a file of that name appeared) those moved so far go back.
+fn fill_empty(
+    staging: &Staging,
+    target: &Path,
+    names: &[&str],
+    rename: Rename,
+) -> Result<(), Failure> {
+    let entries = std::fs::read_dir(target).map_err(|e| Failure::new(target, e))?;
+    for entry in entries {
+        let entry = entry.map_err(|e| Failure::new(target, e))?;
+        if entry.path() != staging.path {
+            return Err(Failure::new(
+                target,
+                io::Error::new(
+                    io::ErrorKind::AlreadyExists,
+                    taken(
+                        target,
+                        &format!(
+                            "another run of tiemark (or another program) put {} in this folder",
+                            entry.file_name().to_string_lossy()
+                        ),
+                    ),
+                ),
+            ));
+        }
+    }
+    let mut moved: Vec<&str> = Vec::new();
+    for name in names.iter().filter(|n| exists(&staging.path.join(n))) {
+        let to = target.join(name);
+        if let Err(e) = move_no_replace(&staging.path.join(name), &to, rename) {
+            let mut stuck = Vec::new();
+            for done in moved.iter().rev() {
+                if let Err(u) = rename(&target.join(done), &staging.path.join(done)) {
+                    stuck.push(format!("{}: {u}", target.join(done).display()));
+                }
+            }
+            let advice = if stuck.is_empty() {
+                format!("{} was left as it was", target.display())
+            } else {
+                format!(
+                    "undoing the move failed too ({}): delete those new files",
+                    stuck.join("; ")
+                )
+            };
+            if e.kind() == io::ErrorKind::AlreadyExists {
+                return Err(Failure::new(
+                    &to,
+                    io::Error::new(
+                        io::ErrorKind::AlreadyExists,
+                        format!(
+                            "{}; {advice}",
+                            taken(
+                                target,
+                                "another run of tiemark (or another program) made a file of this name",
+                            )
+                        ),
+                    ),
+                ));
+            }
+            return Err(Failure::failed(
+                &to,
+                &format!("moving the new file in from {}", staging.path.display()),
+                e,
+                &format!("{advice}: fix the cause and run again"),
+            ));
+        }
+        moved.push(name);
+    }
+    Ok(())
+}
+
+/// The destinations a front end checked, and what each may replace; [`write_set`] looks its
+/// folder up here.
+static CLAIMED: Mutex<Vec<(PathBuf, Mode)>> = Mutex::new(Vec::new());
+
+/// Records that the output folder `resolved` was checked and may be written with `mode`.
+pub(crate) fn claim(resolved: &Path, mode: Mode) {
+    let mut claimed = lock(&CLAIMED);
+    claimed.retain(|(p, _)| p != resolved);
+    claimed.push((resolved.to_path_buf(), mode));
+}
+
+/// The mode a front end checked `dir` for; [`Mode::Fresh`] if none did.
+fn claimed_mode(dir: &Path) -> Mode {
+    let resolved = super::destination::resolve(dir).unwrap_or_else(|_| dir.to_path_buf());
+    lock(&CLAIMED)
+        .iter()
+        .find(|(p, _)| *p == resolved)
+        .map_or(Mode::Fresh, |(_, m)| *m)
+}
+
 /// Writes the files `(name, contents)` into the folder `dir`, all of them or none (a staging
-/// folder beside `dir`, then [`put_in_place`]); other files in `dir` are kept. Returns the
-/// final paths, in order.
+/// folder for `dir`, then [`put_in_place`]); other files in `dir` are kept. What may be
+/// replaced: what the front end checked `dir` for (`emit::check_output_dir`), else nothing
+/// (`dir` must be new or empty). Returns the final paths, in order.
 #[cfg_attr(not(feature = "experiments"), allow(dead_code))]
 pub(crate) fn write_set(dir: &Path, files: &[(&str, &[u8])]) -> Result<Vec<PathBuf>, Failure> {
-    let staging = Staging::beside(dir)?;
+    write_set_with(dir, files, claimed_mode(dir), &mut |p, c| {
+        std::fs::write(p, c)
+    })
+}
+
+/// [`write_set`] with every file written by `write` (tests inject failures here).
+fn write_set_with(
+    dir: &Path,
+    files: &[(&str, &[u8])],
+    mode: Mode,
+    write: &mut dyn FnMut(&Path, &[u8]) -> io::Result<()>,
+) -> Result<Vec<PathBuf>, Failure> {
+    let staging = Staging::for_target(dir)?;
     for (name, contents) in files {
         let p = staging.path.join(name);
-        std::fs::write(&p, contents).map_err(|e| Failure::new(&p, e))?;
+        write(&p, contents).map_err(|e| {
+            Failure::failed(
+                &p,
+                "writing the new file",
+                e,
+                &format!("nothing was written to {}", dir.display()),
+            )
+        })?;
     }
     let names: Vec<&str> = files.iter().map(|(n, _)| *n).collect();
-    put_in_place(staging, dir, &names)?;
+    put_in_place(staging, dir, &names, mode)?;
     Ok(names.iter().map(|n| dir.join(n)).collect())
 }
 
 /// Writes one file atomically: `write` makes it at a temporary path in the same folder
-/// (`.NAME.tiemark-partial-PID.EXT`), which is then renamed to `path`, replacing a file there.
-/// On any error the temporary file and anything `write` made named after it (a GeoPackage's
+/// (`.NAME.tiemark-partial-HOST-PID-N.EXT`), which is then moved to `path` ([`Mode::Fresh`]:
+/// only if no file is there by then; [`Mode::Replace`]: replacing the file there). On any
+/// error the temporary file and anything `write` made named after it (a GeoPackage's
 /// `-journal`) are removed, and `path` is as it was. Creates `path`'s parent folders.
 pub(crate) fn write_file<E: From<Failure>>(
     path: &Path,
+    mode: Mode,
     write: impl FnOnce(&Path) -> Result<(), E>,
 ) -> Result<(), E> {
-    write_file_with(path, write, &mut |from, to| std::fs::rename(from, to))
+    write_file_with(path, mode, write, &mut |from, to| std::fs::rename(from, to))
+        .inspect(|()| COMPLETED.store(true, Ordering::SeqCst))
 }
 
 /// [`write_file`] with the rename done by `rename` (tests inject failures here).
 fn write_file_with<E: From<Failure>>(
     path: &Path,
+    mode: Mode,
     write: impl FnOnce(&Path) -> Result<(), E>,
     rename: Rename,
 ) -> Result<(), E> {
     let parent = parent_of(path);
     std::fs::create_dir_all(&parent).map_err(|e| Failure::new(&parent, e))?;
-    let mut temp = hidden_beside(path, "partial").into_os_string();
+    clear_stale(&parent);
+    let mut temp = partial_in(&parent, path).into_os_string();
     if let Some(ext) = path.extension() {
         temp.push(".");
         temp.push(ext);
     }
     let temp = PathBuf::from(temp);
-    let clean = || {
-        let Some(stem) = temp.file_name() else { return };
-        let stem = stem.to_string_lossy();
-        for entry in std::fs::read_dir(&parent).into_iter().flatten().flatten() {
-            if entry.file_name().to_string_lossy().starts_with(&*stem) {
-                let _ = std::fs::remove_file(entry.path());
-            }
+    register(&temp);
+    let result = (|| {
+        if let Err(e) = write(&temp) {
+            return Err(e);
         }
-    };
-    clean();
-    if let Err(e) = write(&temp) {
-        clean();
-        return Err(e);
-    }
-    if let Err(e) = rename(&temp, path) {
-        clean();
-        return Err(Failure::failed(
-            path,
-            &format!("moving the new file into place from {}", temp.display()),
-            e,
-            "the file was left as it was: fix the cause and run again",
-        )
-        .into());
-    }
-    Ok(())
+        let _moving = lock(&MOVING);
+        let moved = match mode {
+            Mode::Fresh => move_no_replace(&temp, path, rename),
+            Mode::Replace => match std::fs::symlink_metadata(path) {
+                Ok(m) if !m.is_file() => Err(io::Error::new(
+                    io::ErrorKind::AlreadyExists,
+                    "it is not a regular file",
+                )),
+                _ => rename(&temp, path),
+            },
+        };
+        moved.map_err(|e| {
+            let advice = "the file was left as it was: fix the cause and run again";
+            if mode == Mode::Fresh && e.kind() == io::ErrorKind::AlreadyExists {
+                Failure::new(
+                    path,
+                    io::Error::new(
+                        io::ErrorKind::AlreadyExists,
+                        "this file was made by another run (or program) while this run worked; \
+                         nothing was written: choose another output file, or set --force to \
+                         replace it",
+                    ),
+                )
+                .into()
+            } else {
+                Failure::failed(
+                    path,
+                    &format!("moving the new file into place from {}", temp.display()),
+                    e,
+                    advice,
+                )
+                .into()
+            }
+        })
+    })();
+    remove_hidden(&temp);
+    unregister(&temp);
+    result
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
     use std::collections::BTreeMap;
+
+    /// `.NAME.tiemark-TAG-PID` in `target`'s parent.
+    fn hidden_beside(target: &Path, tag: &str) -> PathBuf {
+        hidden_in(&parent_of(target), target, tag)
+    }
 
     /// The four files of a match, as in `emit::FILES`.
     const NAMES: [&str; 4] = [
@@ -482,7 +969,7 @@ mod tests {
         }
     }
 
-    type Put = fn(Staging, &Path, &[&str], Rename) -> Result<(), Failure>;
+    type Put = fn(Staging, &Path, &[&str], Mode, Rename) -> Result<(), Failure>;
 
     /// Runs `put` with a failure injected at rename 0, 1, 2, … until a run needs no more
     /// renames than that, for an output folder that holds `old` (a subset of the four files,
@@ -509,13 +996,19 @@ mod tests {
             }
             let before = snapshot(root.path());
             assert_eq!(before, expected(old_files.as_deref()), "fixture");
-            let staging = Staging::beside(&out).unwrap();
+            let staging = Staging::for_target(&out).unwrap();
             for (n, c) in &new_files {
                 std::fs::write(staging.path.join(n), c).unwrap();
             }
             let mut calls = 0;
             let fail = move |i: usize| i == k;
-            let result = put(staging, &out, &NAMES, &mut injecting(&fail, &mut calls));
+            let result = put(
+                staging,
+                &out,
+                &NAMES,
+                Mode::Replace,
+                &mut injecting(&fail, &mut calls),
+            );
             let after = snapshot(root.path());
             if calls <= k {
                 // The failure was never reached: this is the run without failure.
@@ -553,6 +1046,7 @@ mod tests {
         mut staging: Staging,
         target: &Path,
         names: &[&str],
+        _mode: Mode,
         rename: Rename,
     ) -> Result<(), Failure> {
         if !target.exists() {
@@ -604,7 +1098,7 @@ mod tests {
         for n in NAMES {
             std::fs::write(out.join(n), format!("previous {n}")).unwrap();
         }
-        let staging = Staging::beside(&out).unwrap();
+        let staging = Staging::for_target(&out).unwrap();
         for n in NAMES {
             std::fs::write(staging.path.join(n), format!("new {n}")).unwrap();
         }
@@ -612,8 +1106,14 @@ mod tests {
         // undo: 6 moves the csv back out, 7-10 move report, json, gpkg, csv back in; 7 fails.
         let fail = |i: usize| i == 5 || i == 7;
         let mut calls = 0;
-        let e = put_in_place_with(staging, &out, &NAMES, &mut injecting(&fail, &mut calls))
-            .unwrap_err();
+        let e = put_in_place_with(
+            staging,
+            &out,
+            &NAMES,
+            Mode::Replace,
+            &mut injecting(&fail, &mut calls),
+        )
+        .unwrap_err();
         assert_eq!(calls, 11);
         assert_eq!(e.path, out.join("control-points.gpkg"));
         let backup = hidden_beside(&out, "backup");
@@ -657,15 +1157,20 @@ mod tests {
                     }
                     std::fs::write(out.join(USER_FILE.0), USER_FILE.1).unwrap();
                     let before = snapshot(root.path());
-                    let staging = Staging::beside(&out).unwrap();
+                    let staging = Staging::for_target(&out).unwrap();
                     for n in NAMES {
                         std::fs::write(staging.path.join(n), format!("new {n}")).unwrap();
                     }
                     let fail = |i: usize| i == k1 || i == k2;
                     let mut calls = 0;
-                    let e =
-                        put_in_place_with(staging, &out, &NAMES, &mut injecting(&fail, &mut calls))
-                            .unwrap_err();
+                    let e = put_in_place_with(
+                        staging,
+                        &out,
+                        &NAMES,
+                        Mode::Replace,
+                        &mut injecting(&fail, &mut calls),
+                    )
+                    .unwrap_err();
                     let message = e.source.to_string();
                     let backup = hidden_beside(&out, "backup");
                     assert_eq!(
@@ -710,9 +1215,9 @@ mod tests {
         let backup = hidden_beside(&out, "backup");
         std::fs::create_dir(&backup).unwrap();
         std::fs::write(backup.join("transform.json"), "older").unwrap();
-        let staging = Staging::beside(&out).unwrap();
+        let staging = Staging::for_target(&out).unwrap();
         std::fs::write(staging.path.join("report.txt"), "new").unwrap();
-        let e = put_in_place(staging, &out, &NAMES).unwrap_err();
+        let e = put_in_place(staging, &out, &NAMES, Mode::Replace).unwrap_err();
         assert_eq!(e.path, backup);
         assert!(
             e.source.to_string().contains("interrupted run"),
@@ -735,9 +1240,9 @@ mod tests {
         let out = root.path().join("out");
         std::fs::create_dir_all(out.join("report.txt")).unwrap();
         std::fs::write(out.join("report.txt").join("keep"), "mine").unwrap();
-        let staging = Staging::beside(&out).unwrap();
+        let staging = Staging::for_target(&out).unwrap();
         std::fs::write(staging.path.join("report.txt"), "new").unwrap();
-        let e = put_in_place(staging, &out, &NAMES).unwrap_err();
+        let e = put_in_place(staging, &out, &NAMES, Mode::Replace).unwrap_err();
         assert_eq!(e.path, out.join("report.txt"));
         assert_eq!(
             std::fs::read_to_string(out.join("report.txt").join("keep")).unwrap(),
@@ -757,7 +1262,15 @@ mod tests {
         std::fs::create_dir(&out).unwrap();
         std::fs::write(out.join("a.csv"), "previous").unwrap();
         std::fs::write(out.join(USER_FILE.0), USER_FILE.1).unwrap();
-        let paths = write_set(&out, &[("a.csv", b"new a"), ("b.md", b"new b")]).unwrap();
+        let files: [(&str, &[u8]); 2] = [("a.csv", b"new a"), ("b.md", b"new b")];
+        // Unless a front end checked the folder with --force, a folder with files is refused.
+        let e = write_set(&out, &files).unwrap_err();
+        assert!(
+            e.source.to_string().contains("put a.csv in this folder"),
+            "{e:?}"
+        );
+        claim(&out, Mode::Replace);
+        let paths = write_set(&out, &files).unwrap();
         assert_eq!(paths, [out.join("a.csv"), out.join("b.md")]);
         let got = snapshot(root.path());
         let want: BTreeMap<PathBuf, Vec<u8>> = [
@@ -784,7 +1297,7 @@ mod tests {
         // Success: the new contents, no temporary file, written under the same extension.
         let (root, f) = one_previous_file();
         let mut seen = None;
-        write_file(&f, |tmp| -> Result<(), EmitError> {
+        write_file(&f, Mode::Replace, |tmp| -> Result<(), EmitError> {
             seen = tmp.extension().map(|e| e.to_owned());
             std::fs::write(tmp, "new").map_err(|e| Failure::new(tmp, e).into())
         })
@@ -795,7 +1308,7 @@ mod tests {
 
         // The writer fails after making the file and a sidecar: both removed, file unchanged.
         let (root, f) = one_previous_file();
-        let e = write_file(&f, |tmp| -> Result<(), EmitError> {
+        let e = write_file(&f, Mode::Replace, |tmp| -> Result<(), EmitError> {
             std::fs::write(tmp, "half").unwrap();
             let mut journal = tmp.as_os_str().to_owned();
             journal.push("-journal");
@@ -813,6 +1326,7 @@ mod tests {
         let fail = |_: usize| true;
         let e = write_file_with(
             &f,
+            Mode::Replace,
             |tmp| -> Result<(), EmitError> {
                 std::fs::write(tmp, "new").map_err(|e| Failure::new(tmp, e).into())
             },
@@ -826,5 +1340,294 @@ mod tests {
         assert_eq!(calls, 1);
         assert_eq!(snapshot(root.path()).len(), 1, "temporary file left");
         assert_eq!(std::fs::read_to_string(&f).unwrap(), "previous");
+    }
+
+    /// A staging folder for `out` holding the four files with `tag` in their contents.
+    fn staged(out: &Path, tag: &str) -> Staging {
+        let staging = Staging::for_target(out).unwrap();
+        for n in NAMES {
+            std::fs::write(staging.path.join(n), format!("{tag} {n}")).unwrap();
+        }
+        staging
+    }
+
+    #[test]
+    fn a_new_folder_is_claimed_by_one_run_only() {
+        // Two runs that both found `out` new: the first to finish makes it; the second is
+        // refused with a message saying another run made it, and the first's files stay.
+        for second in [Mode::Fresh, Mode::Replace] {
+            let root = tempfile::tempdir().unwrap();
+            let out = root.path().join("out");
+            let (a, b) = (staged(&out, "a"), staged(&out, "b"));
+            assert_ne!(a.path, b.path, "two stagings under one name");
+            put_in_place(a, &out, &NAMES, Mode::Fresh).unwrap();
+            let e = put_in_place_with(b, &out, &NAMES, second, &mut |from, to| {
+                // What the old logic did: find the folder there and fill it.
+                std::fs::rename(from, to)
+            });
+            if second == Mode::Fresh {
+                let e = e.unwrap_err();
+                let message = e.source.to_string();
+                assert!(message.contains("another run"), "{message}");
+                assert_eq!(e.path, out);
+            } else {
+                // --force given: replacing tiemark's files is what was asked for.
+                e.unwrap();
+            }
+            let want = if second == Mode::Fresh { "a" } else { "b" };
+            for n in NAMES {
+                assert_eq!(
+                    std::fs::read_to_string(out.join(n)).unwrap(),
+                    format!("{want} {n}")
+                );
+            }
+            assert_eq!(snapshot(root.path()).len(), NAMES.len(), "leftovers");
+        }
+    }
+
+    #[test]
+    fn the_rename_of_a_new_folder_is_the_exclusive_step() {
+        // The folder appears between the check and the rename (another run's rename): the
+        // rename itself fails and says so.
+        let root = tempfile::tempdir().unwrap();
+        let out = root.path().join("out");
+        let b = staged(&out, "b");
+        let mut first = true;
+        let e = put_in_place_with(b, &out, &NAMES, Mode::Fresh, &mut |from, to| {
+            if std::mem::take(&mut first) {
+                std::fs::create_dir(to).unwrap();
+                std::fs::write(to.join("report.txt"), "a's report").unwrap();
+            }
+            std::fs::rename(from, to)
+        })
+        .unwrap_err();
+        assert!(e.source.to_string().contains("another run"), "{e:?}");
+        assert_eq!(
+            std::fs::read_to_string(out.join("report.txt")).unwrap(),
+            "a's report"
+        );
+        assert_eq!(snapshot(root.path()).len(), 1, "leftovers");
+    }
+
+    #[test]
+    fn an_empty_folder_is_filled_without_replacing_anything() {
+        #[cfg(unix)]
+        use std::os::unix::fs::MetadataExt;
+        let root = tempfile::tempdir().unwrap();
+        let out = root.path().join("out");
+        std::fs::create_dir(&out).unwrap();
+        let ino = std::fs::metadata(&out).unwrap().ino();
+        put_in_place(staged(&out, "a"), &out, &NAMES, Mode::Fresh).unwrap();
+        // The user's folder itself stays (same inode), now with the four files.
+        assert_eq!(std::fs::metadata(&out).unwrap().ino(), ino);
+        assert_eq!(snapshot(root.path()).len(), NAMES.len());
+        // A second run that found it empty too is refused; nothing of it stays.
+        let e = put_in_place(staged(&out, "b"), &out, &NAMES, Mode::Fresh).unwrap_err();
+        assert!(e.source.to_string().contains("another run"), "{e:?}");
+        for n in NAMES {
+            assert_eq!(
+                std::fs::read_to_string(out.join(n)).unwrap(),
+                format!("a {n}")
+            );
+        }
+        assert_eq!(snapshot(root.path()).len(), NAMES.len(), "leftovers");
+    }
+
+    #[test]
+    fn a_file_that_appears_while_moving_in_is_not_replaced() {
+        let root = tempfile::tempdir().unwrap();
+        let out = root.path().join("out");
+        std::fs::create_dir(&out).unwrap();
+        let staging = staged(&out, "b");
+        // Between the emptiness check and the moves, another run puts its transform in.
+        std::fs::write(staging.path.join("x"), "").unwrap();
+        let from = staging.path.join("transform.json");
+        let e = move_no_replace(&from, &out.join("report.txt"), &mut |f, t| {
+            std::fs::rename(f, t)
+        });
+        assert!(e.is_ok());
+        std::fs::write(out.join("transform.json"), "a's").unwrap();
+        let e = move_no_replace(
+            &staging.path.join("control-points.csv"),
+            &out.join("transform.json"),
+            &mut |f, t| std::fs::rename(f, t),
+        )
+        .unwrap_err();
+        assert_eq!(e.kind(), io::ErrorKind::AlreadyExists);
+        assert_eq!(
+            std::fs::read_to_string(out.join("transform.json")).unwrap(),
+            "a's"
+        );
+        assert!(
+            staging.path.join("control-points.csv").exists(),
+            "source lost"
+        );
+        // And put_in_place undoes its moves when one is refused that way.
+        let root = tempfile::tempdir().unwrap();
+        let out = root.path().join("out");
+        std::fs::create_dir(&out).unwrap();
+        let staging = staged(&out, "b");
+        let mut k = 0;
+        let e = fill_empty(&staging, &out, &NAMES, &mut |f, t| {
+            k += 1;
+            std::fs::rename(f, t)
+        });
+        assert!(e.is_ok() && k == 0, "hard links move without renames");
+        drop(staging);
+        let before = snapshot(root.path());
+        let staging = staged(&out, "c");
+        std::fs::remove_file(out.join("report.txt")).unwrap();
+        let e = fill_empty(&staging, &out, &NAMES, &mut |f, t| std::fs::rename(f, t)).unwrap_err();
+        assert!(e.source.to_string().contains("another run"), "{e:?}");
+        drop(staging);
+        let mut after = snapshot(root.path());
+        after.insert(
+            Path::new("out").join("report.txt"),
+            b"b report.txt".to_vec(),
+        );
+        assert_eq!(after, before);
+    }
+
+    #[test]
+    fn a_mount_point_is_staged_inside_so_no_rename_crosses_devices() {
+        // `out` exists on device 2, its parent on device 1 (injected): the staging, backup
+        // and discard folders go inside `out`. The rename seam fails as the system does
+        // (EXDEV) when a rename would cross the injected devices.
+        let root = tempfile::tempdir().unwrap();
+        let out = root.path().join("out");
+        std::fs::create_dir(&out).unwrap();
+        for n in NAMES {
+            std::fs::write(out.join(n), format!("previous {n}")).unwrap();
+        }
+        let on = |p: &Path| if p.starts_with(&out) { 2 } else { 1 };
+        let device = |p: &Path| p.is_dir().then(|| on(p));
+        let mut crossing = |from: &Path, to: &Path| {
+            if on(from) != on(to) {
+                Err(io::Error::from_raw_os_error(18))
+            } else {
+                std::fs::rename(from, to)
+            }
+        };
+        for (injected, inside) in [(&device as Device, true), (&|_: &Path| Some(1), false)] {
+            let staging = Staging::for_target_with(&out, injected).unwrap();
+            assert_eq!(staging.path.starts_with(&out), inside);
+            for n in NAMES {
+                std::fs::write(staging.path.join(n), format!("new {n}")).unwrap();
+            }
+            let result = put_in_place_with(staging, &out, &NAMES, Mode::Replace, &mut crossing);
+            let want = if inside {
+                result.unwrap();
+                "new"
+            } else {
+                // Staged beside: the first move crosses devices and everything is undone.
+                let e = result.unwrap_err();
+                assert!(e.source.to_string().contains("os error 18"), "{e:?}");
+                "previous"
+            };
+            let got = snapshot(root.path());
+            let expect: BTreeMap<PathBuf, Vec<u8>> = NAMES
+                .iter()
+                .map(|n| (Path::new("out").join(n), format!("{want} {n}").into_bytes()))
+                .collect();
+            assert_eq!(got, expect);
+            for n in NAMES {
+                std::fs::write(out.join(n), format!("previous {n}")).unwrap();
+            }
+        }
+        // A new folder, or one on its parent's device, is staged beside.
+        assert_eq!(home_of(&root.path().join("new"), &device), root.path());
+        assert_eq!(home_of(&out, &|_: &Path| Some(7)), root.path());
+    }
+
+    /// The id of a process that has ended.
+    fn dead_pid() -> u32 {
+        let mut child = std::process::Command::new("true").spawn().unwrap();
+        let pid = child.id();
+        child.wait().unwrap();
+        pid
+    }
+
+    #[test]
+    fn stale_staging_of_dead_runs_is_cleared_and_nothing_else() {
+        let root = tempfile::tempdir().unwrap();
+        let out = root.path().join("out");
+        let dead = dead_pid();
+        let h = host();
+        let stale_dir = root
+            .path()
+            .join(format!(".out.tiemark-partial-{h}-{dead}-0"));
+        let stale_file = root
+            .path()
+            .join(format!(".f.gpkg.tiemark-partial-{h}-{dead}-3.gpkg"));
+        let journal = root
+            .path()
+            .join(format!(".f.gpkg.tiemark-partial-{h}-{dead}-3.gpkg-journal"));
+        std::fs::create_dir(&stale_dir).unwrap();
+        std::fs::write(stale_dir.join("control-points.gpkg"), "half").unwrap();
+        std::fs::write(&stale_file, "half").unwrap();
+        std::fs::write(&journal, "j").unwrap();
+        // Kept: a live process's (pid 1), another machine's, a backup, the user's files.
+        let kept = [
+            format!(".out.tiemark-partial-{h}-1-0"),
+            format!(".out.tiemark-partial-otherhost-{dead}-0"),
+            format!(".out.tiemark-backup-{dead}"),
+            "notes.txt".to_string(),
+        ];
+        for k in &kept {
+            std::fs::write(root.path().join(k), "keep").unwrap();
+        }
+        let staging = Staging::for_target(&out).unwrap();
+        drop(staging);
+        let left: Vec<String> = snapshot(root.path())
+            .keys()
+            .map(|k| k.to_string_lossy().into_owned())
+            .collect();
+        let mut want: Vec<String> = kept.to_vec();
+        want.sort();
+        assert_eq!(left, want);
+    }
+
+    #[test]
+    fn a_full_disk_says_so_and_leaves_nothing() {
+        // ENOSPC and EDQUOT (28 and 122 on Linux) while writing a file, and while renaming.
+        for errno in [28, 122] {
+            let root = tempfile::tempdir().unwrap();
+            let out = root.path().join("out");
+            let mut k = 0;
+            let e = write_set_with(
+                &out,
+                &[("a.csv", b"a"), ("b.md", b"b")],
+                Mode::Fresh,
+                &mut |p, c| {
+                    k += 1;
+                    if k == 2 {
+                        Err(io::Error::from_raw_os_error(errno))
+                    } else {
+                        std::fs::write(p, c)
+                    }
+                },
+            )
+            .unwrap_err();
+            let e = EmitError::from(e);
+            assert!(matches!(e, EmitError::DiskFull { .. }), "{e:?}");
+            let message = e.to_string();
+            assert!(message.contains("disk full"), "{message}");
+            assert!(message.contains("free space"), "{message}");
+            assert!(snapshot(root.path()).is_empty(), "leftovers");
+
+            let staging = staged(&out, "new");
+            let e = put_in_place_with(staging, &out, &NAMES, Mode::Fresh, &mut |_, _| {
+                Err(io::Error::from_raw_os_error(errno))
+            })
+            .unwrap_err();
+            let e = EmitError::from(e);
+            assert!(matches!(e, EmitError::DiskFull { .. }), "{e:?}");
+            assert!(snapshot(root.path()).is_empty(), "leftovers");
+        }
+        // SQLite's words, as GDAL passes them on for a GeoPackage.
+        assert!(disk_full_text(
+            "sqlite3_step() failed: database or disk is full"
+        ));
+        assert!(!disk_full_text("sqlite3_step() failed: constraint failed"));
     }
 }

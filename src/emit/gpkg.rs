@@ -16,9 +16,19 @@ use gdal::{Dataset, DriverManager};
 use std::path::Path;
 
 fn gdal_err(path: &Path) -> impl Fn(gdal::errors::GdalError) -> EmitError + '_ {
-    move |source| EmitError::Gdal {
-        path: path.to_path_buf(),
-        source,
+    move |source| {
+        let detail = source.to_string();
+        if super::atomic::disk_full_text(&detail) {
+            EmitError::DiskFull {
+                path: path.to_path_buf(),
+                detail,
+            }
+        } else {
+            EmitError::Gdal {
+                path: path.to_path_buf(),
+                source,
+            }
+        }
     }
 }
 

@@ -22,24 +22,30 @@
 //!   thresholds, seed and version.
 //! - `report.txt`: the text summary, with the cautions.
 //!
-//! Nothing is written until everything is ready: the files are made in a hidden staging folder
-//! beside the output folder and put in place at the end, all four or none (module `atomic`): a new
-//! output folder is renamed into place; in an existing one (`--force`) the previous four files
-//! are moved into a hidden backup folder beside it while the new ones go in, and put back if
-//! anything fails. Other files in the output folder are never touched. On any error the
-//! staging folder is removed and the output folder is left as it was; what a crash leaves and
-//! how to recover is in that module's doc.
+//! Before any work the output is resolved and checked ([`check_output_dir`],
+//! [`check_output_file`], module `destination`): new or empty (or `--force`), never an input of
+//! the run, writable. Nothing is written until everything is ready: the files are made in a
+//! hidden staging folder beside the output folder (on the same device) and put in place at the
+//! end, all four or none (module `atomic`): a new output folder is renamed into place (and
+//! refused if another run made it meanwhile); in an existing one (`--force`) the previous four
+//! files are moved into a hidden backup folder while the new ones go in, and put back if
+//! anything fails. Other files in the output folder are never touched. On any error, and on
+//! SIGINT, SIGTERM or SIGHUP, the staging folder is removed and the output folder is left as it
+//! was; what a crash leaves and how to recover is in that module's doc. A full disk is said as
+//! such ([`EmitError::DiskFull`]).
 
 pub(crate) mod atomic;
 pub mod csv;
+pub mod destination;
 pub mod gpkg;
 pub mod json;
 pub mod raster;
 
-use crate::config::OutputOptions;
 use crate::ingest::LandmarkSet;
 use crate::outcome::MatchOutcome;
+pub use atomic::remove_leftovers;
 use atomic::Staging;
+pub use destination::{check_output_dir, check_output_file, Destination};
 use std::path::{Path, PathBuf};
 
 /// Names of the files a match writes.
@@ -62,6 +68,38 @@ pub enum EmitError {
     /// The output file exists.
     #[error("{0}: exists; choose another output file or set output.force")]
     FileExists(PathBuf),
+    /// The output file is a folder, or something other than a regular file.
+    #[error("{0}: is a folder or not a regular file; give the name of a file to write (e.g. landmarks.gpkg)")]
+    NotAFile(PathBuf),
+    /// The output path resolves to a folder without a name (the root).
+    #[error("{0}: names no folder of its own (it resolves to the root of the file system); choose another output")]
+    NoName(PathBuf),
+    /// The output is, or would replace, or lies inside an input of the run.
+    #[error("{output}: is an input of this run ({input}) or would replace or lie inside one; tiemark never writes onto its inputs: choose another output")]
+    OntoInput {
+        /// The output (as given, and resolved).
+        output: String,
+        /// The input.
+        input: PathBuf,
+    },
+    /// The output cannot be written (checked before any work).
+    #[error("{output}: cannot be written (in {place}): {source}")]
+    NotWritable {
+        /// The output (as given, and resolved).
+        output: String,
+        /// The folder where writing failed.
+        place: PathBuf,
+        /// Why.
+        source: std::io::Error,
+    },
+    /// The disk, or the user's quota on it, is full (ENOSPC, EDQUOT).
+    #[error("{path}: disk full ({detail}); nothing was written: free space on that disk, or choose an output on another disk, then run again")]
+    DiskFull {
+        /// Where.
+        path: PathBuf,
+        /// The system's (or GDAL's) words.
+        detail: String,
+    },
     /// File-system trouble.
     #[error("{path}: {source}")]
     Io {
@@ -99,69 +137,77 @@ pub enum EmitError {
     NothingAccepted,
 }
 
+impl EmitError {
+    /// An I/O error at `path`; a full disk becomes [`EmitError::DiskFull`].
+    pub(crate) fn from_io(path: &Path, source: std::io::Error) -> EmitError {
+        if atomic::disk_full(&source) {
+            EmitError::DiskFull {
+                path: path.to_path_buf(),
+                detail: source.to_string(),
+            }
+        } else {
+            EmitError::Io {
+                path: path.to_path_buf(),
+                source,
+            }
+        }
+    }
+}
+
 pub(crate) fn io_err(path: &Path) -> impl FnOnce(std::io::Error) -> EmitError + '_ {
-    move |source| EmitError::Io {
-        path: path.to_path_buf(),
-        source,
+    move |source| EmitError::from_io(path, source)
+}
+
+/// A test hook (debug builds only): with `TIEMARK_TEST_PAUSE_WHILE_STAGING=FILE` set, a run
+/// that has begun writing its staging folder writes FILE and sleeps 30 s, so that a test can
+/// interrupt it at that moment.
+fn pause_for_tests() {
+    #[cfg(debug_assertions)]
+    if let Some(flag) = std::env::var_os("TIEMARK_TEST_PAUSE_WHILE_STAGING") {
+        let _ = std::fs::write(flag, b"staging\n");
+        std::thread::sleep(std::time::Duration::from_secs(30));
     }
 }
 
-/// Refuses an output folder that exists with files in it (unless `force`), or is a file.
-/// Called before any work, so a long run cannot end in this error.
-pub fn check_output_dir(dir: &Path, force: bool) -> Result<(), EmitError> {
-    if !dir.exists() {
-        return Ok(());
-    }
-    if !dir.is_dir() {
-        return Err(EmitError::NotADirectory(dir.to_path_buf()));
-    }
-    let non_empty = std::fs::read_dir(dir)
-        .map_err(io_err(dir))?
-        .next()
-        .is_some();
-    if non_empty && !force {
-        return Err(EmitError::NotEmpty(dir.to_path_buf()));
-    }
-    Ok(())
-}
-
-/// Writes every output file of an accepted match into `output.dir`; returns their final
-/// paths.
+/// Writes every output file of an accepted match into the checked output folder; returns
+/// their paths (as [`Destination::shown`]).
 pub fn write_all(
     outcome: &MatchOutcome,
-    output: &OutputOptions,
+    out: &Destination,
     report: &str,
 ) -> Result<Vec<PathBuf>, EmitError> {
     let solution = outcome.solution().ok_or(EmitError::NothingAccepted)?;
-    let out = &output.dir;
-    check_output_dir(out, output.force)?;
-    let staging = Staging::beside(out)?;
+    // Again, after the work: another run may have written there meanwhile.
+    destination::check_dir_state(out)?;
+    let dir = &out.path;
+    let staging = Staging::for_target(dir)?;
     csv::write_control_points(outcome, solution, &staging.path.join(FILES[0]))?;
+    pause_for_tests();
     gpkg::write_control_points(outcome, solution, &staging.path.join(FILES[1]))?;
     json::write_transform(outcome, solution, &staging.path.join(FILES[2]))?;
     let report_path = staging.path.join(FILES[3]);
     std::fs::write(&report_path, report).map_err(io_err(&report_path))?;
-    atomic::put_in_place(staging, out, &FILES)?;
-    Ok(FILES.iter().map(|f| out.join(f)).collect())
+    atomic::put_in_place(staging, dir, &FILES, out.mode())?;
+    Ok(FILES.iter().map(|f| out.shown(f)).collect())
 }
 
-/// Writes a landmark set (id, x, y in its own CRS) to one file, format by extension; the file
-/// is written under a temporary name beside it and renamed, so it is either whole or as it was.
-pub fn write_landmarks(set: &LandmarkSet, out: &Path, force: bool) -> Result<(), EmitError> {
-    if out.exists() && !force {
-        return Err(EmitError::FileExists(out.to_path_buf()));
-    }
-    if out.is_dir() {
-        return Err(EmitError::NotADirectory(out.to_path_buf()));
-    }
+/// The landmark file format of an output path, by its extension (lower case): `csv`, `gpkg`,
+/// `geojson`, `json` or `fgb`.
+pub(crate) fn landmark_format(out: &Path) -> Option<String> {
     let ext = out
         .extension()
-        .map(|e| e.to_string_lossy().to_ascii_lowercase())
-        .unwrap_or_default();
-    if !matches!(ext.as_str(), "csv" | "gpkg" | "geojson" | "json" | "fgb") {
-        return Err(EmitError::UnknownFormat(out.to_path_buf()));
-    }
-    atomic::write_file(out, |tmp| match ext.as_str() {
+        .map(|e| e.to_string_lossy().to_ascii_lowercase())?;
+    matches!(ext.as_str(), "csv" | "gpkg" | "geojson" | "json" | "fgb").then_some(ext)
+}
+
+/// Writes a landmark set (id, x, y in its own CRS) to the checked output file, format by
+/// extension; the file is written under a temporary name beside it and moved into place, so
+/// it is either whole or as it was (and, without `--force`, never replaces a file that
+/// appeared meanwhile).
+pub fn write_landmarks(set: &LandmarkSet, out: &Destination) -> Result<(), EmitError> {
+    let ext =
+        landmark_format(&out.path).ok_or_else(|| EmitError::UnknownFormat(out.given.clone()))?;
+    atomic::write_file(&out.path, out.mode(), |tmp| match ext.as_str() {
         "csv" => csv::write_landmarks(set, tmp),
         _ => gpkg::write_landmarks(set, tmp, &ext),
     })

@@ -3,23 +3,30 @@
 use clap::Subcommand;
 use std::path::PathBuf;
 use std::process::ExitCode;
+use tiemark::emit;
 
 #[derive(Subcommand)]
 pub enum ExperimentCommand {
     /// Random polygons of four classes: nearest-neighbour retrieval of their signatures under noise.
     Retrieval {
-        /// Output folder for retrieval.csv, retrieval.md and retrieval.svg.
+        /// Output folder for retrieval.csv, retrieval.md and retrieval.svg (created; must be empty unless --force).
         #[arg(long)]
         out: PathBuf,
+        /// Replace those files in a non-empty output folder.
+        #[arg(long)]
+        force: bool,
         /// Smaller sizes, for a quick look.
         #[arg(long)]
         quick: bool,
     },
     /// Landmark sets with missing and new landmarks and noise: each signature variant up to the end-to-end match.
     Landmarks {
-        /// Output folder for landmark-robustness.csv and .md.
+        /// Output folder for landmark-robustness.csv and .md (created; must be empty unless --force).
         #[arg(long)]
         out: PathBuf,
+        /// Replace those files in a non-empty output folder.
+        #[arg(long)]
+        force: bool,
         /// Fewer trials and settings, for a quick look.
         #[arg(long)]
         quick: bool,
@@ -47,7 +54,13 @@ fn parse_setting(s: &str) -> Result<(f64, f64), String> {
     Ok((m, n))
 }
 
-/// Runs one experiment and lists what it wrote.
+/// The files each experiment writes (as the library names them).
+const RETRIEVAL_FILES: [&str; 3] = ["retrieval.csv", "retrieval.md", "retrieval.svg"];
+const LANDMARK_FILES: [&str; 2] = ["landmark-robustness.csv", "landmark-robustness.md"];
+
+/// Runs one experiment and lists what it wrote. The output folder follows the rule of
+/// `match`: new or empty, or `--force` (the files replaced all or none), checked before any
+/// work and again before writing.
 pub fn run(e: ExperimentCommand, quiet: bool) -> ExitCode {
     use tiemark::experiment::{landmarks, retrieval};
     let mut say = |m: &str| {
@@ -55,18 +68,33 @@ pub fn run(e: ExperimentCommand, quiet: bool) -> ExitCode {
             eprintln!("{m}");
         }
     };
+    let (out, force, files): (PathBuf, bool, &[&str]) = match &e {
+        ExperimentCommand::Retrieval { out, force, .. } => (out.clone(), *force, &RETRIEVAL_FILES),
+        ExperimentCommand::Landmarks { out, force, .. } => (out.clone(), *force, &LANDMARK_FILES),
+    };
+    let checked = match emit::check_output_dir(&out, force, files, &[]) {
+        Ok(d) => d,
+        Err(e) => return crate::fail(&crate::cli::flags(&e.to_string())),
+    };
+    let recheck = || emit::check_output_dir(&out, force, files, &[]).map(|_| ());
+    let dir = checked.path.clone();
     let written = match e {
-        ExperimentCommand::Retrieval { out, quick } => {
+        ExperimentCommand::Retrieval { quick, .. } => {
             let options = retrieval::RetrievalOptions { quick, seed: 1 };
             let run = retrieval::run_retrieval(&options, &mut say);
-            retrieval::write_retrieval(&run, &options, &out)
+            match recheck() {
+                Ok(()) => {
+                    retrieval::write_retrieval(&run, &options, &dir).map_err(|e| e.to_string())
+                }
+                Err(e) => Err(e.to_string()),
+            }
         }
         ExperimentCommand::Landmarks {
-            out,
             quick,
             trials,
             variant,
             setting,
+            ..
         } => {
             let known: Vec<&str> = landmarks::variants().iter().map(|v| v.name).collect();
             if let Some(bad) = variant.iter().find(|v| !known.contains(&v.as_str())) {
@@ -81,8 +109,13 @@ pub fn run(e: ExperimentCommand, quiet: bool) -> ExitCode {
                 only: variant,
                 settings: setting,
             };
-            landmarks::run_landmarks(&options, &mut say)
-                .and_then(|rows| landmarks::write_landmarks(&rows, &out))
+            match landmarks::run_landmarks(&options, &mut say) {
+                Ok(rows) => match recheck() {
+                    Ok(()) => landmarks::write_landmarks(&rows, &dir).map_err(|e| e.to_string()),
+                    Err(e) => Err(e.to_string()),
+                },
+                Err(e) => Err(e.to_string()),
+            }
         }
     };
     match written {
@@ -94,6 +127,6 @@ pub fn run(e: ExperimentCommand, quiet: bool) -> ExitCode {
             crate::print(&format!("written:\n{}", list.concat()));
             ExitCode::SUCCESS
         }
-        Err(e) => crate::fail(&e.to_string()),
+        Err(e) => crate::fail(&crate::cli::flags(&e)),
     }
 }

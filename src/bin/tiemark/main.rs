@@ -10,6 +10,7 @@ mod experiments;
 use clap::Parser;
 use cli::{Cli, Command};
 use std::io::Write;
+use std::path::Path;
 use std::process::ExitCode;
 use tiemark::config::{MatchConfig, OutputOptions, PipelineFile, SurveyInput};
 use tiemark::{emit, engine, report};
@@ -43,17 +44,25 @@ impl Source {
 }
 
 /// Computes a match, writes its outputs if a transform was accepted, prints the summary.
+/// `pipeline`: the pipeline file it came from, an input too.
 fn run_match(
     config: &MatchConfig,
     output: &OutputOptions,
+    pipeline: Option<&Path>,
     quiet: bool,
     source: Source,
 ) -> ExitCode {
     let error = |e: &dyn std::fmt::Display| fail(&source.render(&e.to_string()));
     // Refused before any work, so that a long run cannot end in this error.
-    if let Err(e) = emit::check_output_dir(&output.dir, output.force) {
-        return error(&e);
-    }
+    let mut inputs = vec![
+        config.reference.path.as_path(),
+        config.target.path.as_path(),
+    ];
+    inputs.extend(pipeline);
+    let out = match emit::check_output_dir(&output.dir, output.force, &emit::FILES, &inputs) {
+        Ok(d) => d,
+        Err(e) => return error(&e),
+    };
     let outcome = match engine::match_surveys(config, &bars::Bars::new(quiet)) {
         Ok(o) => o,
         Err(e) => return error(&e),
@@ -63,7 +72,7 @@ fn run_match(
         print(&summary);
         return ExitCode::from(1);
     }
-    match emit::write_all(&outcome, output, &summary) {
+    match emit::write_all(&outcome, &out, &summary) {
         Ok(files) => {
             print(&report::with_files(&summary, &files));
             ExitCode::SUCCESS
@@ -82,10 +91,15 @@ fn run_landmarks(a: cli::LandmarksArgs) -> ExitCode {
         y_column: a.y_column,
         ..SurveyInput::new(a.file)
     };
+    // Refused before reading, so that a long read cannot end in this error.
+    let out = match emit::check_output_file(&a.out, a.force, &[input.path.as_path()]) {
+        Ok(d) => d,
+        Err(e) => return fail(&cli::flags(&e.to_string())),
+    };
     let written = engine::read_survey(&input, &a.raster.params())
         .map_err(|e| e.to_string())
         .and_then(|set| {
-            emit::write_landmarks(&set, &a.out, a.force).map_err(|e| e.to_string())?;
+            emit::write_landmarks(&set, &out).map_err(|e| e.to_string())?;
             Ok(set)
         });
     match written {
@@ -99,7 +113,7 @@ fn run_landmarks(a: cli::LandmarksArgs) -> ExitCode {
                     0 => String::new(),
                     n => format!("; {n} features skipped ({})", set.skipped),
                 },
-                a.out.display()
+                out.shown_path().display()
             ));
             ExitCode::SUCCESS
         }
@@ -107,7 +121,39 @@ fn run_landmarks(a: cli::LandmarksArgs) -> ExitCode {
     }
 }
 
+/// On SIGINT, SIGTERM or SIGHUP: removes this run's staging folders and temporary files
+/// (after any move into place in progress), then ends with exit code 128 + the signal's
+/// number. The handlers signal-hook installs only write to a pipe (async-signal-safe); the
+/// clean-up runs on a watcher thread, and the process ends with `_exit`, which runs no exit
+/// handlers that could race the main thread (GDAL's).
+fn watch_signals() {
+    use signal_hook::consts::{SIGHUP, SIGINT, SIGTERM};
+    let Ok(mut signals) = signal_hook::iterator::Signals::new([SIGINT, SIGTERM, SIGHUP]) else {
+        return;
+    };
+    std::thread::spawn(move || {
+        if let Some(signal) = signals.forever().next() {
+            let found = emit::remove_leftovers();
+            let name = match signal {
+                SIGINT => "SIGINT",
+                SIGTERM => "SIGTERM",
+                _ => "SIGHUP",
+            };
+            let what = if found.completed {
+                "the outputs were already complete and are in place"
+            } else if found.removed > 0 {
+                "nothing was written (the unfinished outputs were removed)"
+            } else {
+                "nothing was written"
+            };
+            eprintln!("tiemark: stopped by {name}; {what}");
+            signal_hook::low_level::exit(128 + signal);
+        }
+    });
+}
+
 fn main() -> ExitCode {
+    watch_signals();
     let cli = match Cli::try_parse() {
         Ok(c) => c,
         Err(e) => {
@@ -119,12 +165,18 @@ fn main() -> ExitCode {
     match cli.command {
         Command::Match(args) => {
             let (config, output) = args.into_config();
-            run_match(&config, &output, cli.quiet, Source::CommandLine)
+            run_match(&config, &output, None, cli.quiet, Source::CommandLine)
         }
         Command::Run { pipeline } => match PipelineFile::read(&pipeline) {
             Ok(file) => {
                 let (config, output) = file.into_parts();
-                run_match(&config, &output, cli.quiet, Source::PipelineFile)
+                run_match(
+                    &config,
+                    &output,
+                    Some(&pipeline),
+                    cli.quiet,
+                    Source::PipelineFile,
+                )
             }
             Err(e) => fail(&e.to_string()),
         },
