@@ -159,13 +159,17 @@ pub(crate) fn io_err(path: &Path) -> impl FnOnce(std::io::Error) -> EmitError + 
 }
 
 /// A test hook (debug builds only): with `TIEMARK_TEST_PAUSE_WHILE_STAGING=FILE` set, a run
-/// that has begun writing its staging folder writes FILE and sleeps 30 s, so that a test can
-/// interrupt it at that moment.
+/// that has begun writing its staging folder writes FILE and waits until FILE is removed (at
+/// most a minute), so that a test can interrupt it, or let it go on, at that moment.
 fn pause_for_tests() {
     #[cfg(debug_assertions)]
     if let Some(flag) = std::env::var_os("TIEMARK_TEST_PAUSE_WHILE_STAGING") {
-        let _ = std::fs::write(flag, b"staging\n");
-        std::thread::sleep(std::time::Duration::from_secs(30));
+        if std::fs::write(&flag, b"staging\n").is_ok() {
+            let start = std::time::Instant::now();
+            while Path::new(&flag).exists() && start.elapsed().as_secs() < 60 {
+                std::thread::sleep(std::time::Duration::from_millis(10));
+            }
+        }
     }
 }
 

@@ -9,6 +9,8 @@
 //! submodule (`mod` lines below) adds the cases of one topic and reaches the fixtures through
 //! `use super::*`.
 
+mod outputs;
+
 use gdal::spatial_ref::SpatialRef;
 use gdal::vector::{
     Feature, FieldDefn, Geometry, LayerAccess, LayerOptions, OGRFieldType, OGRwkbGeometryType,
