@@ -32,6 +32,31 @@ fn gdal_err(path: &Path) -> impl Fn(gdal::errors::GdalError) -> EmitError + '_ {
     }
 }
 
+/// The date GDAL's GeoPackage driver writes as the last change of every table
+/// (`gpkg_contents.last_change`), through its configuration option `OGR_CURRENT_DATE` (GDAL's
+/// GPKG driver documentation): fixed, so that a GeoPackage is the same bytes every run.
+const FIXED_DATE: &str = "2000-01-01T00:00:00.000Z";
+
+/// Creates a GeoPackage with [`FIXED_DATE`] as its timestamps (the option is set for this
+/// thread while GDAL writes and cleared by `DateFixed`'s drop).
+fn create_gpkg(path: &Path) -> Result<(Dataset, DateFixed), EmitError> {
+    let e = gdal_err(path);
+    gdal::config::set_thread_local_config_option("OGR_CURRENT_DATE", FIXED_DATE).map_err(&e)?;
+    let fixed = DateFixed;
+    let driver = DriverManager::get_driver_by_name("GPKG").map_err(&e)?;
+    let ds = driver.create_vector_only(path).map_err(&e)?;
+    Ok((ds, fixed))
+}
+
+/// Clears the thread's `OGR_CURRENT_DATE` on drop (after the dataset is closed).
+struct DateFixed;
+
+impl Drop for DateFixed {
+    fn drop(&mut self) {
+        let _ = gdal::config::clear_thread_local_config_option("OGR_CURRENT_DATE");
+    }
+}
+
 fn srs_from_wkt(wkt: &str, path: &Path) -> Result<SpatialRef, EmitError> {
     let mut srs = SpatialRef::from_wkt(wkt).map_err(gdal_err(path))?;
     srs.set_axis_mapping_strategy(AxisMappingStrategy::TraditionalGisOrder);
@@ -134,8 +159,7 @@ pub fn write_control_points(
         .frame
         .to_reference_crs(&starts_working)
         .map_err(EmitError::Frame)?;
-    let driver = DriverManager::get_driver_by_name("GPKG").map_err(&e)?;
-    let mut ds = driver.create_vector_only(path).map_err(&e)?;
+    let (mut ds, _fixed) = create_gpkg(path)?;
     {
         let mut txn = ds.start_transaction().map_err(&e)?;
         let reference_point = |p: &crate::fit::Pair| result.reference.points[p.reference as usize];
@@ -194,8 +218,13 @@ pub fn write_landmarks(set: &LandmarkSet, path: &Path, ext: &str) -> Result<(), 
         Some(w) => Some(srs_from_wkt(w, path)?),
         None => None,
     };
-    let driver = DriverManager::get_driver_by_name(driver_name).map_err(&e)?;
-    let mut ds: Dataset = driver.create_vector_only(path).map_err(&e)?;
+    let (mut ds, _fixed) = if driver_name == "GPKG" {
+        let (ds, fixed) = create_gpkg(path)?;
+        (ds, Some(fixed))
+    } else {
+        let driver = DriverManager::get_driver_by_name(driver_name).map_err(&e)?;
+        (driver.create_vector_only(path).map_err(&e)?, None)
+    };
     if driver_name == "GPKG" {
         let mut txn = ds.start_transaction().map_err(&e)?;
         fill_landmarks(&mut txn, set, srs.as_ref(), path)?;

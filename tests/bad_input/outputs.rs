@@ -346,6 +346,41 @@ fn staging_left_by_a_killed_run_is_cleared_by_the_next() {
 }
 
 #[test]
+fn the_geopackage_is_the_same_bytes_every_run() {
+    // Only its timestamps (gpkg_contents.last_change, metadata) used to differ.
+    let site = Site::new();
+    let (reference, target) = site.valid_pair();
+    for out in ["one", "two"] {
+        let run = site.run(&[
+            "match",
+            reference,
+            target,
+            "--target-crs",
+            "local",
+            "--out",
+            out,
+        ]);
+        assert_eq!(run.code, Some(0), "{run:#?}");
+        let run = site.run(&["landmarks", reference, "--out", &format!("{out}.gpkg")]);
+        assert_eq!(run.code, Some(0), "{run:#?}");
+        // At least a second apart, so that a clock in the file would show.
+        std::thread::sleep(Duration::from_millis(1100));
+    }
+    for f in FILES {
+        let (a, b) = (
+            std::fs::read(site.path("one").join(f)).unwrap(),
+            std::fs::read(site.path("two").join(f)).unwrap(),
+        );
+        assert!(a == b, "{f} differs between two runs");
+    }
+    assert!(
+        std::fs::read(site.path("one.gpkg")).unwrap()
+            == std::fs::read(site.path("two.gpkg")).unwrap(),
+        "landmarks .gpkg differs between two runs"
+    );
+}
+
+#[test]
 fn forced_replacement_keeps_every_other_file_and_writes_all_four() {
     // --force into a folder of an earlier run's files and the user's: all four replaced.
     let site = Site::new();
