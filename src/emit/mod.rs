@@ -185,12 +185,25 @@ pub fn write_all(
     destination::check_dir_state(out)?;
     let dir = &out.path;
     let staging = Staging::for_target(dir)?;
-    csv::write_control_points(outcome, solution, &staging.path.join(FILES[0]))?;
-    pause_for_tests();
-    gpkg::write_control_points(outcome, solution, &staging.path.join(FILES[1]))?;
-    json::write_transform(outcome, solution, &staging.path.join(FILES[2]))?;
-    let report_path = staging.path.join(FILES[3]);
-    std::fs::write(&report_path, report).map_err(io_err(&report_path))?;
+    let written = (|| {
+        csv::write_control_points(outcome, solution, &staging.path.join(FILES[0]))?;
+        pause_for_tests();
+        gpkg::write_control_points(outcome, solution, &staging.path.join(FILES[1]))?;
+        json::write_transform(outcome, solution, &staging.path.join(FILES[2]))?;
+        let report_path = staging.path.join(FILES[3]);
+        std::fs::write(&report_path, report).map_err(io_err(&report_path))
+    })();
+    // A full disk is said of the output folder (the staging folder is gone by then).
+    written.map_err(|e| match e {
+        EmitError::DiskFull { path, detail } => EmitError::DiskFull {
+            path: out.given.clone(),
+            detail: format!(
+                "writing {}: {detail}",
+                path.file_name().unwrap_or_default().to_string_lossy()
+            ),
+        },
+        other => other,
+    })?;
     atomic::put_in_place(staging, dir, &FILES, out.mode())?;
     Ok(FILES.iter().map(|f| out.shown(f)).collect())
 }
