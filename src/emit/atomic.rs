@@ -847,9 +847,7 @@ fn write_file_with<E: From<Failure>>(
     let temp = PathBuf::from(temp);
     register(&temp);
     let result = (|| {
-        if let Err(e) = write(&temp) {
-            return Err(e);
-        }
+        write(&temp)?;
         let _moving = lock(&MOVING);
         let moved = match mode {
             Mode::Fresh => move_no_replace(&temp, path, rename),

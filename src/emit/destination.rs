@@ -94,9 +94,7 @@ pub fn resolve(given: &Path) -> io::Result<PathBuf> {
             Component::Prefix(_) | Component::RootDir => real.push(c.as_os_str()),
             Component::CurDir => {}
             Component::ParentDir => {
-                if missing > 0 {
-                    missing -= 1;
-                }
+                missing = missing.saturating_sub(1);
                 real.pop();
             }
             Component::Normal(name) => {
