@@ -1,6 +1,7 @@
 //! Stage 6 — emit: write the control points, the transform and the report.
 //!
-//! **In:** an accepted [`MatchOutcome`], the [`OutputOptions`] and the report text.
+//! **In:** an accepted [`MatchOutcome`], a checked [`Destination`] (from the output options, see
+//! [`check_output_dir`]) and the report text.
 //! **Out:** in the output folder:
 //!
 //! - `control-points.csv` ([`csv`]): one row per control point —
@@ -43,8 +44,8 @@ pub mod raster;
 
 use crate::ingest::LandmarkSet;
 use crate::outcome::MatchOutcome;
-pub use atomic::remove_leftovers;
 use atomic::Staging;
+pub use atomic::{remove_leftovers, Leftovers};
 pub use destination::{check_output_dir, check_output_file, Destination};
 use std::path::{Path, PathBuf};
 
