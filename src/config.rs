@@ -112,6 +112,19 @@ pub enum ConfigError {
         /// The parser's message, with line and column.
         message: String,
     },
+    /// A path key holds an empty string (which would silently mean the pipeline file's own
+    /// folder).
+    #[error("{path}: {key} is empty; {what} (relative paths are taken from the pipeline file's folder, e.g. {example})")]
+    EmptyPath {
+        /// File.
+        path: PathBuf,
+        /// The key (`output.dir`, `reference.path`, `target.path`).
+        key: &'static str,
+        /// What it should name.
+        what: &'static str,
+        /// An example value.
+        example: &'static str,
+    },
     /// A signature option is out of range.
     #[error(transparent)]
     Signatures(#[from] crate::signatures::SignatureError),
@@ -161,6 +174,35 @@ impl PipelineFile {
             path: path.to_path_buf(),
             message: describe_toml_error(&text, &e),
         })?;
+        for (key, value, what, example) in [
+            (
+                "output.dir",
+                &file.output.dir,
+                "give the folder the outputs go to",
+                "dir = \"out\"",
+            ),
+            (
+                "reference.path",
+                &file.reference.path,
+                "give the reference survey's file",
+                "path = \"reference.gpkg\"",
+            ),
+            (
+                "target.path",
+                &file.target.path,
+                "give the target survey's file",
+                "path = \"target.gpkg\"",
+            ),
+        ] {
+            if value.as_os_str().is_empty() {
+                return Err(ConfigError::EmptyPath {
+                    path: path.to_path_buf(),
+                    key,
+                    what,
+                    example,
+                });
+            }
+        }
         let base = path.parent().unwrap_or(Path::new("."));
         for p in [
             &mut file.reference.path,
@@ -264,6 +306,36 @@ mod tests {
         assert_eq!(c.reference.path, dir.path().join("a.gpkg"));
         assert_eq!(c.target.path, PathBuf::from("/abs/b.gpkg"));
         assert_eq!(c.signatures, SignatureChoice::default());
+    }
+
+    #[test]
+    fn empty_paths_are_refused_by_key() {
+        // An empty output.dir used to be joined to the file's folder: the outputs went next to
+        // the pipeline file.
+        let dir = tempfile::tempdir().unwrap();
+        let p = dir.path().join("p.toml");
+        let body = |r: &str, t: &str, o: &str| {
+            format!(
+                "[reference]\npath = \"{r}\"\n[target]\npath = \"{t}\"\n[output]\ndir = \"{o}\"\n"
+            )
+        };
+        for (text, key) in [
+            (body("a.gpkg", "b.gpkg", ""), "output.dir"),
+            (body("", "b.gpkg", "o"), "reference.path"),
+            (body("a.gpkg", "", "o"), "target.path"),
+        ] {
+            std::fs::write(&p, text).unwrap();
+            let e = PipelineFile::read(&p).unwrap_err().to_string();
+            assert!(
+                e.contains("p.toml") && e.contains(&format!("{key} is empty")),
+                "{e}"
+            );
+        }
+        std::fs::write(&p, body("a.gpkg", "b.gpkg", "o")).unwrap();
+        assert_eq!(
+            PipelineFile::read(&p).unwrap().output.dir,
+            dir.path().join("o")
+        );
     }
 
     #[test]
