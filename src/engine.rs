@@ -230,6 +230,11 @@ pub fn find_candidates(
         .signatures
         .resolve(reference.points.len().min(target.points.len()));
     let sizes = [reference.points.len(), target.points.len()];
+    signatures::check_sizes(&used, sizes, labels)?;
+    config
+        .fit
+        .check_sizes(sizes, labels)
+        .map_err(ConfigError::from)?;
     resources::ensure_memory(sizes, &used, &config.matching, &config.fit, labels)?;
     let sensitivity = config.matching.needs_sensitivity();
     let mut sigs = Vec::with_capacity(2);

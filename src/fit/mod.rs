@@ -94,6 +94,16 @@ pub enum FitError {
     /// RANSAC rounds of zero.
     #[error("fit.max_rounds must be at least 1 (got 0)")]
     InvalidMaxRounds,
+    /// A survey has fewer landmarks than a transform needs control points.
+    #[error("{role} has {found} landmarks, fewer than the {required} control points a transform needs (fit.min_control_points), so no transform could be accepted; lower fit.min_control_points (at least 3) or use a larger area with more landmarks")]
+    FewerLandmarksThanControlPoints {
+        /// The survey ("the target (path)").
+        role: String,
+        /// Its landmarks.
+        found: usize,
+        /// [`FitParams::min_control_points`].
+        required: usize,
+    },
     /// A bound of the prior is not a positive number (or inf).
     #[error("{key} must be a positive number, or inf for no bound (got {value})")]
     InvalidBound {
@@ -134,6 +144,21 @@ impl FitParams {
                     return Err(FitError::InvalidBound { key, value });
                 }
             }
+        }
+        Ok(())
+    }
+
+    /// Refuses surveys with fewer landmarks than [`FitParams::min_control_points`]: no
+    /// transform could ever be accepted. `sizes` and `labels`: the reference's and the target's
+    /// landmark counts and names.
+    pub fn check_sizes(&self, sizes: [usize; 2], labels: &[String; 2]) -> Result<(), FitError> {
+        let small = if sizes[1] < sizes[0] { 1 } else { 0 };
+        if sizes[small] < self.min_control_points {
+            return Err(FitError::FewerLandmarksThanControlPoints {
+                role: labels[small].clone(),
+                found: sizes[small],
+                required: self.min_control_points,
+            });
         }
         Ok(())
     }
@@ -593,4 +618,118 @@ fn decoy_chance_rate(
         }
     }
     worst
+}
+
+#[cfg(test)]
+mod option_tests {
+    use super::*;
+
+    #[test]
+    fn every_numeric_option_refuses_senseless_values_by_its_key() {
+        let cases: Vec<(FitParams, &str)> = vec![
+            (
+                FitParams {
+                    max_rounds: 0,
+                    ..FitParams::default()
+                },
+                "fit.max_rounds",
+            ),
+            (
+                FitParams {
+                    confidence: f64::NAN,
+                    ..FitParams::default()
+                },
+                "fit.confidence",
+            ),
+            (
+                FitParams {
+                    confidence: 1.0,
+                    ..FitParams::default()
+                },
+                "fit.confidence",
+            ),
+            (
+                FitParams {
+                    tolerance_m: Some(0.0),
+                    ..FitParams::default()
+                },
+                "fit.tolerance_m",
+            ),
+            (
+                FitParams {
+                    tolerance_m: Some(f64::INFINITY),
+                    ..FitParams::default()
+                },
+                "fit.tolerance_m",
+            ),
+            (
+                FitParams {
+                    false_alarm_level: f64::NAN,
+                    ..FitParams::default()
+                },
+                "fit.false_alarm_level",
+            ),
+            (
+                FitParams {
+                    false_alarm_level: -1.0,
+                    ..FitParams::default()
+                },
+                "fit.false_alarm_level",
+            ),
+            (
+                FitParams {
+                    min_control_points: 2,
+                    ..FitParams::default()
+                },
+                "fit.min_control_points",
+            ),
+            (
+                FitParams {
+                    max_shift_m: Some(-1.0),
+                    ..FitParams::default()
+                },
+                "fit.max_shift_m",
+            ),
+            (
+                FitParams {
+                    max_rotation_deg: Some(0.0),
+                    ..FitParams::default()
+                },
+                "fit.max_rotation_deg",
+            ),
+            (
+                FitParams {
+                    max_scale_ppm: Some(f64::NAN),
+                    ..FitParams::default()
+                },
+                "fit.max_scale_ppm",
+            ),
+        ];
+        for (params, key) in cases {
+            let e = params.validate().unwrap_err().to_string();
+            assert!(e.starts_with(key), "{key}: {e}");
+        }
+        assert!(FitParams::default().validate().is_ok());
+        let unbounded = FitParams {
+            max_shift_m: Some(f64::INFINITY),
+            ..FitParams::default()
+        };
+        assert!(unbounded.validate().is_ok(), "inf lifts a bound");
+    }
+
+    #[test]
+    fn surveys_smaller_than_the_control_points_required_are_refused() {
+        let labels = [
+            "the reference (r.gpkg)".to_string(),
+            "the target (t.csv)".to_string(),
+        ];
+        let p = FitParams::default();
+        assert!(p.check_sizes([400, 5], &labels).is_ok());
+        let e = p.check_sizes([400, 4], &labels).unwrap_err().to_string();
+        assert!(
+            e.starts_with("the target (t.csv) has 4 landmarks, fewer than the 5"),
+            "{e}"
+        );
+        assert!(e.contains("fit.min_control_points"), "{e}");
+    }
 }

@@ -59,7 +59,8 @@ pub struct SignatureChoice {
     pub leave_out: Option<usize>,
     /// Vertex order of the polygon.
     pub order: VertexOrder,
-    /// Fourier harmonics.
+    /// Fourier harmonics; empty: automatic, following the neighbours
+    /// ([`automatic_harmonics`]: 1 and 2, or 1 alone with 3 neighbours).
     pub harmonics: Vec<usize>,
     /// Where the ratios live as key coordinates.
     pub key_space: KeySpace,
@@ -71,14 +72,15 @@ pub struct SignatureChoice {
 
 impl Default for SignatureChoice {
     /// The tool's default: neighbours and subset depth by survey size
-    /// ([`SignatureChoice::resolve`]), the nearest-neighbour walk, harmonics 1 and 2, keys on
-    /// the sphere, no permutation, no ambiguity branching.
+    /// ([`SignatureChoice::resolve`]), the nearest-neighbour walk, harmonics following the
+    /// neighbours ([`automatic_harmonics`]: 1 and 2), keys on the sphere, no permutation, no
+    /// ambiguity branching.
     fn default() -> Self {
         SignatureChoice {
             neighbours: None,
             leave_out: None,
             order: VertexOrder::Walk,
-            harmonics: vec![1, 2],
+            harmonics: Vec::new(),
             key_space: KeySpace::Sphere,
             permuted: false,
             ambiguity: 0.0,
@@ -140,29 +142,148 @@ impl SignatureChoice {
     /// The concrete options for surveys whose smaller one has `landmarks` landmarks: what the
     /// user fixed, and for the rest the size rule ([`size_rule`]: k = 4 leaving out two
     /// neighbours up to [`LEAVE_TWO_UP_TO`] landmarks, k = 4 leaving out one up to
-    /// [`LEAVE_ONE_UP_TO`], k = 5 without subsets above).
+    /// [`LEAVE_ONE_UP_TO`], k = 5 without subsets above). An automatic leave-out is lowered
+    /// until one signature fits in `landmarks` (k + leave-out + 1 landmarks); automatic
+    /// harmonics follow k ([`automatic_harmonics`]).
     pub fn resolve(&self, landmarks: usize) -> SignatureParams {
         let (_, k, leave) = SIZE_RULE
             .into_iter()
             .find(|r| landmarks <= r.0)
             .expect("the last rule takes every size");
+        let neighbours = self.neighbours.unwrap_or(k);
+        let room = landmarks.saturating_sub(neighbours + 1);
         SignatureParams {
-            neighbours: self.neighbours.unwrap_or(k),
-            leave_out: self.leave_out.unwrap_or(leave),
+            neighbours,
+            leave_out: self.leave_out.unwrap_or(leave.min(room)),
             order: self.order,
-            harmonics: self.harmonics.clone(),
+            harmonics: if self.harmonics.is_empty() {
+                automatic_harmonics(neighbours)
+            } else {
+                self.harmonics.clone()
+            },
             key_space: self.key_space,
             permuted: self.permuted,
             ambiguity: self.ambiguity,
         }
     }
 
-    /// Checks the options alone, for every automatic outcome.
+    /// Checks the options alone, for every automatic outcome. Harmonics that need more
+    /// neighbours than are given (or than the automatic choice gives) are named with both.
     pub fn validate(&self) -> Result<(), SignatureError> {
+        if !self.harmonics.is_empty() {
+            check_harmonic_list(&self.harmonics)?;
+            let automatic: Vec<usize> = match self.neighbours {
+                Some(k) => vec![k],
+                None => SIZE_RULE.iter().map(|r| r.1).collect(),
+            };
+            for k in automatic {
+                if (3..=16).contains(&k) && !harmonics_fit(&self.harmonics, k) {
+                    return Err(SignatureError::HarmonicsNeedMoreNeighbours {
+                        harmonics: self.harmonics.clone(),
+                        neighbours: k,
+                        needed: 2 * self.harmonics.iter().max().expect("not empty"),
+                        automatic: self.neighbours.is_none(),
+                    });
+                }
+            }
+        }
         for n in [0, LEAVE_ONE_UP_TO, usize::MAX] {
             self.resolve(n).validate()?;
         }
         Ok(())
+    }
+}
+
+/// The harmonics used when none are given: 1 and 2, or 1 alone for 3 neighbours (a 4-vertex
+/// polygon carries only harmonic 1: each harmonic must be below half the vertex count).
+pub fn automatic_harmonics(neighbours: usize) -> Vec<usize> {
+    if neighbours >= 4 {
+        vec![1, 2]
+    } else {
+        vec![1]
+    }
+}
+
+/// Whether every harmonic j is informative on polygons of k + 1 vertices: 2j < k + 1.
+fn harmonics_fit(harmonics: &[usize], neighbours: usize) -> bool {
+    harmonics.iter().all(|&j| 2 * j < neighbours + 1)
+}
+
+/// One or two different harmonics, each at least 1.
+fn check_harmonic_list(h: &[usize]) -> Result<(), SignatureError> {
+    let repeated = h.len() == 2 && h[0] == h[1];
+    if h.is_empty() || h.len() > 2 || repeated || h.contains(&0) {
+        return Err(SignatureError::InvalidHarmonics(h.to_vec()));
+    }
+    Ok(())
+}
+
+/// Refuses surveys too small for one signature: each landmark's signature needs the landmark
+/// and its `neighbours + leave_out` nearest neighbours. `sizes` and `labels` are the reference's
+/// and the target's landmark counts and names.
+pub fn check_sizes(
+    params: &SignatureParams,
+    sizes: [usize; 2],
+    labels: &[String; 2],
+) -> Result<(), SignatureError> {
+    let needed = params.neighbours + params.leave_out + 1;
+    let small = if sizes[1] < sizes[0] { 1 } else { 0 };
+    if sizes[small] >= needed {
+        return Ok(());
+    }
+    Err(too_few(
+        &labels[small],
+        sizes[small],
+        Some((&labels[1 - small], sizes[1 - small])),
+        params,
+    ))
+}
+
+/// The [`SignatureError::TooFewLandmarks`] of a survey of `found` landmarks named `role`
+/// (`other`: the other survey and its count, if known).
+fn too_few(
+    role: &str,
+    found: usize,
+    other: Option<(&str, usize)>,
+    params: &SignatureParams,
+) -> SignatureError {
+    let (k, leave) = (params.neighbours, params.leave_out);
+    let needed = k + leave + 1;
+    let mut parts = Vec::new();
+    if found < 4 {
+        parts.push("a signature needs at least 4 landmarks (3 neighbours and the landmark itself), so use a larger area with more landmarks".to_string());
+    } else {
+        if leave > 0 && k < found {
+            let most = found - k - 1;
+            parts.push(format!(
+                "set signatures.leave_out to {most}{} (needs {} landmarks)",
+                if most > 0 { " or 0" } else { "" },
+                k + most + 1
+            ));
+        }
+        if k + 1 > found {
+            parts.push(format!(
+                "set signatures.neighbours to {} and signatures.leave_out to 0 (needs {found} landmarks)",
+                found - 1
+            ));
+        }
+        parts.push("use a larger area with more landmarks".into());
+    }
+    SignatureError::TooFewLandmarks {
+        role: role.to_string(),
+        found,
+        needed,
+        other: other
+            .map(|(o, n)| format!(" ({o} has {n})"))
+            .unwrap_or_default(),
+        detail: if leave > 0 {
+            format!(
+                "the landmark itself, its {k} nearest neighbours (signatures.neighbours) and {leave} more for leave-out {leave} (signatures.leave_out)"
+            )
+        } else {
+            format!("the landmark itself and its {k} nearest neighbours (signatures.neighbours)")
+        },
+        advice: parts.join(", or "),
     }
 }
 
@@ -190,13 +311,22 @@ pub enum SignatureError {
     /// k is outside the supported range.
     #[error("signatures.neighbours must be between 3 and 16 (got {0})")]
     InvalidNeighbours(usize),
-    /// A harmonic does not give an informative ratio for this polygon length.
-    #[error("signatures.harmonics: each must be at least 1 and less than half of neighbours + 1, one or two of them, no repeats (got {harmonics:?} for {vertices}-vertex polygons)")]
-    InvalidHarmonic {
+    /// The harmonics are not one or two different numbers of at least 1.
+    #[error("signatures.harmonics must be one or two different harmonics, each at least 1, e.g. [1, 2] (got {0:?})")]
+    InvalidHarmonics(Vec<usize>),
+    /// A harmonic does not give an informative ratio for the polygon of this many neighbours.
+    #[error("signatures.harmonics {harmonics:?} needs signatures.neighbours of at least {needed} (each harmonic must be below half of the polygon's neighbours + 1 vertices), but signatures.neighbours {}; {}",
+        if *automatic { format!("is automatic ({neighbours} at some survey sizes)") } else { format!("is {neighbours}") },
+        if *automatic { format!("set signatures.neighbours to {needed} or more, or leave signatures.harmonics out to have it follow the neighbours") } else { format!("with {neighbours} neighbours use harmonics up to {} (e.g. [{}]), raise signatures.neighbours to {needed}, or leave signatures.harmonics out to have it follow the neighbours", neighbours / 2, automatic_harmonics(*neighbours).iter().map(|j| j.to_string()).collect::<Vec<_>>().join(", ")) })]
+    HarmonicsNeedMoreNeighbours {
         /// Harmonics asked for.
         harmonics: Vec<usize>,
-        /// Polygon length.
-        vertices: usize,
+        /// Neighbours given (or chosen automatically).
+        neighbours: usize,
+        /// The fewest neighbours the harmonics need (twice the highest).
+        needed: usize,
+        /// Whether `neighbours` is the automatic choice, not the user's.
+        automatic: bool,
     },
     /// Subset depth outside 0..=2.
     #[error("signatures.leave_out must be 0, 1 or 2 (got {0})")]
@@ -204,15 +334,21 @@ pub enum SignatureError {
     /// Ambiguity margin outside [0, 0.5].
     #[error("signatures.ambiguity must be between 0 and 0.5 (got {0})")]
     InvalidAmbiguity(f64),
-    /// Fewer landmarks than one neighbourhood needs.
-    #[error("{role} has {found} landmarks, but one neighbourhood needs {needed} (neighbours + 1); use a larger area or a smaller signatures.neighbours")]
+    /// Fewer landmarks than one signature needs.
+    #[error("{role} has {found} landmarks{other}, too few for one signature, which needs {needed}: {detail}; {advice}")]
     TooFewLandmarks {
-        /// "reference" or "target".
+        /// The survey ("the target (path)").
         role: String,
         /// Landmarks found.
         found: usize,
-        /// Landmarks needed.
+        /// Landmarks needed (neighbours + leave-out + 1).
         needed: usize,
+        /// The other survey's count, in words (" (the reference (path) has 400)"), or empty.
+        other: String,
+        /// What one signature is made of, in words.
+        detail: String,
+        /// What to change.
+        advice: String,
     },
     /// An allocation for the signatures failed.
     #[error("{role}: not enough memory for its signatures ({:.1} GB asked for); use fewer signatures.neighbours, a smaller signatures.leave_out, or tile the survey into smaller areas", *bytes as f64 / 1e9)]
@@ -279,13 +415,13 @@ impl SignatureParams {
         if !(3..=16).contains(&self.neighbours) {
             return Err(SignatureError::InvalidNeighbours(self.neighbours));
         }
-        let n = self.neighbours + 1;
-        let h = &self.harmonics;
-        let repeated = h.len() == 2 && h[0] == h[1];
-        if h.is_empty() || h.len() > 2 || repeated || h.iter().any(|&j| j == 0 || 2 * j >= n) {
-            return Err(SignatureError::InvalidHarmonic {
+        check_harmonic_list(&self.harmonics)?;
+        if !harmonics_fit(&self.harmonics, self.neighbours) {
+            return Err(SignatureError::HarmonicsNeedMoreNeighbours {
                 harmonics: self.harmonics.clone(),
-                vertices: n,
+                neighbours: self.neighbours,
+                needed: 2 * self.harmonics.iter().max().expect("checked"),
+                automatic: false,
             });
         }
         if self.leave_out > 2 {
@@ -314,12 +450,8 @@ pub fn compute(
     params.validate()?;
     let k = params.neighbours;
     let n = k + 1;
-    if points.len() < n {
-        return Err(SignatureError::TooFewLandmarks {
-            role: role.to_string(),
-            found: points.len(),
-            needed: n,
-        });
+    if points.len() < n + params.leave_out {
+        return Err(too_few(role, points.len(), None, params));
     }
     let mut plan = fourier::RatioPlan::new(n, &params.harmonics);
     let per = params.harmonics.len();

@@ -482,3 +482,92 @@ fn golden_keys_of_a_fixed_point_set() {
         }
     }
 }
+
+#[test]
+fn automatic_harmonics_follow_the_neighbours_and_given_ones_are_checked_against_them() {
+    let with = |neighbours: Option<usize>, harmonics: Vec<usize>| SignatureChoice {
+        neighbours,
+        harmonics,
+        ..SignatureChoice::default()
+    };
+    // Left out, the harmonics follow k: a 4-vertex polygon carries harmonic 1 only.
+    assert_eq!(with(Some(3), vec![]).resolve(1000).harmonics, vec![1]);
+    assert_eq!(with(Some(4), vec![]).resolve(1000).harmonics, vec![1, 2]);
+    assert!(with(Some(3), vec![]).validate().is_ok());
+    // Given, they are checked against the neighbours given, naming both.
+    let e = with(Some(3), vec![1, 2]).validate().unwrap_err();
+    assert_eq!(
+        e,
+        SignatureError::HarmonicsNeedMoreNeighbours {
+            harmonics: vec![1, 2],
+            neighbours: 3,
+            needed: 4,
+            automatic: false
+        }
+    );
+    // ... or against the automatic neighbours, saying they are automatic.
+    let e = with(None, vec![3]).validate().unwrap_err();
+    assert!(
+        matches!(
+            e,
+            SignatureError::HarmonicsNeedMoreNeighbours {
+                needed: 6,
+                automatic: true,
+                ..
+            }
+        ),
+        "{e:?}"
+    );
+    assert!(e.to_string().contains("is automatic"), "{e}");
+    assert!(with(Some(6), vec![3]).validate().is_ok());
+    assert!(matches!(
+        with(None, vec![1, 1]).validate(),
+        Err(SignatureError::InvalidHarmonics(_))
+    ));
+}
+
+#[test]
+fn automatic_leave_out_fits_the_smaller_survey_and_a_given_one_is_refused_with_sizes() {
+    // Up to 20 000 landmarks the rule leaves out two of 4 neighbours: 7 landmarks a signature.
+    // With 6 the automatic leave-out drops to 1, and with 5 to 0.
+    let auto = SignatureChoice::default();
+    assert_eq!(auto.resolve(7).leave_out, 2);
+    assert_eq!(auto.resolve(6).leave_out, 1);
+    assert_eq!(auto.resolve(5).leave_out, 0);
+    let labels = [
+        "the reference (r.gpkg)".to_string(),
+        "the target (t.csv)".to_string(),
+    ];
+    assert!(check_sizes(&auto.resolve(6), [400, 6], &labels).is_ok());
+    // A leave-out the user fixed is kept, and the sizes say why it cannot work.
+    let fixed = SignatureChoice {
+        leave_out: Some(2),
+        ..SignatureChoice::default()
+    };
+    let e = check_sizes(&fixed.resolve(6), [400, 6], &labels).unwrap_err();
+    assert!(matches!(
+        e,
+        SignatureError::TooFewLandmarks {
+            found: 6,
+            needed: 7,
+            ..
+        }
+    ));
+    let text = e.to_string();
+    for part in [
+        "the target (t.csv) has 6 landmarks (the reference (r.gpkg) has 400)",
+        "needs 7",
+        "2 more for leave-out 2",
+        "set signatures.leave_out to 1 or 0",
+    ] {
+        assert!(text.contains(part), "{part}: {text}");
+    }
+    // The smaller survey is the one named, whichever side it is.
+    let e = check_sizes(&SignatureParams::plain(5), [3, 400], &labels).unwrap_err();
+    assert!(
+        e.to_string()
+            .starts_with("the reference (r.gpkg) has 3 landmarks"),
+        "{e}"
+    );
+    assert!(e.to_string().contains("at least 4 landmarks"), "{e}");
+}

@@ -33,3 +33,156 @@ fn pipeline_with_an_empty_output_dir() {
     assert_eq!(out.code, Some(0), "{out:#?}");
     assert!(site.path("pipelines/out/transform.json").is_file());
 }
+
+/// The first `n` target landmarks of the valid pair as a local-grid CSV named `name`.
+fn small_target(site: &Site, name: &'static str, n: usize) -> &'static str {
+    let (t, ids) = target_points();
+    site.write(name, csv_text(&csv_rows(&t[..n], &ids[..n])))
+}
+
+#[test]
+fn too_few_landmarks_for_one_signature_with_leave_out() {
+    // Six target landmarks with leave-out 2: every signature needs 4 + 2 neighbours and the
+    // landmark itself, so no target landmark got one and the run ended in "the neighbourhoods
+    // of the two surveys never agreed" (exit 1), which blamed the data.
+    let site = Site::new();
+    let target = small_target(&site, "six.csv", 6);
+    site.refuses_match(
+        None,
+        Some(target),
+        &[
+            "--leave-out",
+            "2",
+            "--neighbours",
+            "4",
+            "--min-control-points",
+            "3",
+        ],
+        &[
+            "the target (six.csv) has 6 landmarks",
+            "(the reference (reference.geojson) has 400)",
+            "needs 7",
+            "its 4 nearest neighbours (--neighbours)",
+            "2 more for leave-out 2 (--leave-out)",
+            "set --leave-out to 1 or 0",
+        ],
+    );
+}
+
+#[test]
+fn too_few_landmarks_for_one_signature_of_the_neighbours_asked_for() {
+    let site = Site::new();
+    let target = small_target(&site, "five.csv", 5);
+    site.refuses_match(
+        None,
+        Some(target),
+        &["--neighbours", "6", "--min-control-points", "3"],
+        &[
+            "has 5 landmarks",
+            "needs 7",
+            "set --neighbours to 4 and --leave-out to 0",
+        ],
+    );
+}
+
+#[test]
+fn fewer_landmarks_than_control_points_required() {
+    // Four target landmarks can never give the five control points the fit requires: that
+    // used to end in exit 1 as if the surveys did not match.
+    let site = Site::new();
+    let target = small_target(&site, "four.csv", 4);
+    site.refuses_match(
+        None,
+        Some(target),
+        &["--neighbours", "3"],
+        &[
+            "the target (four.csv) has 4 landmarks",
+            "5 control points",
+            "--min-control-points",
+        ],
+    );
+}
+
+#[test]
+fn neighbours_three_takes_harmonic_one_by_itself() {
+    // `--neighbours 3` alone used to fail on `--harmonics [1, 2]`, the default the user never
+    // set: 4-vertex polygons carry harmonic 1 only. Now the harmonics follow the neighbours.
+    let site = Site::new();
+    let (reference, target) = site.valid_pair();
+    let out = site.run(&local_match(reference, target, &["--neighbours", "3"]));
+    assert_eq!(out.code, Some(0), "{out:#?}");
+    let t: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(site.path("out/transform.json")).unwrap())
+            .unwrap();
+    assert_eq!(t["thresholds"]["neighbours"], 3);
+    assert_eq!(t["thresholds"]["harmonics"], serde_json::json!([1]));
+}
+
+#[test]
+fn harmonics_that_need_more_neighbours_name_both_values() {
+    let site = Site::new();
+    site.refuses_match(
+        None,
+        None,
+        &["--neighbours", "3", "--harmonics", "1,2"],
+        &[
+            "--harmonics [1, 2]",
+            "--neighbours of at least 4",
+            "--neighbours is 3",
+            "[1]",
+        ],
+    );
+    // With the neighbours left automatic, the message says so.
+    site.refuses_match(
+        None,
+        None,
+        &["--harmonics", "3"],
+        &["--harmonics [3]", "at least 6", "--neighbours is automatic"],
+    );
+}
+
+#[test]
+fn a_count_given_as_a_negative_number() {
+    // clap's own answer to `--max-rounds -1` was "unexpected argument '-1'" with the tip to
+    // write `-- -1`, which makes it a positional argument.
+    let site = Site::new();
+    site.refuses_match(
+        None,
+        None,
+        &["--max-rounds", "-1"],
+        &["'-1'", "--max-rounds", "whole number"],
+    );
+}
+
+#[test]
+fn zero_rounds_and_other_senseless_numbers_are_refused_by_key() {
+    // Every numeric option of the fit, matching and signature stages at a value that makes no
+    // sense: refused, naming the pipeline key (and on the command line its flag).
+    let site = Site::new();
+    for (table, line, key) in [
+        ("fit", "max_rounds = 0", "fit.max_rounds"),
+        ("fit", "confidence = nan", "fit.confidence"),
+        ("fit", "confidence = 0.0", "fit.confidence"),
+        ("fit", "tolerance_m = -2.0", "fit.tolerance_m"),
+        ("fit", "tolerance_m = nan", "fit.tolerance_m"),
+        ("fit", "false_alarm_level = 0.0", "fit.false_alarm_level"),
+        ("fit", "min_control_points = 0", "fit.min_control_points"),
+        ("fit", "max_shift_m = 0.0", "fit.max_shift_m"),
+        ("fit", "max_rotation_deg = nan", "fit.max_rotation_deg"),
+        ("fit", "max_scale_ppm = -5.0", "fit.max_scale_ppm"),
+        ("matching", "candidates = 0", "matching.candidates"),
+        ("signatures", "neighbours = 0", "signatures.neighbours"),
+        ("signatures", "leave_out = 3", "signatures.leave_out"),
+        ("signatures", "ambiguity = nan", "signatures.ambiguity"),
+        ("signatures", "harmonics = [0]", "signatures.harmonics"),
+    ] {
+        let p = pipeline(&site, "out", &format!("\n[{table}]\n{line}\n"));
+        site.expect_failure(&["run", p], 2, &[key]);
+    }
+    site.refuses_match(
+        None,
+        None,
+        &["--max-rounds", "0"],
+        &["--max-rounds", "(got 0)"],
+    );
+}

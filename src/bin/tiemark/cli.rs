@@ -64,6 +64,13 @@ fn choice<T: DeserializeOwned>(s: &str) -> Result<T, String> {
     T::deserialize(d).map_err(|e| e.to_string())
 }
 
+/// Parses a count (a whole number, no sign): clap's own error for `-1` would suggest `-- -1`,
+/// which makes it a positional argument.
+fn count<T: std::str::FromStr>(s: &str) -> Result<T, String> {
+    s.parse()
+        .map_err(|_| "expected a whole number such as 5 (no sign, no decimals)".to_string())
+}
+
 #[derive(Args)]
 pub struct MatchArgs {
     /// The reference survey (older, trusted): any GDAL vector dataset.
@@ -126,35 +133,39 @@ pub struct MatchArgs {
     max_scale_error: Option<f64>,
 
     /// Neighbours per signature polygon, 3-16 [default: by size, see --leave-out].
-    #[arg(long, help_heading = "Signatures")]
+    #[arg(long, help_heading = "Signatures", allow_negative_numbers = true, value_parser = count::<usize>)]
     neighbours: Option<usize>,
-    #[arg(long, help_heading = "Signatures", help = format!("Subset signatures: leave out 0, 1 or 2 of the nearest neighbours in every possible way [default: {}]", size_rule()))]
+    #[arg(long, help_heading = "Signatures", allow_negative_numbers = true, value_parser = count::<usize>, help = format!("Subset signatures: leave out 0, 1 or 2 of the nearest neighbours in every possible way [default: {}]", size_rule()))]
     leave_out: Option<usize>,
 
     /// Reference signatures proposed per target signature.
-    #[arg(long, help_heading = "Robust fit", default_value_t = MatchingParams::default().candidates)]
+    #[arg(long, help_heading = "Robust fit", allow_negative_numbers = true, value_parser = count::<usize>, default_value_t = MatchingParams::default().candidates)]
     candidates: usize,
     /// RANSAC confidence.
     #[arg(long, help_heading = "Robust fit", allow_negative_numbers = true, default_value_t = FitParams::default().confidence)]
     confidence: f64,
     /// Upper bound on RANSAC rounds.
-    #[arg(long, help_heading = "Robust fit", default_value_t = FitParams::default().max_rounds)]
+    #[arg(long, help_heading = "Robust fit", allow_negative_numbers = true, value_parser = count::<usize>, default_value_t = FitParams::default().max_rounds)]
     max_rounds: usize,
     /// Seed of every random choice (results are reproducible for a given seed).
-    #[arg(long, help_heading = "Robust fit", default_value_t = FitParams::default().seed)]
+    #[arg(long, help_heading = "Robust fit", allow_negative_numbers = true, value_parser = count::<u64>, default_value_t = FitParams::default().seed)]
     seed: u64,
     /// Accept a transform only if the expected number of chance detections is below this.
     #[arg(long, help_heading = "Robust fit", allow_negative_numbers = true, default_value_t = FitParams::default().false_alarm_level)]
     false_alarm_level: f64,
     /// Fewest control points to accept a transform.
-    #[arg(long, help_heading = "Robust fit", default_value_t = FitParams::default().min_control_points)]
+    #[arg(long, help_heading = "Robust fit", allow_negative_numbers = true, value_parser = count::<usize>, default_value_t = FitParams::default().min_control_points)]
     min_control_points: usize,
 
     /// Research: vertex order of the signature polygon (walk or angular).
     #[arg(long, help_heading = "Signature research (to compare variants; the defaults are measured best)", value_parser = choice::<VertexOrder>, default_value_t = SignatureChoice::default().order)]
     order: VertexOrder,
-    /// Research: Fourier harmonics of the signature ratios, comma-separated (one or two).
-    #[arg(long, help_heading = "Signature research (to compare variants; the defaults are measured best)", value_delimiter = ',', default_values_t = SignatureChoice::default().harmonics)]
+    /// Research: Fourier harmonics of the signature ratios, comma-separated (one or two) [default: 1,2; 1 with 3 neighbours].
+    #[arg(
+        long,
+        help_heading = "Signature research (to compare variants; the defaults are measured best)",
+        value_delimiter = ','
+    )]
     harmonics: Vec<usize>,
     /// Research: where the signature ratios live as key coordinates (sphere or disc).
     #[arg(long, help_heading = "Signature research (to compare variants; the defaults are measured best)", value_parser = choice::<KeySpace>, default_value_t = SignatureChoice::default().key_space)]
