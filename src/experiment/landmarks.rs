@@ -336,6 +336,9 @@ pub fn run_landmarks(
     let trials = options
         .trials
         .unwrap_or(if options.quick { 10 } else { 100 });
+    if trials == 0 {
+        return Err(ExperimentError::NoTrials);
+    }
     let grid = if options.settings.is_empty() {
         settings(options.quick)
     } else {
@@ -512,6 +515,20 @@ mod tests {
         let b = signatures::compute("b", &some, &plain, false, &mut |_| {}).unwrap();
         let (ka, kb) = (keys_of(&a, 0), keys_of(&b, 0));
         assert!(ka[0].iter().zip(&kb[0]).any(|(p, q)| (p - q).abs() > 1e-6));
+    }
+
+    #[test]
+    fn zero_trials_are_refused() {
+        let opts = LandmarkOptions {
+            quick: true,
+            trials: Some(0),
+            only: vec!["walk".into()],
+            settings: vec![(0.0, 0.01)],
+        };
+        assert!(matches!(
+            run_landmarks(&opts, &mut |_| {}),
+            Err(ExperimentError::NoTrials)
+        ));
     }
 
     #[test]

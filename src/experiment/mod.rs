@@ -28,6 +28,9 @@ pub enum ExperimentError {
         /// Why.
         detail: String,
     },
+    /// Zero trials asked for: every share would be 0/0.
+    #[error("--trials must be at least 1 (got 0): a share of no trials is not a number")]
+    NoTrials,
     /// A stage failed on generated data (a bug, not a user error).
     #[error("the experiment's own data failed in the engine: {0}")]
     Engine(String),

@@ -186,3 +186,22 @@ fn zero_rounds_and_other_senseless_numbers_are_refused_by_key() {
         &["--max-rounds", "(got 0)"],
     );
 }
+
+#[cfg(feature = "experiments")]
+#[test]
+fn experiment_with_zero_trials() {
+    // `--trials 0` used to write tables of NaN shares.
+    Site::new().expect_failure(
+        &[
+            "experiment",
+            "landmarks",
+            "--quick",
+            "--trials",
+            "0",
+            "--out",
+            "out",
+        ],
+        2,
+        &["--trials", "at least 1", "(got 0)"],
+    );
+}
