@@ -84,8 +84,11 @@ pub enum FrameError {
         to: String,
     },
     /// The surveys do not overlap.
-    #[error("the surveys do not overlap in {crs}: the reference covers x {rx0:.1}..{rx1:.1}, y {ry0:.1}..{ry1:.1}; the target covers x {tx0:.1}..{tx1:.1}, y {ty0:.1}..{ty1:.1}. Check each file's CRS (reference.crs, target.crs), or set target.crs = local if the target is in a local grid")]
+    #[error("the surveys do not overlap in {crs}: the reference covers x {rx0:.1}..{rx1:.1}, y {ry0:.1}..{ry1:.1}; the target covers x {tx0:.1}..{tx1:.1}, y {ty0:.1}..{ty1:.1}. {hint}Check each file's CRS (reference.crs, target.crs), or set target.crs = local if the target is in a local grid")]
     NoOverlap {
+        /// When a geographic survey looks like latitude stored before longitude: that question
+        /// and how to fix it (ends in a space), else empty.
+        hint: String,
         /// Working CRS.
         crs: String,
         /// Reference extent.
@@ -227,6 +230,63 @@ fn convert_all(set: &LandmarkSet, from: &Crs, to: &Crs) -> Result<Vec<[f64; 2]>,
         .collect()
 }
 
+/// For two surveys that do not overlap: whether one of them, in a geographic CRS, looks like
+/// (latitude, longitude) pairs read as (longitude, latitude): all its x within ±90 and y within
+/// ±180. Such a survey is tried with x and y swapped; if it then overlaps the other one (in its
+/// own CRS), the axes are swapped for certain, else they may be. Returns the words for the
+/// error (ending in a space), or nothing.
+fn swapped_axes_hint(
+    reference: &LandmarkSet,
+    reference_crs: &Crs,
+    target: &LandmarkSet,
+    target_crs: &Crs,
+) -> String {
+    let sides = [
+        (
+            "target",
+            target,
+            target_crs,
+            "reference",
+            reference,
+            reference_crs,
+        ),
+        (
+            "reference",
+            reference,
+            reference_crs,
+            "target",
+            target,
+            target_crs,
+        ),
+    ];
+    let mut maybe = String::new();
+    for (role, side, side_crs, other_role, other, other_crs) in sides {
+        let latitude_first = side
+            .points
+            .iter()
+            .all(|p| p[0].abs() <= 90.0 && p[1].abs() <= 180.0);
+        if !side_crs.geographic || !latitude_first {
+            continue;
+        }
+        let path = side.source.display();
+        let swapped: Vec<[f64; 2]> = side.points.iter().map(|p| [p[1], p[0]]).collect();
+        let other_here: Option<Vec<[f64; 2]>> = Converter::new(other_crs, side_crs)
+            .ok()
+            .and_then(|c| other.points.iter().map(|&p| c.convert(p)).collect());
+        if other_here.is_some_and(|o| Extent::of(&o).overlaps(&Extent::of(&swapped))) {
+            return format!(
+                "Are the axes swapped? The {role} ({path}) overlaps the {other_role} once its x and y are swapped: its coordinates are latitude first. tiemark reads x as the longitude and y as the latitude: swap the x and y columns (or the coordinate order) of {path}. "
+            );
+        }
+        if maybe.is_empty() {
+            maybe = format!(
+                "Are the axes swapped? All x of the {role} ({path}) are within ±90 and all y within ±180: if it stores the latitude first, swap its x and y (tiemark reads x as the longitude). "
+            );
+        }
+    }
+    maybe
+}
+
 /// Brings both surveys into the working frame. `reference_crs` and `target_crs` override the
 /// files' own CRSs (anything PROJ accepts); `target_crs` may be [`LOCAL`].
 pub fn working_frame(
@@ -265,10 +325,11 @@ pub fn working_frame(
         Some(t) => convert_all(target, t, &crs)?,
         None => target.points.clone(),
     };
-    if target_crs.is_some() {
+    if let Some(target_crs) = &target_crs {
         let (r, t) = (Extent::of(&ref_w), Extent::of(&tgt_w));
         if !r.overlaps(&t) {
             return Err(FrameError::NoOverlap {
+                hint: swapped_axes_hint(reference, &reference_crs, target, target_crs),
                 crs: crs.label(),
                 rx0: r.min[0],
                 rx1: r.max[0],
@@ -510,6 +571,58 @@ mod tests {
             try_frame(&reference, &target, &Choice::default()),
             Err(FrameError::NoOverlap { .. })
         ));
+    }
+
+    #[test]
+    fn latitude_first_is_named_when_the_surveys_do_not_overlap() {
+        // The reference in UTM 33N near 14.4°E 47.0°N; the target the same place in lon/lat,
+        // but stored latitude first: read as lon/lat it lies at 47°E 14.4°N, in Yemen.
+        let utm = box_around(455_000.0, 5_210_000.0, 500.0, 500.0);
+        let to_ll = Converter::new(
+            &Crs::parse("EPSG:32633", "test").unwrap(),
+            &Crs::parse("EPSG:4326", "test").unwrap(),
+        )
+        .unwrap();
+        let lat_lon: Vec<[f64; 2]> = utm
+            .iter()
+            .map(|&p| {
+                let q = to_ll.convert(p).unwrap();
+                [q[1], q[0]]
+            })
+            .collect();
+        let reference = survey("ref.gpkg", utm.clone(), Some("EPSG:32633"));
+        let target = survey("latlon.csv", lat_lon, Some("EPSG:4326"));
+        let Err(e) = try_frame(&reference, &target, &Choice::default()) else {
+            panic!("swapped axes overlapped");
+        };
+        let text = e.to_string();
+        for part in [
+            "do not overlap",
+            "Are the axes swapped? The target (latlon.csv) overlaps the reference once its x and y are swapped",
+            "swap the x and y columns",
+        ] {
+            assert!(text.contains(part), "{part}: {text}");
+        }
+        // Far apart but not swapped: only the question, from the look of the numbers.
+        let far: Vec<[f64; 2]> = box_around(30.0, 10.0, 0.01, 0.01);
+        let target = survey("far.csv", far, Some("EPSG:4326"));
+        let text = try_frame(&reference, &target, &Choice::default())
+            .unwrap_err()
+            .to_string();
+        assert!(
+            text.contains("Are the axes swapped? All x of the target (far.csv) are within ±90"),
+            "{text}"
+        );
+        // Projected surveys far apart get no such question.
+        let target = survey(
+            "tgt.gpkg",
+            box_around(605_000.0, 5_210_000.0, 500.0, 500.0),
+            Some("EPSG:32633"),
+        );
+        let text = try_frame(&reference, &target, &Choice::default())
+            .unwrap_err()
+            .to_string();
+        assert!(!text.contains("swapped"), "{text}");
     }
 
     #[test]

@@ -205,3 +205,49 @@ fn experiment_with_zero_trials() {
         &["--trials", "at least 1", "(got 0)"],
     );
 }
+
+#[test]
+fn latitude_first_target_is_asked_about_swapped_axes() {
+    // The target holds the reference's landmarks in WGS 84, but latitude first: read as
+    // (longitude, latitude) it lies near 47°E 46.9°N, far east of the reference, and the
+    // message only said the surveys do not overlap.
+    let site = Site::new();
+    let (reference, _) = site.valid_pair();
+    let to_ll = tiemark::frame::crs::Converter::new(
+        &tiemark::frame::crs::Crs::parse("EPSG:32633", "test").unwrap(),
+        &tiemark::frame::crs::Crs::parse("EPSG:4326", "test").unwrap(),
+    )
+    .unwrap();
+    let r = reference_points();
+    let rows: Vec<(String, String, String)> = r
+        .iter()
+        .enumerate()
+        .map(|(i, &p)| {
+            let q = to_ll.convert(p).unwrap();
+            (
+                format!("t{i}"),
+                format!("{:.9}", q[1]),
+                format!("{:.9}", q[0]),
+            )
+        })
+        .collect();
+    let target = site.write("lat-lon.csv", csv_text(&rows));
+    site.expect_failure(
+        &[
+            "match",
+            reference,
+            target,
+            "--target-crs",
+            "EPSG:4326",
+            "--out",
+            "out",
+        ],
+        2,
+        &[
+            "do not overlap",
+            "Are the axes swapped?",
+            "target (lat-lon.csv) overlaps the reference once its x and y are swapped",
+            "swap the x and y columns",
+        ],
+    );
+}
