@@ -68,7 +68,10 @@ pub fn accepted(r: &MatchOutcome, s: &Solution) -> String {
         .target_crs
         .as_ref()
         .map(|c| c.label())
-        .unwrap_or_else(|| "local grid (no CRS)".into());
+        .unwrap_or_else(|| match r.frame.target_unit {
+            Some(u) => format!("local grid, unit {} (no CRS)", u.name()),
+            None => "local grid (no CRS; unit not declared)".into(),
+        });
     let _ = writeln!(
         o,
         "target     {} (layer {}): {} landmarks, {}",
@@ -118,6 +121,7 @@ pub fn accepted(r: &MatchOutcome, s: &Solution) -> String {
         "transform (target working -> reference working; rotation counter-clockwise)"
     );
     let _ = writeln!(o, "  scale          {:.9} ± {:.9}", t.scale(), f.se_scale);
+    let _ = write!(o, "{}", grid_scale_lines(r, t.scale(), f.se_scale));
     let _ = writeln!(
         o,
         "  rotation       {:.6}° ± {:.6}°",
@@ -171,6 +175,26 @@ pub fn skipped_line(r: &MatchOutcome) -> String {
         side(&r.reference.skipped),
         side(&r.target.skipped)
     )
+}
+
+/// For a local-grid target: the fitted scale split into the unit conversion and the grid scale
+/// factor (declared unit), or how to declare the unit; nothing for a georeferenced target.
+fn grid_scale_lines(r: &MatchOutcome, scale: f64, se_scale: f64) -> String {
+    if r.frame.target_crs.is_some() {
+        return String::new();
+    }
+    match r.frame.grid_scale(scale, se_scale) {
+        Some(g) => format!(
+            "  unit           {} ({}): {:.12} working units per grid unit\n  grid scale     {:.9} = {:+.3} ± {:.3} ppm (working-CRS metres per local-grid metre: the scale with the unit taken out)\n",
+            g.unit.name(),
+            g.unit.definition(),
+            g.unit_factor,
+            g.grid_scale_factor,
+            g.grid_scale_ppm,
+            g.grid_scale_ppm_se
+        ),
+        None => "  grid scale     not separated: the scale above is unit conversion and grid scale together; declare the grid's unit with target.crs = local:m, local:ft or local:us-ft\n".into(),
+    }
 }
 
 /// The summary with the list of files written.

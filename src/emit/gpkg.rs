@@ -235,6 +235,24 @@ pub fn write_control_points(
             result,
             path,
         )?;
+        // The control points where the target has them, in the target's own CRS; a local grid
+        // is tagged with its engineering CRS (with the declared unit), not left without one
+        // (which a GeoPackage stores as "undefined geographic").
+        let target_srs = srs_from_wkt(&result.frame.target_wkt(), path)?;
+        let target_points = s.pairs.iter().map(|p| {
+            let g = point(result.target.points[p.target as usize])?;
+            Ok((p.reference as usize, p.target as usize, p.residual * mpu, g))
+        });
+        write_pair_layer(
+            &mut txn,
+            "target_points",
+            OGRwkbGeometryType::wkbPoint,
+            "residual_m",
+            &target_srs,
+            target_points,
+            result,
+            path,
+        )?;
         txn.commit().map_err(&e)?;
     }
     close_checked(ds, path)?;

@@ -4,7 +4,12 @@
 //! coordinates to reference working coordinates as x' = s(cos t·x − sin t·y) + tx,
 //! y' = s(sin t·x + cos t·y) + ty, t counter-clockwise; `standard_errors` of each; `rmse_m`;
 //! `sigma_m` (per-coordinate σ̂); `inliers`; `working_crs` (authority code, name, WKT and why it
-//! was chosen); `reference_crs`, `target_crs` ("local" for a local grid); `thresholds`;
+//! was chosen); `reference_crs`, `target_crs` (for a local grid: name "local grid", its
+//! declared `unit` or null, and the WKT of its engineering CRS); `local_grid` (null for a
+//! georeferenced target; else the declared `unit`, `unit_name`, `metres_per_unit`,
+//! `unit_factor` = working units per grid unit, and what remains of `scale` once that is taken
+//! out: `grid_scale_factor`, `grid_scale_ppm` and its standard error `grid_scale_ppm_se`; only
+//! `unit: null` when no unit was declared); `thresholds`;
 //! `significance`; `chosen` and `runner_up` (rotation, scale error in ppm, shift at the
 //! target's centre in metres, support); `bounds` (from the target's georeferencing, or null);
 //! `seed`; `version`. Translation standard errors are at the working frame's
@@ -58,8 +63,25 @@ pub fn transform_document(result: &MatchOutcome, s: &Solution) -> serde_json::Va
         "reference_crs": crs_doc(&result.frame.reference_crs),
         "target_crs": match &result.frame.target_crs {
             Some(c) => crs_doc(c),
-            None => json!("local"),
+            None => json!({
+                "authority": null,
+                "name": "local grid",
+                "unit": result.frame.target_unit.map(|u| u.code()),
+                "wkt": result.frame.target_wkt(),
+            }),
         },
+        "local_grid": result.frame.target_crs.is_none().then(|| match result.frame.grid_scale(t.scale(), f.se_scale) {
+            Some(g) => json!({
+                "unit": g.unit.code(),
+                "unit_name": g.unit.name(),
+                "metres_per_unit": g.unit.metres(),
+                "unit_factor": g.unit_factor,
+                "grid_scale_factor": g.grid_scale_factor,
+                "grid_scale_ppm": g.grid_scale_ppm,
+                "grid_scale_ppm_se": g.grid_scale_ppm_se,
+            }),
+            None => json!({"unit": null}),
+        }),
         "inputs": {
             "reference": {"path": result.reference.source, "layer": result.reference.layer, "landmarks": result.reference.points.len()},
             "target": {"path": result.target.source, "layer": result.target.layer, "landmarks": result.target.points.len()},

@@ -18,7 +18,10 @@
 //!   where the reference has it, reference CRS, fields reference_id, target_id, length_m). For a
 //!   georeferenced target the line starts at the target's position as georeferenced (its
 //!   length is the drift between the surveys); for a local-grid target it starts at the fitted
-//!   position (its length is the residual).
+//!   position (its length is the residual). Layer `target_points`: the control points where the
+//!   target has them, in the target's own CRS; for a local grid in its engineering CRS
+//!   (`LOCAL_CS` with the unit declared by `target.crs = local:UNIT`, or GeoPackage's
+//!   "Undefined Cartesian SRS" when none was declared; see [`crate::frame::grid`]).
 //! - `transform.json` ([`json`]): the similarity, its standard errors, RMSE, counts, CRSs,
 //!   thresholds, seed and version.
 //! - `report.txt`: the text summary, with the cautions.

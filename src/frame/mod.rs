@@ -1,8 +1,8 @@
 //! Stage 2 — the working frame: both surveys in one projected CRS.
 //!
 //! **In:** the reference and target [`LandmarkSet`]s, each survey's CRS override (or
-//! [`LOCAL`] for a target in an unreferenced local grid), and [`FrameOptions`] (an optional
-//! working CRS).
+//! [`LOCAL`] for a target in an unreferenced local grid, `local:m`, `local:ft` or `local:us-ft`
+//! to declare its unit: [`grid`]), and [`FrameOptions`] (an optional working CRS).
 //! **Out:** a [`WorkingFrame`]: both surveys' positions in one projected CRS (or, for a target
 //! in an unreferenced local grid, the target's raw coordinates), plus what is needed to go back.
 //!
@@ -12,14 +12,13 @@
 //! its site calibration. Both georeferenced surveys must overlap after conversion.
 
 pub mod crs;
+pub mod grid;
 
 use crate::ingest::LandmarkSet;
 use crate::spatial::Extent;
 use crs::{utm_zone_for, Converter, Crs, CrsError};
+pub use grid::{GridScale, GridUnit, LOCAL};
 use serde::{Deserialize, Serialize};
-
-/// The word that marks a target in an unreferenced local grid.
-pub const LOCAL: &str = "local";
 
 /// Options of the working frame (`[frame]` in a pipeline file).
 #[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
@@ -44,6 +43,9 @@ pub enum FrameError {
         /// Extra hint for the target.
         local_hint: String,
     },
+    /// A local grid with an unknown unit.
+    #[error(transparent)]
+    UnknownUnit(#[from] grid::UnknownUnit),
     /// The reference was declared local.
     #[error("the reference must be georeferenced: reference.crs = local is not allowed (the target may be local)")]
     LocalReference,
@@ -121,6 +123,9 @@ pub struct WorkingFrame {
     pub reference_crs: Crs,
     /// The target's own CRS; `None` for a local grid.
     pub target_crs: Option<Crs>,
+    /// The declared unit of a local-grid target (`target.crs = local:UNIT`); `None` for a
+    /// georeferenced target or a local grid of undeclared unit.
+    pub target_unit: Option<GridUnit>,
     /// Reference positions in the working CRS (same order as the landmark set).
     pub reference: Vec<[f64; 2]>,
     /// Target positions in the working CRS, or raw local-grid coordinates.
@@ -131,6 +136,22 @@ impl WorkingFrame {
     /// Metres per working unit.
     pub fn metres_per_unit(&self) -> f64 {
         self.crs.metres_per_unit
+    }
+
+    /// For a local-grid target of declared unit: a fitted `scale` (± `se_scale`) split into
+    /// the unit conversion and the grid scale factor.
+    pub fn grid_scale(&self, scale: f64, se_scale: f64) -> Option<GridScale> {
+        self.target_unit
+            .map(|u| GridScale::of(u, scale, se_scale, self.metres_per_unit()))
+    }
+
+    /// WKT of the target's own coordinates: its CRS, or for a local grid the engineering CRS
+    /// of its declared unit ([`grid::engineering_wkt`]).
+    pub fn target_wkt(&self) -> String {
+        match &self.target_crs {
+            Some(c) => c.wkt.clone(),
+            None => grid::engineering_wkt(self.target_unit),
+        }
     }
 
     /// Converts working-frame points to the reference's own CRS (identity when they agree).
@@ -154,33 +175,33 @@ impl WorkingFrame {
     }
 }
 
+/// A survey's CRS: `Err` of the unit for a local grid.
+type CrsOrLocal = Result<Crs, Option<GridUnit>>;
+
 fn crs_of(
     set: &LandmarkSet,
     given: Option<&str>,
     option: &str,
     is_target: bool,
-) -> Result<Option<Crs>, FrameError> {
+) -> Result<CrsOrLocal, FrameError> {
     let what = format!(
         "{} ({})",
         if is_target { "target" } else { "reference" },
         set.source.display()
     );
     match given {
-        Some(s) if s.eq_ignore_ascii_case(LOCAL) => {
-            if is_target {
-                Ok(None)
-            } else {
-                Err(FrameError::LocalReference)
-            }
-        }
-        Some(s) => Ok(Some(Crs::parse(s, &what)?)),
+        Some(s) => match grid::parse_local(s, option) {
+            Some(_) if !is_target => Err(FrameError::LocalReference),
+            Some(unit) => Ok(Err(unit?)),
+            None => Ok(Ok(Crs::parse(s, &what)?)),
+        },
         None => match &set.crs_wkt {
-            Some(w) => Ok(Some(Crs::parse(w, &what)?)),
+            Some(w) => Ok(Ok(Crs::parse(w, &what)?)),
             None => Err(FrameError::MissingCrs {
                 path: set.source.display().to_string(),
                 option: option.to_string(),
                 local_hint: if is_target {
-                    ", or target.crs = local if it is in an unreferenced local grid".into()
+                    ", or target.crs = local if it is in an unreferenced local grid (local:m, local:ft or local:us-ft declares its unit)".into()
                 } else {
                     String::new()
                 },
@@ -298,7 +319,10 @@ pub fn working_frame(
 ) -> Result<WorkingFrame, FrameError> {
     let reference_crs = crs_of(reference, reference_crs, "reference.crs", false)?
         .expect("a reference CRS is never local");
-    let target_crs = crs_of(target, target_crs, "target.crs", true)?;
+    let (target_crs, target_unit) = match crs_of(target, target_crs, "target.crs", true)? {
+        Ok(c) => (Some(c), None),
+        Err(unit) => (None, unit),
+    };
     check_lon_lat(reference, &reference_crs)?;
     if let Some(t) = &target_crs {
         check_lon_lat(target, t)?;
@@ -347,6 +371,7 @@ pub fn working_frame(
         chosen_because,
         reference_crs,
         target_crs,
+        target_unit,
         reference: ref_w,
         target: tgt_w,
     })

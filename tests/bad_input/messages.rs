@@ -251,3 +251,144 @@ fn latitude_first_target_is_asked_about_swapped_axes() {
         ],
     );
 }
+
+#[test]
+fn local_grid_of_an_unknown_unit() {
+    let site = Site::new();
+    let (reference, target) = site.valid_pair();
+    site.expect_failure(
+        &[
+            "match",
+            reference,
+            target,
+            "--target-crs",
+            "local:yd",
+            "--out",
+            "out",
+        ],
+        2,
+        &[
+            "'yd' is not a unit of a local grid",
+            "local:us-ft",
+            "local:ft",
+        ],
+    );
+}
+
+/// The reference landmarks of the valid pair in a local grid of `metres_per_unit`, at grid
+/// scale factor `k` (reference metres per grid metre), turned 40° and with a false origin
+/// (5000, 10000): grid = R(40°)(p − p₀) / (k·u) + (5000, 10000). Written with every digit.
+fn local_grid_target(
+    site: &Site,
+    name: &'static str,
+    metres_per_unit: f64,
+    k: f64,
+) -> &'static str {
+    let r = reference_points();
+    let (s, c) = 40f64.to_radians().sin_cos();
+    let o = r[0];
+    let rows: Vec<(String, String, String)> = r
+        .iter()
+        .enumerate()
+        .map(|(i, p)| {
+            let (x, y) = (p[0] - o[0], p[1] - o[1]);
+            let f = 1.0 / (k * metres_per_unit);
+            (
+                format!("t{i}"),
+                format!("{}", 5000.0 + f * (c * x - s * y)),
+                format!("{}", 10000.0 + f * (s * x + c * y)),
+            )
+        })
+        .collect();
+    site.write(name, csv_text(&rows))
+}
+
+#[test]
+fn local_grid_in_us_survey_feet_reports_its_scale_factor_apart_from_the_unit() {
+    // A site grid in US survey feet (1200/3937 m) at a grid scale factor of 1 − 150 ppm: the
+    // fitted scale is 0.3048006096 × 0.99985; with the unit declared, the report and
+    // transform.json give the unit and the 150 ppm apart, to 0.1 ppm. The same grid declared
+    // in international feet (0.3048 m) comes out 2 ppm higher, the difference of the two feet
+    // ((1200/3937) / 0.3048 = 1 + 2.000004 ppm, computed).
+    let us_ft = 1200.0 / 3937.0;
+    let k = 1.0 - 150e-6;
+    let site = Site::new();
+    let (reference, _) = site.valid_pair();
+    let target = local_grid_target(&site, "site-usft.csv", us_ft, k);
+    let run = |unit: &str, out: &str| {
+        let crs = format!("local:{unit}");
+        let o = site.run(&[
+            "match",
+            reference,
+            target,
+            "--target-crs",
+            &crs,
+            "--out",
+            out,
+        ]);
+        assert_eq!(o.code, Some(0), "{o:#?}");
+        let doc: serde_json::Value = serde_json::from_str(
+            &std::fs::read_to_string(site.path(out).join("transform.json")).unwrap(),
+        )
+        .unwrap();
+        (o.stdout, doc)
+    };
+    let (report, doc) = run("us-ft", "out-us");
+    let g = &doc["local_grid"];
+    assert_eq!(g["unit"], "us-ft");
+    assert_eq!(g["metres_per_unit"].as_f64(), Some(us_ft));
+    let ppm = g["grid_scale_ppm"].as_f64().unwrap();
+    assert!((ppm + 150.0).abs() < 0.1, "grid scale {ppm} ppm");
+    let scale = doc["scale"].as_f64().unwrap();
+    assert!((scale / (k * us_ft) - 1.0).abs() < 1e-7, "scale {scale}");
+    assert!(
+        report.contains("unit           US survey foot (1200/3937 m exactly)"),
+        "{report}"
+    );
+    assert!(report.contains("-150.0"), "{report}");
+    assert_eq!(doc["target_crs"]["unit"], "us-ft");
+
+    // The GeoPackage's target layer, read back through GDAL: an engineering CRS in US feet.
+    let ds = gdal::Dataset::open(site.path("out-us/control-points.gpkg")).unwrap();
+    use gdal::vector::LayerAccess;
+    let layer = ds.layer_by_name("target_points").unwrap();
+    let srs = layer.spatial_ref().expect("a CRS");
+    assert!(srs.is_local() && !srs.is_geographic(), "{:?}", srs.to_wkt());
+    assert!(
+        (srs.linear_units() - us_ft).abs() < 1e-12,
+        "{}",
+        srs.linear_units()
+    );
+    assert_eq!(srs.linear_units_name().as_deref(), Some("US survey foot"));
+    assert_eq!(layer.feature_count(), doc["inliers"].as_u64().unwrap());
+
+    // Declared in international feet: 2 ppm higher.
+    let (_, doc) = run("ft", "out-ft");
+    let ppm_ft = doc["local_grid"]["grid_scale_ppm"].as_f64().unwrap();
+    assert!((ppm_ft - ppm - 2.0).abs() < 0.01, "{ppm_ft} against {ppm}");
+
+    // Undeclared: no split, and the layer is tagged "Undefined Cartesian", not geographic.
+    let o = site.run(&[
+        "match",
+        reference,
+        target,
+        "--target-crs",
+        "local",
+        "--out",
+        "out-none",
+    ]);
+    assert_eq!(o.code, Some(0), "{o:#?}");
+    assert!(
+        o.stdout.contains("grid scale     not separated"),
+        "{}",
+        o.stdout
+    );
+    let ds = gdal::Dataset::open(site.path("out-none/control-points.gpkg")).unwrap();
+    let srs = ds
+        .layer_by_name("target_points")
+        .unwrap()
+        .spatial_ref()
+        .unwrap();
+    assert!(srs.is_local(), "{:?}", srs.to_wkt());
+    assert_eq!(srs.name().as_deref(), Some("Undefined Cartesian SRS"));
+}

@@ -110,7 +110,7 @@ pub struct MatchArgs {
     /// CRS of the reference, overriding the file's (anything PROJ accepts, e.g. EPSG:32633).
     #[arg(long)]
     reference_crs: Option<String>,
-    /// CRS of the target, or "local" for an unreferenced local grid (the fit is then the site calibration).
+    /// CRS of the target, or "local" for an unreferenced local grid (the fit is then the site calibration); "local:m", "local:ft" (0.3048 m) or "local:us-ft" (1200/3937 m) declares its unit, and the report separates the grid scale factor from the unit conversion.
     #[arg(long)]
     target_crs: Option<String>,
     /// Band of a raster reference: a number from 1, or "luminance" (default: the only band, the luminance of an RGB image, else band 1).
