@@ -960,7 +960,7 @@ pub fn warp_to_reference(
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::emit::atomic::{put_in_place, Staging};
+    use crate::emit::atomic::{put_in_place, Mode, Staging};
     use gdal::raster::{Buffer, ColorInterpretation};
     use gdal::DriverManager;
 
@@ -1024,7 +1024,7 @@ mod tests {
         tif(&target, 4, true, false);
         let wkt = SpatialRef::from_epsg(32633).unwrap().to_wkt().unwrap();
         let out = dir.path().join("out");
-        let staging = Staging::beside(&out).unwrap();
+        let staging = Staging::for_target(&out).unwrap();
         let stage = |name: &str| staging.path.join(name);
         write_gcp_vrt(&target, &gcps_shifted(3.0, 0.0), &wkt, &stage(GCP_VRT)).unwrap();
         let gt = GeoTransform([455_000.0, 1.0, 0.0, 5_210_000.0, 0.0, -1.0]);
@@ -1055,6 +1055,7 @@ mod tests {
             staging,
             &out,
             &[GCP_VRT, GEOREFERENCED_VRT, COREGISTERED_TIF],
+            Mode::Fresh,
         )
         .unwrap();
         let leftovers: Vec<_> = std::fs::read_dir(dir.path())
