@@ -32,6 +32,7 @@ pub use crate::frame::FrameOptions;
 pub use crate::ingest::SurveyInput;
 pub use crate::keypoints::KeypointParams;
 pub use crate::matching::MatchingParams;
+pub use crate::refine::RefineParams;
 pub use crate::signatures::SignatureChoice;
 use serde::{Deserialize, Serialize};
 use std::path::{Path, PathBuf};
@@ -64,6 +65,8 @@ pub struct MatchConfig {
     pub fit: FitParams,
     /// Keypoints of raster surveys.
     pub keypoints: KeypointParams,
+    /// Refinement of a raster match's control points on the pixels.
+    pub refine: RefineParams,
 }
 
 /// A pipeline file: a match and where its outputs go.
@@ -91,6 +94,9 @@ pub struct PipelineFile {
     /// `[keypoints]` (raster surveys).
     #[serde(default)]
     pub keypoints: KeypointParams,
+    /// `[refine]` (two raster surveys).
+    #[serde(default)]
+    pub refine: RefineParams,
 }
 
 /// A configuration could not be used.
@@ -137,6 +143,9 @@ pub enum ConfigError {
     /// A keypoint option is out of range.
     #[error(transparent)]
     Keypoints(#[from] crate::keypoints::KeypointError),
+    /// A refinement option is out of range.
+    #[error(transparent)]
+    Refine(#[from] crate::refine::ParamError),
 }
 
 impl MatchConfig {
@@ -150,6 +159,7 @@ impl MatchConfig {
             matching: MatchingParams::default(),
             fit: FitParams::default(),
             keypoints: KeypointParams::default(),
+            refine: RefineParams::default(),
         }
     }
 
@@ -159,6 +169,7 @@ impl MatchConfig {
         self.matching.validate()?;
         self.fit.validate()?;
         self.keypoints.validate()?;
+        self.refine.validate()?;
         Ok(())
     }
 }
@@ -227,6 +238,7 @@ impl PipelineFile {
             matching,
             fit,
             keypoints,
+            refine,
         } = self;
         let config = MatchConfig {
             reference,
@@ -236,6 +248,7 @@ impl PipelineFile {
             matching,
             fit,
             keypoints,
+            refine,
         };
         (config, output)
     }

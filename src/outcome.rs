@@ -40,6 +40,37 @@ pub struct MatchOutcome {
     pub search: Search,
     /// The accepted transform and its control points, or why none was accepted.
     pub fit: Result<Solution, Rejection>,
+    /// For two raster surveys: what refining the control points on the pixels did (the
+    /// solution in `fit` is then the refitted one).
+    pub pixels: Option<PixelRefinement>,
+}
+
+/// What the refinement on the pixels did to one control point it kept.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct PointRefinement {
+    /// The correlation measure's value at the peak.
+    pub correlation: f64,
+    /// How far the target position moved, metres.
+    pub shift_m: f64,
+}
+
+/// What the refinement on the pixels did to the control points of a raster match.
+#[derive(Debug, Clone, PartialEq)]
+pub struct PixelRefinement {
+    /// The correlation measure (`crate::refine::Measure` name).
+    pub measure: String,
+    /// Control points tried.
+    pub tried: usize,
+    /// Control points kept (refined, and the transform refitted on them).
+    pub kept: usize,
+    /// The ones not kept, by cause.
+    pub not_kept: Vec<(String, usize)>,
+    /// Per control point of the refitted solution, in its order.
+    pub per_point: Vec<PointRefinement>,
+    /// Median shift of the kept control points, metres.
+    pub median_shift_m: f64,
+    /// Why the refinement was not applied (the solution is then the keypoints' fit).
+    pub not_applied: Option<String>,
 }
 
 impl MatchOutcome {

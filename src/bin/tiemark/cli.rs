@@ -8,7 +8,7 @@ use serde::de::DeserializeOwned;
 use std::path::PathBuf;
 use tiemark::config::{
     FitParams, FrameOptions, KeypointParams, MatchConfig, MatchingParams, OutputOptions,
-    SignatureChoice, SurveyInput,
+    RefineParams, SignatureChoice, SurveyInput,
 };
 use tiemark::fit::prior;
 use tiemark::ingest::BandChoice;
@@ -286,6 +286,7 @@ impl MatchArgs {
                 max_scale_ppm: self.max_scale_error,
             },
             keypoints: self.raster.params(),
+            refine: RefineParams::default(),
         };
         let output = OutputOptions {
             dir: self.out,

@@ -9,6 +9,8 @@
 //! fit on points already in a working frame (benchmarks and experiments call it, so they
 //! measure what ships). Writing is the front ends' business ([`crate::emit`]).
 
+mod pixels;
+
 use crate::config::{ConfigError, MatchConfig};
 use crate::fit::{self, FitInput, Rejection, Solution};
 use crate::frame::{self, FrameError};
@@ -20,6 +22,7 @@ use crate::progress::{stage, Progress};
 use crate::resources::{self, ResourceError};
 use crate::signatures::{self, SignatureError, Signatures};
 use crate::spatial::{median_spacing, morton_order, PointIndex, Survey};
+pub use pixels::MAX_REFERENCE_PIXELS;
 use std::path::PathBuf;
 
 /// Anything that stops a run. Each variant's message names the file or option and the fix.
@@ -142,6 +145,26 @@ pub fn match_surveys(config: &MatchConfig, progress: &dyn Progress) -> Result<Ma
         progress,
         &labels,
     )?;
+    let mut frame = frame;
+    let mut fit = fit;
+    let pixels = match fit.as_mut() {
+        Ok(solution) if reference.raster.is_some() && target.raster.is_some() => stage(
+            progress,
+            "refining control points on the pixels",
+            None,
+            |_| {
+                pixels::refine_on_pixels(
+                    [&config.reference, &config.target],
+                    [&reference, &target],
+                    &mut frame,
+                    solution,
+                    &config.refine,
+                    config.fit.min_control_points,
+                )
+            },
+        )?,
+        _ => None,
+    };
     Ok(MatchOutcome {
         config: config.clone(),
         reference,
@@ -149,6 +172,7 @@ pub fn match_surveys(config: &MatchConfig, progress: &dyn Progress) -> Result<Ma
         frame,
         search,
         fit,
+        pixels,
     })
 }
 
