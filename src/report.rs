@@ -320,19 +320,6 @@ pub fn rejection(r: &MatchOutcome, rejection: &Rejection) -> String {
     o
 }
 
-#[cfg(test)]
-mod tests {
-    #[test]
-    fn coverage_of_a_spread_and_a_clustered_set() {
-        let spread: Vec<[f64; 2]> = (0..16).map(|i| [(i % 4) as f64, (i / 4) as f64]).collect();
-        assert_eq!(super::coverage(&spread).0, 1.0);
-        let mut clustered = vec![[0.0, 0.0]; 10];
-        clustered.push([1.0, 1.0]);
-        let (c, minq) = super::coverage(&clustered);
-        assert!(c < 0.2 && minq == 0);
-    }
-}
-
 /// What the refinement on the pixels did, e.g. `refined          240 of 251 control points on
 /// the pixels (orientation correlation), median shift 0.041 m; not kept: 11 no clear
 /// correlation peak`.
@@ -353,5 +340,18 @@ pub fn pixels_line(px: &crate::outcome::PixelRefinement) -> String {
             "refined          {} of {} control points on the pixels ({} correlation), the transform refitted on them; median shift {:.3} m{not_kept}",
             px.kept, px.tried, px.measure, px.median_shift_m
         ),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    #[test]
+    fn coverage_of_a_spread_and_a_clustered_set() {
+        let spread: Vec<[f64; 2]> = (0..16).map(|i| [(i % 4) as f64, (i / 4) as f64]).collect();
+        assert_eq!(super::coverage(&spread).0, 1.0);
+        let mut clustered = vec![[0.0, 0.0]; 10];
+        clustered.push([1.0, 1.0]);
+        let (c, minq) = super::coverage(&clustered);
+        assert!(c < 0.2 && minq == 0);
     }
 }

@@ -68,7 +68,14 @@ fn write_band(band: usize, path: &Path, with_error: bool, mirrored: bool) -> [f6
         let o = error(centre, [gt[0], gt[3]]);
         let ex = error(centre, [gt[0] + gt[1], gt[3]]);
         let ey = error(centre, [gt[0], gt[3] + gt[5]]);
-        [o[0], ex[0] - o[0], ey[0] - o[0], o[1], ex[1] - o[1], ey[1] - o[1]]
+        [
+            o[0],
+            ex[0] - o[0],
+            ey[0] - o[0],
+            o[1],
+            ex[1] - o[1],
+            ey[1] - o[1],
+        ]
     } else {
         gt
     };
