@@ -143,6 +143,25 @@ fn two_bands_with_a_known_georeferencing_error_are_coregistered_within_a_third_o
     }
     eprintln!("{text}\nworst corner error {worst:.4} px");
     assert!(worst <= 0.3, "corner error {worst:.3} px\n{text}");
+    // GDAL (the reference library) reads both VRTs: the GCP list, one GCP a control point, in
+    // the reference's CRS; the corrected geotransform puts the corners where the truth does.
+    let gcps = Dataset::open(dir.path().join("out/target-gcps.vrt")).unwrap();
+    let control_points = t["inliers"].as_u64().unwrap() as usize;
+    assert_eq!(gcps.gcps().len(), control_points);
+    assert!(gcps.gcp_spatial_ref().is_some());
+    let fixed = Dataset::open(dir.path().join("out/target-georeferenced.vrt"))
+        .unwrap()
+        .geo_transform()
+        .unwrap();
+    for (p, l) in [(0.0, 0.0), (w, 0.0), (0.0, h), (w, h)] {
+        let truth = [gt[0] + gt[1] * p, gt[3] + gt[5] * l];
+        let got = [
+            fixed[0] + fixed[1] * p + fixed[2] * l,
+            fixed[3] + fixed[4] * p + fixed[5] * l,
+        ];
+        let px = (got[0] - truth[0]).hypot(got[1] - truth[1]) / gt[1];
+        assert!(px <= 0.3, "corrected geotransform off by {px:.3} px at ({p}, {l})");
+    }
 }
 
 #[test]

@@ -45,6 +45,7 @@ pub mod gpkg;
 pub mod json;
 pub mod raster;
 
+use crate::fit::Solution;
 use crate::ingest::LandmarkSet;
 use crate::outcome::MatchOutcome;
 use atomic::Staging;
@@ -195,10 +196,11 @@ pub fn write_all(
         gpkg::write_control_points(outcome, solution, &staging.path.join(FILES[1]))?;
         json::write_transform(outcome, solution, &staging.path.join(FILES[2]))?;
         let report_path = staging.path.join(FILES[3]);
-        std::fs::write(&report_path, report).map_err(io_err(&report_path))
+        std::fs::write(&report_path, report).map_err(io_err(&report_path))?;
+        raster_outputs(outcome, solution, &staging.path)
     })();
     // A full disk is said of the output folder (the staging folder is gone by then).
-    written.map_err(|e| match e {
+    let extra = written.map_err(|e| match e {
         EmitError::DiskFull { path, detail } => EmitError::DiskFull {
             path: out.given.clone(),
             detail: format!(
@@ -208,8 +210,70 @@ pub fn write_all(
         },
         other => other,
     })?;
-    atomic::put_in_place(staging, dir, &FILES, out.mode())?;
-    Ok(FILES.iter().map(|f| out.shown(f)).collect())
+    let names: Vec<&str> = FILES.iter().copied().chain(extra.iter().copied()).collect();
+    atomic::put_in_place(staging, dir, &names, out.mode())?;
+    Ok(names.iter().map(|f| out.shown(f)).collect())
+}
+
+/// For a raster target, the files that co-register it, written into `dir`; their names.
+/// `target-gcps.vrt` carries every control point as a GCP (target pixel/line → the reference's
+/// own coordinates) when the reference has a CRS; `target-georeferenced.vrt` gives the target
+/// the corrected geotransform when the similarity maps the target's own coordinates onto the
+/// reference's (one CRS for both and for the fit).
+fn raster_outputs(
+    outcome: &MatchOutcome,
+    solution: &Solution,
+    dir: &Path,
+) -> Result<Vec<&'static str>, EmitError> {
+    let Some(image) = &outcome.target.raster else {
+        return Ok(Vec::new());
+    };
+    let Some(reference_wkt) = outcome.reference.crs_wkt.as_deref() else {
+        return Ok(Vec::new());
+    };
+    let working = outcome.frame.crs.wkt.as_str();
+    let one_crs = outcome.target.crs_wkt.as_deref() == Some(working) && reference_wkt == working;
+    let to_pixel = image
+        .geotransform
+        .inverse()
+        .expect("a raster survey's geotransform has an inverse (checked on reading)");
+    let gcps: Vec<raster::Gcp> = solution
+        .pairs
+        .iter()
+        .map(|p| {
+            let (r, t) = (p.reference as usize, p.target as usize);
+            // The target position fitted: in the target's own CRS it is the working frame's
+            // (refined on the pixels when that applied), else the keypoint as read.
+            let at = if one_crs {
+                outcome.frame.target[t]
+            } else {
+                outcome.target.points[t]
+            };
+            let [pixel, line] = to_pixel.pixel_to_map(at[0], at[1]);
+            let [x, y] = outcome.reference.points[r];
+            raster::Gcp {
+                id: outcome.reference.ids[r].clone(),
+                pixel,
+                line,
+                x,
+                y,
+            }
+        })
+        .collect();
+    let source = &outcome.target.source;
+    raster::write_gcp_vrt(source, &gcps, reference_wkt, &dir.join(raster::GCP_VRT))?;
+    let mut names = vec![raster::GCP_VRT];
+    if one_crs {
+        raster::write_georeferenced_vrt(
+            source,
+            &image.geotransform,
+            &solution.fit.transform,
+            reference_wkt,
+            &dir.join(raster::GEOREFERENCED_VRT),
+        )?;
+        names.push(raster::GEOREFERENCED_VRT);
+    }
+    Ok(names)
 }
 
 /// The landmark file format of an output path, by its extension (lower case): `csv`, `gpkg`,

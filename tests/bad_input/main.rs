@@ -902,7 +902,11 @@ fn raster_named_gpkg_is_read_as_a_raster() {
     site.expect_failure(
         &local_match("survey.gpkg", target, &[]),
         2,
-        &["survey.gpkg", "raster image has no georeferencing", "geotransform"],
+        &[
+            "survey.gpkg",
+            "raster image has no georeferencing",
+            "geotransform",
+        ],
     );
 }
 
