@@ -160,7 +160,10 @@ fn two_bands_with_a_known_georeferencing_error_are_coregistered_within_a_third_o
             fixed[3] + fixed[4] * p + fixed[5] * l,
         ];
         let px = (got[0] - truth[0]).hypot(got[1] - truth[1]) / gt[1];
-        assert!(px <= 0.3, "corrected geotransform off by {px:.3} px at ({p}, {l})");
+        assert!(
+            px <= 0.3,
+            "corrected geotransform off by {px:.3} px at ({p}, {l})"
+        );
     }
 }
 
