@@ -46,6 +46,11 @@ pub struct OutputOptions {
     /// Replace tiemark's files in an existing non-empty folder.
     #[serde(default)]
     pub force: bool,
+    /// For a raster target: also write it warped onto the reference's grid
+    /// (`target-coregistered.tif`) with this resampling (`nearest`, `bilinear`, `cubic`,
+    /// `lanczos` or `average`); `None`: no warp.
+    #[serde(default)]
+    pub warp: Option<String>,
 }
 
 /// Everything one match needs.

@@ -110,7 +110,14 @@ fn two_bands_with_a_known_georeferencing_error_are_coregistered_within_a_third_o
     write_band(2, &dir.path().join("green-moved.tif"), true, false);
     let (code, text) = tiemark(
         dir.path(),
-        &["match", "red.tif", "green-moved.tif", "--out", "out"],
+        &[
+            "match",
+            "red.tif",
+            "green-moved.tif",
+            "--out",
+            "out",
+            "--warp",
+        ],
     );
     assert_eq!(code, Some(0), "{text}");
     assert!(text.contains("on the pixels"), "{text}");
@@ -149,6 +156,9 @@ fn two_bands_with_a_known_georeferencing_error_are_coregistered_within_a_third_o
     let control_points = t["inliers"].as_u64().unwrap() as usize;
     assert_eq!(gcps.gcps().len(), control_points);
     assert!(gcps.gcp_spatial_ref().is_some());
+    let warped = Dataset::open(dir.path().join("out/target-coregistered.tif")).unwrap();
+    assert_eq!(warped.projection(), gcps.gcp_projection().unwrap());
+    assert!((warped.geo_transform().unwrap()[1] - gt[1]).abs() < 1e-6 * gt[1]);
     let fixed = Dataset::open(dir.path().join("out/target-georeferenced.vrt"))
         .unwrap()
         .geo_transform()

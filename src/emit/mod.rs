@@ -53,6 +53,13 @@ pub use atomic::{remove_leftovers, Leftovers};
 pub use destination::{check_output_dir, check_output_file, Destination};
 use std::path::{Path, PathBuf};
 
+/// The files a raster target adds (see [`raster`]).
+pub const RASTER_FILES: [&str; 3] = [
+    raster::GCP_VRT,
+    raster::GEOREFERENCED_VRT,
+    raster::COREGISTERED_TIF,
+];
+
 /// Names of the files a match writes.
 pub const FILES: [&str; 4] = [
     "control-points.csv",
@@ -184,6 +191,7 @@ pub fn write_all(
     outcome: &MatchOutcome,
     out: &Destination,
     report: &str,
+    warp: Option<raster::Resampling>,
 ) -> Result<Vec<PathBuf>, EmitError> {
     let solution = outcome.solution().ok_or(EmitError::NothingAccepted)?;
     // Again, after the work: another run may have written there meanwhile.
@@ -197,7 +205,7 @@ pub fn write_all(
         json::write_transform(outcome, solution, &staging.path.join(FILES[2]))?;
         let report_path = staging.path.join(FILES[3]);
         std::fs::write(&report_path, report).map_err(io_err(&report_path))?;
-        raster_outputs(outcome, solution, &staging.path)
+        raster_outputs(outcome, solution, &staging.path, warp)
     })();
     // A full disk is said of the output folder (the staging folder is gone by then).
     let extra = written.map_err(|e| match e {
@@ -224,6 +232,7 @@ fn raster_outputs(
     outcome: &MatchOutcome,
     solution: &Solution,
     dir: &Path,
+    warp: Option<raster::Resampling>,
 ) -> Result<Vec<&'static str>, EmitError> {
     let Some(image) = &outcome.target.raster else {
         return Ok(Vec::new());
@@ -272,6 +281,39 @@ fn raster_outputs(
             &dir.join(raster::GEOREFERENCED_VRT),
         )?;
         names.push(raster::GEOREFERENCED_VRT);
+    }
+    if let Some(resampling) = warp {
+        // Onto the reference's grid when it is an image; else onto a north-up grid of the
+        // target's own pixel size in the reference's CRS.
+        let grid = match &outcome.reference.raster {
+            Some(r) => raster::ReferenceGrid {
+                crs_wkt: reference_wkt.to_string(),
+                geotransform: r.geotransform,
+                width: r.width,
+                height: r.height,
+            },
+            None => {
+                let px = image.pixel_m / outcome.frame.metres_per_unit();
+                raster::ReferenceGrid {
+                    crs_wkt: reference_wkt.to_string(),
+                    geotransform: crate::image::GeoTransform([0.0, px, 0.0, 0.0, 0.0, -px]),
+                    width: 1,
+                    height: 1,
+                }
+            }
+        };
+        let options = raster::WarpOptions {
+            resampling,
+            ..raster::WarpOptions::default()
+        };
+        raster::warp_to_reference(
+            &dir.join(raster::GCP_VRT),
+            &grid,
+            &options,
+            &dir.join(raster::COREGISTERED_TIF),
+            None,
+        )?;
+        names.push(raster::COREGISTERED_TIF);
     }
     Ok(names)
 }

@@ -83,6 +83,9 @@ pub struct MatchArgs {
     /// Replace tiemark's files in a non-empty output folder.
     #[arg(long)]
     force: bool,
+    /// Raster target: also write it warped onto the reference's grid (target-coregistered.tif), resampled with nearest, bilinear, cubic, lanczos or average.
+    #[arg(long, num_args = 0..=1, default_missing_value = "bilinear", value_name = "RESAMPLING")]
+    warp: Option<String>,
     /// Layer of the reference (default: the only or first layer).
     #[arg(long)]
     reference_layer: Option<String>,
@@ -291,6 +294,7 @@ impl MatchArgs {
         let output = OutputOptions {
             dir: self.out,
             force: self.force,
+            warp: self.warp,
         };
         (config, output)
     }
@@ -325,6 +329,7 @@ const FLAGS: &[(&str, &str)] = &[
     ("fit.confidence", "--confidence"),
     ("fit.max_rounds", "--max-rounds"),
     ("keypoints.feature_size_m", "--feature-size"),
+    ("output.warp", "--warp"),
     ("keypoints.target_count", "--keypoints"),
     ("fit.seed", "--seed"),
     ("fit.false_alarm_level", "--false-alarm-level"),

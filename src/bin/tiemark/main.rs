@@ -59,7 +59,27 @@ fn run_match(
         config.target.path.as_path(),
     ];
     inputs.extend(pipeline);
-    let out = match emit::check_output_dir(&output.dir, output.force, &emit::FILES, &inputs) {
+    let warp = match output
+        .warp
+        .as_deref()
+        .map(emit::raster::Resampling::from_name)
+    {
+        None => None,
+        Some(Some(r)) => Some(r),
+        Some(None) => {
+            return error(&format!(
+                "output.warp = {:?} is not a resampling; choose one of {}",
+                output.warp.as_deref().unwrap_or_default(),
+                emit::raster::Resampling::NAMES.join(", ")
+            ))
+        }
+    };
+    let names: Vec<&str> = emit::FILES
+        .iter()
+        .chain(&emit::RASTER_FILES)
+        .copied()
+        .collect();
+    let out = match emit::check_output_dir(&output.dir, output.force, &names, &inputs) {
         Ok(d) => d,
         Err(e) => return error(&e),
     };
@@ -72,7 +92,7 @@ fn run_match(
         print(&summary);
         return ExitCode::from(1);
     }
-    match emit::write_all(&outcome, &out, &summary) {
+    match emit::write_all(&outcome, &out, &summary, warp) {
         Ok(files) => {
             print(&report::with_files(&summary, &files));
             ExitCode::SUCCESS
