@@ -214,7 +214,8 @@ pub fn with_files(summary: &str, files: &[PathBuf]) -> String {
 /// Why no transform was accepted, in words.
 pub fn reason(r: &RejectReason) -> String {
     match *r {
-        RejectReason::NoHypothesis => "no candidate correspondence produced a transform: the neighbourhoods of the two surveys never agreed".into(),
+        RejectReason::NoHypothesis { outside_bounds: 0, .. } => "no candidate correspondence produced a transform: the neighbourhoods of the two surveys never agreed".into(),
+        RejectReason::NoHypothesis { outside_bounds, made } => format!("no candidate correspondence produced a transform: {outside_bounds} of the {made} transforms the neighbourhoods proposed were outside the bounds of the target's georeferencing (fit.max_shift_m, fit.max_rotation_deg, fit.max_scale_ppm) and the rest never agreed; if the bounds are too tight for this survey, widen them"),
         RejectReason::ChanceOnSubset { paired, sampled, chance_rate } => format!(
             "the best transform pairs {paired} of {sampled} sampled landmarks, which chance alone explains (chance rate {:.1}%)",
             100.0 * chance_rate

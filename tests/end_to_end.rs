@@ -365,3 +365,40 @@ fn landmarks_command_writes_what_it_reads() {
     assert!(stderr.contains("--force"), "{stderr}");
     assert_eq!(std::fs::read_to_string(&out).unwrap(), text);
 }
+
+#[test]
+fn a_scale_bound_on_a_grid_in_feet_is_measured_against_the_foot() {
+    // The sample site grid is in international feet (sample-data/site-grid-truth.json: scale
+    // 0.3048 from grid to metres). Declared as such, a scale bound of 5000 ppm admits the fit;
+    // undeclared, the raw scale 0.3048 is 70% off 1 and the bound rightly refuses it.
+    let r = root();
+    let (reference, target) = (
+        r.join("sample-data/town-footprints-2019.gpkg"),
+        r.join("sample-data/site-grid.csv"),
+    );
+    let run = |crs: &str| {
+        let out = tempfile::tempdir().unwrap();
+        let dir = out.path().join("out");
+        let (code, stdout, stderr) = tiemark(&[
+            "match",
+            reference.to_str().unwrap(),
+            target.to_str().unwrap(),
+            "--reference-id",
+            "bldg_id",
+            "--target-id",
+            "pt",
+            "--target-crs",
+            crs,
+            "--max-scale-error",
+            "5000",
+            "--out",
+            dir.to_str().unwrap(),
+        ]);
+        (code, format!("{stdout}{stderr}"))
+    };
+    let (code, text) = run("local:ft");
+    assert_eq!(code, 0, "{text}");
+    let (code, text) = run("local");
+    assert_eq!(code, 1, "{text}");
+    assert!(text.contains("outside the bounds"), "{text}");
+}

@@ -54,6 +54,7 @@ fn solve(
     let facts = FrameFacts {
         metres_per_unit: 1.0,
         georeferenced,
+        unit_scale: 1.0,
     };
     let (_, fit) = solve_pair(&config, reference, target, &facts, &Silent).unwrap();
     fit

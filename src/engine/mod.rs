@@ -92,6 +92,9 @@ pub struct FrameFacts {
     /// Whether the target is georeferenced (not a local grid): then its georeferencing bounds
     /// the transform by default.
     pub georeferenced: bool,
+    /// The scale of a fit with no scale error: 1, or a local grid's declared unit in working
+    /// units.
+    pub unit_scale: f64,
 }
 
 impl FrameFacts {
@@ -99,6 +102,7 @@ impl FrameFacts {
     pub const LOCAL_METRES: FrameFacts = FrameFacts {
         metres_per_unit: 1.0,
         georeferenced: false,
+        unit_scale: 1.0,
     };
 }
 
@@ -141,6 +145,7 @@ pub fn match_surveys(config: &MatchConfig, progress: &dyn Progress) -> Result<Ma
         &FrameFacts {
             metres_per_unit: frame.metres_per_unit(),
             georeferenced: frame.target_crs.is_some(),
+            unit_scale: frame.grid_scale(1.0, 0.0).map_or(1.0, |g| g.unit_factor),
         },
         progress,
         &labels,
@@ -325,6 +330,7 @@ pub fn fit_candidates(
         metres_per_unit: facts.metres_per_unit,
         reference_spacing: found.search.reference_spacing,
         georeferenced: facts.georeferenced,
+        unit_scale: facts.unit_scale,
     };
     stage(progress, "robust fit", None, |_| {
         fit::robust_fit(&input, &config.fit, &mut |m| progress.message(m))

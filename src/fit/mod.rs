@@ -171,6 +171,7 @@ impl FitParams {
         georeferenced: bool,
         centre: [f64; 2],
         metres_per_unit: f64,
+        unit_scale: f64,
     ) -> Option<prior::Prior> {
         let given = [self.max_shift_m, self.max_rotation_deg, self.max_scale_ppm];
         if !georeferenced && given.iter().all(Option::is_none) {
@@ -186,6 +187,7 @@ impl FitParams {
             max_shift: pick(self.max_shift_m, prior::DEFAULT_MAX_SHIFT_M) / metres_per_unit,
             max_rotation: pick(self.max_rotation_deg, prior::DEFAULT_MAX_ROTATION_DEG).to_radians(),
             max_scale_error: pick(self.max_scale_ppm, prior::DEFAULT_MAX_SCALE_PPM) * 1e-6,
+            unit_scale,
         })
     }
 }
@@ -215,6 +217,8 @@ pub struct FitInput<'a> {
     /// Whether the target is georeferenced (its own CRS, not a local grid): then its
     /// georeferencing bounds the transform by default ([`FitParams::prior`]).
     pub georeferenced: bool,
+    /// The scale of a fit with no scale error ([`prior::Prior::unit_scale`]).
+    pub unit_scale: f64,
 }
 
 /// An accepted transform and its control points.
@@ -253,7 +257,12 @@ pub struct Solution {
 pub enum RejectReason {
     /// No candidate correspondence produced a hypothesis that passed the local pre-test: the
     /// neighbourhoods of the two surveys never agreed.
-    NoHypothesis,
+    NoHypothesis {
+        /// Hypotheses set aside as outside the bounds of the target's georeferencing.
+        outside_bounds: usize,
+        /// Hypotheses made.
+        made: usize,
+    },
     /// On a large survey, no hypothesis refined on the spread subset stood out from chance.
     ChanceOnSubset {
         /// Landmarks the best of them paired.
@@ -342,7 +351,12 @@ pub fn robust_fit(
         target_index: input.target_index,
     };
     let centre = crate::spatial::Extent::of(input.target).centre();
-    let prior = params.prior(input.georeferenced, centre, input.metres_per_unit);
+    let prior = params.prior(
+        input.georeferenced,
+        centre,
+        input.metres_per_unit,
+        input.unit_scale,
+    );
     progress("searching for a consistent transform (RANSAC)");
     let rparams = ransac::RansacParams {
         tolerance,
@@ -356,7 +370,10 @@ pub fn robust_fit(
     let r = ransac::ransac(input, &rparams);
     if r.best.is_empty() {
         return Err(Rejection {
-            reason: RejectReason::NoHypothesis,
+            reason: RejectReason::NoHypothesis {
+                outside_bounds: r.outside_bounds,
+                made: r.hypotheses,
+            },
             search_tolerance: tolerance,
             significance: None,
             ransac_rounds: r.rounds,
@@ -492,8 +509,9 @@ pub fn robust_fit(
             .0
             .len()
     };
-    let summary =
-        |t: Similarity, n: usize| prior::Competitor::new(t, n, centre, input.metres_per_unit);
+    let summary = |t: Similarity, n: usize| {
+        prior::Competitor::new(t, n, centre, input.metres_per_unit, input.unit_scale)
+    };
     let chosen = summary(fit.transform, support(&fit.transform));
     if prior.is_some_and(|p| !p.admits(&fit.transform)) {
         return reject(RejectReason::OutsidePrior { found: chosen });

@@ -35,8 +35,11 @@ pub struct Prior {
     pub max_shift: f64,
     /// Largest rotation, radians.
     pub max_rotation: f64,
-    /// Largest scale error, as a fraction (1e-6 = 1 ppm).
+    /// Largest scale error, as a fraction (1e-6 = 1 ppm), measured against `unit_scale`.
     pub max_scale_error: f64,
+    /// The scale of a fit with no scale error: 1, or for a local grid of a declared unit that
+    /// unit in working units (0.3048 for a grid in feet on a CRS in metres).
+    pub unit_scale: f64,
 }
 
 impl Prior {
@@ -46,7 +49,7 @@ impl Prior {
         let shift = (c[0] - self.centre[0]).hypot(c[1] - self.centre[1]);
         shift <= self.max_shift
             && s.rotation().abs() <= self.max_rotation
-            && (s.scale() - 1.0).abs() <= self.max_scale_error
+            && (s.scale() / self.unit_scale - 1.0).abs() <= self.max_scale_error
     }
 }
 
@@ -67,14 +70,21 @@ pub struct Competitor {
 }
 
 impl Competitor {
-    /// Summarises `s` with its `support`; `centre` is the target's centre and
-    /// `metres_per_unit` converts the shift.
-    pub fn new(s: Similarity, support: usize, centre: [f64; 2], metres_per_unit: f64) -> Self {
+    /// Summarises `s` with its `support`; `centre` is the target's centre,
+    /// `metres_per_unit` converts the shift and the scale error is measured against
+    /// `unit_scale` (see [`Prior::unit_scale`]).
+    pub fn new(
+        s: Similarity,
+        support: usize,
+        centre: [f64; 2],
+        metres_per_unit: f64,
+        unit_scale: f64,
+    ) -> Self {
         let c = s.apply(centre);
         Competitor {
             transform: s,
             rotation_deg: s.rotation().to_degrees(),
-            scale_ppm: (s.scale() - 1.0) * 1e6,
+            scale_ppm: (s.scale() / unit_scale - 1.0) * 1e6,
             shift_m: [
                 (c[0] - centre[0]) * metres_per_unit,
                 (c[1] - centre[1]) * metres_per_unit,
@@ -103,6 +113,7 @@ mod tests {
             max_shift: 10.0,
             max_rotation: 1f64.to_radians(),
             max_scale_error: 1e-3,
+            unit_scale: 1.0,
         };
         assert!(prior.admits(&Similarity::IDENTITY));
         // A rotation of 0.5° about the centre moves nothing there: admitted, although it

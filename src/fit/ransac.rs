@@ -95,6 +95,8 @@ pub struct RansacOutcome {
     pub hypotheses: usize,
     /// Size of the scoring sample.
     pub sample_size: usize,
+    /// Hypotheses set aside because they lie outside the prior's bounds.
+    pub outside_bounds: usize,
 }
 
 /// Log-likelihood-ratio steps and thresholds of the pre-test.
@@ -264,6 +266,7 @@ pub fn ransac(input: &RansacInput, params: &RansacParams) -> RansacOutcome {
         best: Vec::new(),
         rounds: 0,
         hypotheses: 0,
+        outside_bounds: 0,
         sample_size: 0,
     };
     if cands.is_empty() {
@@ -324,6 +327,7 @@ pub fn ransac(input: &RansacInput, params: &RansacParams) -> RansacOutcome {
         for (h, fitted) in hyps.into_iter().flatten() {
             out.hypotheses += 1;
             if params.prior.is_some_and(|p| !p.admits(&h)) {
+                out.outside_bounds += 1;
                 continue;
             }
             if !scorer.local_test(&h, t1, fitted) {
@@ -497,6 +501,7 @@ mod tests {
                 metres_per_unit: 1.0,
                 reference_spacing: self.spacing,
                 georeferenced: false,
+                unit_scale: 1.0,
             }
         }
 
