@@ -156,6 +156,22 @@ fn two_bands_with_a_known_georeferencing_error_are_coregistered_within_a_third_o
     let control_points = t["inliers"].as_u64().unwrap() as usize;
     assert_eq!(gcps.gcps().len(), control_points);
     assert!(gcps.gcp_spatial_ref().is_some());
+    // The control-point table says where each point is on the target's pixels and what the
+    // refinement found there.
+    let table = std::fs::read_to_string(dir.path().join("out/control-points.csv")).unwrap();
+    let mut rows = table.lines();
+    let header: Vec<&str> = rows.next().unwrap().split(',').collect();
+    let col = |name: &str| header.iter().position(|h| *h == name).unwrap();
+    let (cp, cl, cc) = (col("target_pixel"), col("target_line"), col("correlation"));
+    let mut n = 0;
+    for row in rows {
+        let f: Vec<f64> = row.split(',').skip(2).map(|v| v.parse().unwrap()).collect();
+        let (p, l, c) = (f[cp - 2], f[cl - 2], f[cc - 2]);
+        assert!((0.0..=w).contains(&p) && (0.0..=h).contains(&l), "{row}");
+        assert!(c > 0.0 && c <= 1.0, "{row}");
+        n += 1;
+    }
+    assert_eq!(n, control_points);
     let warped = Dataset::open(dir.path().join("out/target-coregistered.tif")).unwrap();
     assert_eq!(warped.projection(), gcps.gcp_projection().unwrap());
     assert!((warped.geo_transform().unwrap()[1] - gt[1]).abs() < 1e-6 * gt[1]);

@@ -47,7 +47,33 @@ pub fn write_control_points(
             .as_ref()
             .is_some_and(|c| c.geographic),
     );
-    writeln!(w, "{HEADER}").map_err(io_err(path))?;
+    // A raster target adds where each control point is on its pixels (GDAL's pixel/line,
+    // full resolution) and, when refined there, the correlation and the shift it made.
+    let to_pixel = result
+        .target
+        .raster
+        .as_ref()
+        .and_then(|r| r.geotransform.inverse());
+    let refined: Option<std::collections::HashMap<(u32, u32), crate::outcome::PointRefinement>> =
+        result
+            .pixels
+            .as_ref()
+            .filter(|p| p.not_applied.is_none())
+            .map(|p| {
+                s.pairs
+                    .iter()
+                    .zip(&p.per_point)
+                    .map(|(pair, r)| ((pair.reference, pair.target), *r))
+                    .collect()
+            });
+    let mut header = HEADER.to_string();
+    if to_pixel.is_some() {
+        header.push_str(",target_pixel,target_line");
+    }
+    if refined.is_some() {
+        header.push_str(",correlation,refine_shift_m");
+    }
+    writeln!(w, "{header}").map_err(io_err(path))?;
     let mut pairs = s.pairs.clone();
     pairs.sort_by(|a, b| {
         result.reference.ids[a.reference as usize].cmp(&result.reference.ids[b.reference as usize])
@@ -59,9 +85,20 @@ pub fn write_control_points(
         let m = t.apply(result.frame.target[ti]);
         let rw = result.frame.reference[ri];
         let (dx, dy) = ((rw[0] - m[0]) * mpu, (rw[1] - m[1]) * mpu);
+        let mut extra = String::new();
+        if let Some(g) = &to_pixel {
+            let [px, ln] = g.pixel_to_map(tp[0], tp[1]);
+            extra.push_str(&format!(",{px:.3},{ln:.3}"));
+        }
+        if let Some(r) = refined
+            .as_ref()
+            .and_then(|m| m.get(&(p.reference, p.target)))
+        {
+            extra.push_str(&format!(",{:.4},{:.4}", r.correlation, r.shift_m));
+        }
         writeln!(
             w,
-            "{},{},{:.rd$},{:.rd$},{:.td$},{:.td$},{:.4},{:.4},{:.4}",
+            "{},{},{:.rd$},{:.rd$},{:.td$},{:.td$},{:.4},{:.4},{:.4}{extra}",
             field(&result.reference.ids[ri]),
             field(&result.target.ids[ti]),
             r[0],

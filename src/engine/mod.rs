@@ -170,6 +170,11 @@ pub fn match_surveys(config: &MatchConfig, progress: &dyn Progress) -> Result<Ma
         )?,
         _ => None,
     };
+    // Refined on the pixels, the target's positions are the working frame's (one CRS).
+    let mut target = target;
+    if pixels.as_ref().is_some_and(|p| p.not_applied.is_none()) {
+        target.points = frame.target.clone();
+    }
     Ok(MatchOutcome {
         config: config.clone(),
         reference,
