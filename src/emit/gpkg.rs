@@ -60,33 +60,10 @@ impl Drop for DateFixed {
 /// Closes `ds` and returns a failure GDAL raised while closing but did not return: GDAL 3.6's
 /// GeoPackage driver builds the spatial index at close, and on a full disk only prints the
 /// error and leaves the file without it.
-#[allow(unsafe_code)]
 fn close_checked(ds: Dataset, path: &Path) -> Result<(), EmitError> {
-    // SAFETY: resets GDAL's per-thread error state; no pointers involved.
-    unsafe { gdal_sys::CPLErrorReset() };
+    crate::ingest::clear_gdal_error();
     ds.close().map_err(gdal_err(path))?;
-    // SAFETY: GDAL's per-thread error state is read; the message pointer, owned by GDAL, is
-    // checked for NULL and copied before the state is reset.
-    let failure = unsafe {
-        let class = gdal_sys::CPLGetLastErrorType();
-        if class < gdal_sys::CPLErr::CE_Failure {
-            None
-        } else {
-            let number = gdal_sys::CPLGetLastErrorNo();
-            let text = gdal_sys::CPLGetLastErrorMsg();
-            let msg = if text.is_null() {
-                String::new()
-            } else {
-                std::ffi::CStr::from_ptr(text)
-                    .to_string_lossy()
-                    .trim()
-                    .to_string()
-            };
-            gdal_sys::CPLErrorReset();
-            Some(gdal::errors::GdalError::CplError { class, number, msg })
-        }
-    };
-    match failure {
+    match crate::ingest::take_gdal_failure() {
         Some(e) => Err(gdal_err(path)(e)),
         None => Ok(()),
     }

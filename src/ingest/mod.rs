@@ -49,6 +49,7 @@
 //! ambiguous. A cell that is not a finite number is an error, not a skipped feature.
 
 mod csv;
+pub(crate) use open::{clear_gdal_error, take_gdal_failure};
 mod open;
 mod raster;
 mod raster_landmarks;

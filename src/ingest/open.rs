@@ -200,7 +200,7 @@ impl Drop for QuietGdal {
 /// Forgets this thread's last GDAL error, so that [`take_gdal_failure`] sees only errors
 /// raised after it.
 #[allow(unsafe_code)]
-pub(super) fn clear_gdal_error() {
+pub(crate) fn clear_gdal_error() {
     // SAFETY: resets GDAL's per-thread error state; no pointers involved.
     unsafe { gdal_sys::CPLErrorReset() };
 }
@@ -210,7 +210,7 @@ pub(super) fn clear_gdal_error() {
 /// error, and prints it, when it cannot fetch a feature of a truncated file — and then ends
 /// the layer as if it were complete.
 #[allow(unsafe_code)]
-pub(super) fn take_gdal_failure() -> Option<GdalError> {
+pub(crate) fn take_gdal_failure() -> Option<GdalError> {
     // SAFETY: GDAL's per-thread error state is read; the message pointer, owned by GDAL, is
     // checked for NULL and copied before the state is reset.
     unsafe {

@@ -73,7 +73,7 @@ fn count<T: std::str::FromStr>(s: &str) -> Result<T, String> {
 
 #[derive(Args)]
 pub struct MatchArgs {
-    /// The reference survey (older, trusted): any GDAL vector dataset.
+    /// The reference survey (older, trusted): any GDAL vector dataset, or a georeferenced raster image.
     reference: PathBuf,
     /// The target survey (to bring onto the reference).
     target: PathBuf,
