@@ -22,6 +22,7 @@ use std::process::{Command, Stdio};
 
 mod ingest;
 mod messages;
+mod rasters;
 
 /// The GeoJSON `crs` member value for WGS 84 / UTM zone 33N.
 const UTM33: &str = "urn:ogc:def:crs:EPSG::32633";

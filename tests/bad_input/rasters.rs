@@ -1,0 +1,161 @@
+//! Raster surveys that cannot be matched: each is refused before any work, with the file and
+//! what to do, and nothing is written.
+
+use super::*;
+use gdal::raster::Buffer;
+use gdal::Dataset;
+
+/// Writes a one-band 64 × 48 GeoTIFF of `pixels` (row-major) with `geotransform` (or none)
+/// and the CRS of EPSG `epsg` (or none).
+fn write_tif(
+    site: &Site,
+    name: &'static str,
+    pixels: Vec<u8>,
+    geotransform: Option<[f64; 6]>,
+    epsg: Option<u32>,
+) -> Dataset {
+    let driver = DriverManager::get_driver_by_name("GTiff").unwrap();
+    let mut ds = driver
+        .create_with_band_type::<u8, _>(site.path(name), 64, 48, 1)
+        .unwrap();
+    if let Some(gt) = geotransform {
+        ds.set_geo_transform(&gt).unwrap();
+    }
+    if let Some(code) = epsg {
+        ds.set_spatial_ref(&SpatialRef::from_epsg(code).unwrap())
+            .unwrap();
+    }
+    let mut buffer = Buffer::new((64, 48), pixels);
+    ds.rasterband(1)
+        .unwrap()
+        .write((0, 0), (64, 48), &mut buffer)
+        .unwrap();
+    ds
+}
+
+/// A seeded pattern of bright and dark dots, so that a detector has something to find.
+fn dots() -> Vec<u8> {
+    let mut rng = Lcg(7);
+    let mut px = vec![128u8; 64 * 48];
+    for _ in 0..40 {
+        let (c, r) = (
+            (rng.next() * 60.0) as usize + 2,
+            (rng.next() * 44.0) as usize + 2,
+        );
+        let v = if rng.next() < 0.5 { 20 } else { 235 };
+        for (dc, dr) in [(0, 0), (1, 0), (0, 1), (1, 1)] {
+            px[(r + dr) * 64 + c + dc] = v;
+        }
+    }
+    px
+}
+
+const UTM_GT: [f64; 6] = [455_000.0, 2.0, 0.0, 5_211_000.0, 0.0, -2.0];
+
+#[test]
+fn raster_on_a_geographic_grid() {
+    let site = Site::new();
+    drop(write_tif(
+        &site,
+        "degrees.tif",
+        dots(),
+        Some([15.0, 0.0001, 0.0, 47.0, 0.0, -0.0001]),
+        Some(4326),
+    ));
+    site.refuses_match(
+        Some("degrees.tif"),
+        None,
+        &[],
+        &[
+            "degrees.tif",
+            "geographic grid",
+            "warp it to a projected CRS",
+        ],
+    );
+}
+
+#[test]
+fn raster_georeferenced_by_gcps_only() {
+    let site = Site::new();
+    let ds = write_tif(&site, "gcps.tif", dots(), None, None);
+    let gcps = [(0.0, 0.0), (64.0, 0.0), (0.0, 48.0)]
+        .iter()
+        .enumerate()
+        .map(|(i, &(p, l))| gdal::Gcp {
+            id: format!("{i}"),
+            info: String::new(),
+            pixel: p,
+            line: l,
+            x: 455_000.0 + 2.0 * p,
+            y: 5_211_000.0 - 2.0 * l,
+            z: 0.0,
+        })
+        .collect();
+    ds.set_gcps(gcps, &SpatialRef::from_epsg(32633).unwrap())
+        .unwrap();
+    drop(ds);
+    site.refuses_match(
+        Some("gcps.tif"),
+        None,
+        &[],
+        &[
+            "gcps.tif",
+            "ground control points only",
+            "warp it onto a map grid",
+        ],
+    );
+}
+
+#[test]
+fn raster_band_that_does_not_exist() {
+    let site = Site::new();
+    drop(write_tif(
+        &site,
+        "one-band.tif",
+        dots(),
+        Some(UTM_GT),
+        Some(32633),
+    ));
+    site.refuses_match(
+        Some("one-band.tif"),
+        None,
+        &["--reference-band", "3"],
+        &["one-band.tif", "has no band 3", "1 band(s)"],
+    );
+}
+
+#[test]
+fn raster_with_nothing_to_find() {
+    // A constant image has no keypoints: too few landmarks, said of the file.
+    let site = Site::new();
+    drop(write_tif(
+        &site,
+        "flat.tif",
+        vec![90; 64 * 48],
+        Some(UTM_GT),
+        Some(32633),
+    ));
+    site.refuses_match(Some("flat.tif"), None, &[], &["flat.tif", "landmark"]);
+}
+
+#[test]
+fn feature_size_below_the_pixels() {
+    let site = Site::new();
+    drop(write_tif(
+        &site,
+        "coarse.tif",
+        dots(),
+        Some(UTM_GT),
+        Some(32633),
+    ));
+    site.refuses_match(
+        Some("coarse.tif"),
+        None,
+        &["--feature-size", "0.5"],
+        &[
+            "coarse.tif",
+            "too small for pixels of 2 m",
+            "--feature-size of at least",
+        ],
+    );
+}
