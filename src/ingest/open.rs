@@ -177,11 +177,11 @@ fn csv_prefixed(path: &Path) -> PathBuf {
 /// While alive, GDAL errors on this thread are recorded (GDAL's last-error state, which the
 /// gdal crate reads into its [`GdalError`]s) but not printed: for opens whose failure is not
 /// yet an error. GDAL keeps its error handlers per thread, so the guard must not leave it.
-struct QuietGdal(PhantomData<*const ()>);
+pub(super) struct QuietGdal(PhantomData<*const ()>);
 
 impl QuietGdal {
     #[allow(unsafe_code)]
-    fn new() -> QuietGdal {
+    pub(super) fn new() -> QuietGdal {
         // SAFETY: pushes GDAL's own quiet handler on this thread's handler stack; `Drop` pops
         // it on the same thread (the guard is not `Send`).
         unsafe { gdal_sys::CPLPushErrorHandler(Some(gdal_sys::CPLQuietErrorHandler)) };

@@ -450,9 +450,21 @@ impl RasterSource {
 
     /// The whole image at 1/`decimation` resolution, per the module doc (decimation 1: at full
     /// resolution), read strip by strip ([`plan`](Self::plan)).
+    /// Errors besides the plan's: GDAL failing part-way ([`RasterError::PixelsUnreadable`]) and
+    /// an image with no valid pixel at all ([`RasterError::NoValidPixels`]).
     pub fn read(&self, decimation: usize) -> Result<Image, IngestError> {
         let plan = self.plan(decimation)?;
-        self.read_level(&plan, plan.level, (0, 0), plan.block)
+        let image = self.read_level(&plan, plan.level, (0, 0), plan.block)?;
+        if !image.valid.is_empty() && !image.valid.iter().any(|&v| v) {
+            return Err(RasterError::NoValidPixels {
+                path: self.path.clone(),
+                validity: self
+                    .validity_words()
+                    .unwrap_or_else(|_| "its mask".to_string()),
+            }
+            .into());
+        }
+        Ok(image)
     }
 
     /// The window of `width × height` pixels whose top-left pixel is (`p0`, `l0`), at full
@@ -509,6 +521,7 @@ impl RasterSource {
                 .collect::<Result<_, _>>()?,
             _ => full,
         };
+        let level_height = bands.first().map_or(1, |b| b.size().1);
         // The masks to read: one per band, or one for all when the dataset shares it.
         let mut masked = Vec::new();
         for (i, b) in bands.iter().enumerate() {
@@ -543,9 +556,22 @@ impl RasterSource {
             let window = (to_isize(origin.0), to_isize(origin.1 + r0 * d));
             sum[..n].fill(0.0);
             ok[..n].fill(true);
+            // GDAL's own printing of a failed read is silenced; its error is reported once,
+            // with the file and the row, below.
+            let quiet = super::open::QuietGdal::new();
+            let unreadable = |source| RasterError::PixelsUnreadable {
+                path: path.clone(),
+                // The level's row as a full-resolution row (an overview is smaller).
+                row: (origin.1 + r0 * d) * self.info.height / level_height.max(1),
+                last_row: ((origin.1 + (r0 + k) * d) * self.info.height / level_height.max(1))
+                    .min(self.info.height)
+                    .saturating_sub(1),
+                height: self.info.height,
+                source,
+            };
             for (b, weight) in bands.iter().zip(weights) {
                 b.read_into_slice::<f32>(window, (sw, sh), (sw, sh), &mut values[..n], None)
-                    .map_err(|e| gdal_error(path, e))?;
+                    .map_err(unreadable)?;
                 for ((s, good), v) in sum[..n].iter_mut().zip(&mut ok[..n]).zip(&values[..n]) {
                     if v.is_finite() {
                         *s += weight * f64::from(*v);
@@ -557,11 +583,12 @@ impl RasterSource {
             for &(i, alpha, _) in &masked {
                 let m = bands[i].open_mask_band().map_err(|e| gdal_error(path, e))?;
                 m.read_into_slice::<u8>(window, (sw, sh), (sw, sh), &mut mask[..n], None)
-                    .map_err(|e| gdal_error(path, e))?;
+                    .map_err(unreadable)?;
                 for (good, &v) in ok[..n].iter_mut().zip(&mask[..n]) {
                     *good &= if alpha { v == 255 } else { v != 0 };
                 }
             }
+            drop(quiet);
             for r in 0..k {
                 for c in 0..ow {
                     let rows = r * d..(r + 1) * d;
@@ -781,5 +808,28 @@ pub enum RasterError {
         width: usize,
         /// Image rows.
         height: usize,
+    },
+    /// GDAL failed while reading the pixels: the image was not read to its end.
+    #[error("{path}: GDAL failed reading the pixels of rows {row}-{last_row} (of {height}): {}; the file may be truncated or damaged — repair it, copy it again or export it again", super::gdal_words(.source).trim_end_matches('.'))]
+    PixelsUnreadable {
+        /// Path given.
+        path: PathBuf,
+        /// First full-resolution row of the read that failed.
+        row: usize,
+        /// Its last row.
+        last_row: usize,
+        /// Image rows.
+        height: usize,
+        /// GDAL's error.
+        #[source]
+        source: gdal::errors::GdalError,
+    },
+    /// Not one pixel of the image is data.
+    #[error("{path}: every pixel of the image is no-data ({validity}), so there is nothing to find landmarks in; check the no-data value or mask (e.g. with gdalinfo), or choose another band")]
+    NoValidPixels {
+        /// Path given.
+        path: PathBuf,
+        /// Where validity comes from (a no-data value, a mask, an alpha band).
+        validity: String,
     },
 }

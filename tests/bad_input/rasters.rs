@@ -159,3 +159,46 @@ fn feature_size_below_the_pixels() {
         ],
     );
 }
+
+#[test]
+fn raster_that_is_no_data_everywhere() {
+    // Every pixel equals the band's no-data value: the image has no footprint at all. It must
+    // be said of the file (not "no keypoints" as if the image were merely flat).
+    let site = Site::new();
+    let ds = write_tif(&site, "empty.tif", dots(), Some(UTM_GT), Some(32633));
+    {
+        let mut band = ds.rasterband(1).unwrap();
+        band.set_no_data_value(Some(0.0)).unwrap();
+        let mut zeros = Buffer::new((64, 48), vec![0u8; 64 * 48]);
+        band.write((0, 0), (64, 48), &mut zeros).unwrap();
+    }
+    drop(ds);
+    site.refuses_match(Some("empty.tif"), None, &[], &["empty.tif", "no-data"]);
+}
+
+#[test]
+fn truncated_geotiff() {
+    // A GeoTIFF cut short (an interrupted copy): GDAL opens its header, and the pixel reads
+    // fail part-way. That is an error naming the file, never a survey of what was read.
+    let site = Site::new();
+    let driver = DriverManager::get_driver_by_name("GTiff").unwrap();
+    let (w, h) = (256usize, 256usize);
+    {
+        let mut ds = driver
+            .create_with_band_type::<u8, _>(site.path("cut.tif"), w, h, 1)
+            .unwrap();
+        ds.set_geo_transform(&UTM_GT).unwrap();
+        ds.set_spatial_ref(&SpatialRef::from_epsg(32633).unwrap())
+            .unwrap();
+        let mut rng = Lcg(11);
+        let px: Vec<u8> = (0..w * h).map(|_| (rng.next() * 255.0) as u8).collect();
+        let mut buffer = Buffer::new((w, h), px);
+        ds.rasterband(1)
+            .unwrap()
+            .write((0, 0), (w, h), &mut buffer)
+            .unwrap();
+    }
+    let full = std::fs::read(site.path("cut.tif")).unwrap();
+    std::fs::write(site.path("cut.tif"), &full[..full.len() / 2]).unwrap();
+    site.refuses_match(Some("cut.tif"), None, &[], &["cut.tif", "damaged"]);
+}
