@@ -367,6 +367,31 @@ fn landmarks_command_writes_what_it_reads() {
 }
 
 #[test]
+fn landmarks_of_a_csv_with_no_crs_are_tagged_as_a_local_grid_in_a_geopackage() {
+    // A GeoPackage stores a layer with no CRS as "undefined geographic" (srs_id 0, OGC
+    // GeoPackage Encoding Standard, Requirement 11 — from memory), which a GIS then places in
+    // degrees; local coordinates must be tagged as an engineering (Cartesian) CRS instead.
+    let tmp = tempfile::tempdir().unwrap();
+    let out = tmp.path().join("site.gpkg");
+    let src = root().join("sample-data/site-grid.csv");
+    let (code, _, stderr) = tiemark(&[
+        "landmarks",
+        src.to_str().unwrap(),
+        "--id",
+        "pt",
+        "--out",
+        out.to_str().unwrap(),
+    ]);
+    assert_eq!(code, 0, "{stderr}");
+    let ds = gdal::Dataset::open(&out).unwrap();
+    use gdal::vector::LayerAccess;
+    let layer = ds.layer_by_name("landmarks").unwrap();
+    let srs = layer.spatial_ref().expect("a CRS on the layer");
+    assert!(!srs.is_geographic(), "{:?}", srs.to_wkt());
+    assert!(srs.is_local(), "{:?}", srs.to_wkt());
+}
+
+#[test]
 fn a_scale_bound_on_a_grid_in_feet_is_measured_against_the_foot() {
     // The sample site grid is in international feet (sample-data/site-grid-truth.json: scale
     // 0.3048 from grid to metres). Declared as such, a scale bound of 5000 ppm admits the fit;

@@ -244,9 +244,14 @@ pub fn write_landmarks(set: &LandmarkSet, path: &Path, ext: &str) -> Result<(), 
         "fgb" => "FlatGeobuf",
         _ => "GeoJSON",
     };
+    // Landmarks with no CRS (a CSV of local coordinates) are tagged as an engineering CRS
+    // of unknown unit; with none at all a GeoPackage would call them "undefined geographic".
     let srs = match &set.crs_wkt {
         Some(w) => Some(srs_from_wkt(w, path)?),
-        None => None,
+        None => Some(srs_from_wkt(
+            &crate::frame::grid::engineering_wkt(None),
+            path,
+        )?),
     };
     let (mut ds, _fixed) = if driver_name == "GPKG" {
         let (ds, fixed) = create_gpkg(path)?;
