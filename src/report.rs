@@ -315,10 +315,29 @@ pub fn rejection(r: &MatchOutcome, rejection: &Rejection) -> String {
     let _ = writeln!(o, "working    {}", frame.crs.label());
     let _ = writeln!(o);
     let _ = writeln!(o, "why: {}", reason(&rejection.reason));
+    if let Some(line) = bounds_hint(rejection) {
+        let _ = writeln!(o, "{line}");
+    }
     let _ = writeln!(o, "tolerance {:.3} m; reference median spacing {:.3} m; {} reference and {} target signatures; {} candidates; {} RANSAC rounds", rejection.search_tolerance * mpu, counts.reference_spacing * mpu, counts.reference_signatures, counts.target_signatures, counts.candidates, rejection.ransac_rounds);
     let _ = writeln!(o);
     let _ = writeln!(o, "No control points were written. If the surveys should match: check that they cover the same place (CRS of each file), that the landmarks are the same kind of feature, and try fit.tolerance_m with the expected disagreement in metres, or more signatures.neighbours.");
     o
+}
+
+/// When most transforms the neighbourhoods proposed lay outside the bounds of the target's
+/// georeferencing (and the reason does not already say so), a line that says it and how to
+/// widen them: the bounds may be what kept the right transform out.
+pub fn bounds_hint(rejection: &Rejection) -> Option<String> {
+    let [made, outside] = rejection.hypotheses;
+    let said = matches!(
+        rejection.reason,
+        RejectReason::NoHypothesis { .. } | RejectReason::OutsidePrior { .. }
+    );
+    (!said && made > 0 && outside * 2 > made).then(|| {
+        format!(
+            "bounds: {outside} of the {made} transforms the neighbourhoods proposed lay outside the bounds of the target's georeferencing (fit.max_shift_m, fit.max_rotation_deg, fit.max_scale_ppm); if the target's georeferencing may be worse than that, widen them"
+        )
+    })
 }
 
 /// What the refinement on the pixels did, e.g. `refined          240 of 251 control points on

@@ -320,6 +320,9 @@ pub struct Rejection {
     pub significance: Option<Significance>,
     /// RANSAC rounds run.
     pub ransac_rounds: usize,
+    /// Transforms the neighbourhoods proposed, and how many of them lay outside the bounds
+    /// of the target's georeferencing (by more than their own noise).
+    pub hypotheses: [usize; 2],
 }
 
 /// Landmark count above which guided matching first converges on a spread subset.
@@ -377,6 +380,7 @@ pub fn robust_fit(
             search_tolerance: tolerance,
             significance: None,
             ransac_rounds: r.rounds,
+            hypotheses: [r.hypotheses, r.outside_bounds],
         });
     }
     progress("guided matching");
@@ -434,6 +438,7 @@ pub fn robust_fit(
             search_tolerance: tolerance,
             significance: Some(sig),
             ransac_rounds: r.rounds,
+            hypotheses: [r.hypotheses, r.outside_bounds],
         });
     };
     progress("testing significance against mirrored decoys");
@@ -454,6 +459,7 @@ pub fn robust_fit(
             search_tolerance: tolerance,
             significance: Some(sig),
             ransac_rounds: r.rounds,
+            hypotheses: [r.hypotheses, r.outside_bounds],
         })
     };
     if g.pairs.len() < params.min_control_points {
@@ -502,7 +508,7 @@ pub fn robust_fit(
     let Some(fit) = guided::refit(&frames, &g.pairs) else {
         return reject(RejectReason::DegenerateControlPoints);
     };
-    // A fit outside the bounds of the target's own georeferencing is never reported.
+    // A fit that the bounds of the target's own georeferencing rule out is never reported.
     let subset = coarse.as_deref().unwrap_or(everyone);
     let support = |t: &Similarity| {
         guided::mutual_pairs(&frames, t, inlier_tolerance, coverage, Some(subset))
@@ -513,7 +519,25 @@ pub fn robust_fit(
         prior::Competitor::new(t, n, centre, input.metres_per_unit, input.unit_scale)
     };
     let chosen = summary(fit.transform, support(&fit.transform));
-    if prior.is_some_and(|p| !p.admits(&fit.transform)) {
+    // The bounds hold the fit to within three of its standard errors (common practice for
+    // "the data rule it out"): a truth just inside a tight bound is not refused for the
+    // fit's own noise. Shift at the bounds' centre, `d` from the control points' centroid:
+    // σ/√n there plus what the rotation and scale errors add over `d`.
+    let slack = |p: &prior::Prior| {
+        let n = g.pairs.len() as f64;
+        let m = g.pairs.iter().fold([0.0, 0.0], |m, q| {
+            let t = input.target[q.target as usize];
+            [m[0] + t[0] / n, m[1] + t[1] / n]
+        });
+        let d = (p.centre[0] - m[0]).hypot(p.centre[1] - m[1]);
+        let finite = |v: f64| if v.is_finite() { v } else { 0.0 };
+        prior::Slack {
+            shift: 3.0 * finite(fit.sigma / n.sqrt() + (fit.se_rotation + fit.se_scale) * d),
+            rotation: 3.0 * finite(fit.se_rotation),
+            scale: 3.0 * finite(fit.se_scale / p.unit_scale),
+        }
+    };
+    if prior.is_some_and(|p| !p.admits_within(&fit.transform, &slack(&p))) {
         return reject(RejectReason::OutsidePrior { found: chosen });
     }
     progress("comparing competing transforms");

@@ -45,11 +45,68 @@ pub struct Prior {
 impl Prior {
     /// True when `s` is within every bound.
     pub fn admits(&self, s: &Similarity) -> bool {
+        self.admits_within(s, &Slack::default())
+    }
+
+    /// True when `s` is within every bound widened by `slack`: for a hypothesis whose own
+    /// noise exceeds the bounds (see [`Slack::for_hypothesis`]), so that a transform the truth
+    /// would pass is not set aside for its noise.
+    pub fn admits_within(&self, s: &Similarity, slack: &Slack) -> bool {
         let c = s.apply(self.centre);
         let shift = (c[0] - self.centre[0]).hypot(c[1] - self.centre[1]);
-        shift <= self.max_shift
-            && s.rotation().abs() <= self.max_rotation
-            && (s.scale() / self.unit_scale - 1.0).abs() <= self.max_scale_error
+        shift <= self.max_shift + slack.shift
+            && s.rotation().abs() <= self.max_rotation + slack.rotation
+            && (s.scale() / self.unit_scale - 1.0).abs() <= self.max_scale_error + slack.scale
+    }
+}
+
+/// How far a transform fitted on a few landmarks may stray from the truth by their noise
+/// alone; the bounds of a [`Prior`] are widened by it before a hypothesis is set aside.
+#[derive(Debug, Clone, Copy, PartialEq, Default)]
+pub struct Slack {
+    /// Shift at the prior's centre, working units.
+    pub shift: f64,
+    /// Rotation, radians.
+    pub rotation: f64,
+    /// Scale error, as a fraction.
+    pub scale: f64,
+}
+
+impl Slack {
+    /// The slack of a similarity fitted on the target landmarks `fitted`, each off by up to
+    /// `tolerance` (working units), judged at `centre`. A landmark off by `tolerance` at
+    /// distance `r` from the landmarks' centroid turns the fit by up to about `tolerance / r`
+    /// and scales it by as much; the shift at `centre`, `d` from the centroid, then moves by
+    /// up to `tolerance` plus both times `d` (small-angle geometry; the bound is generous on
+    /// purpose, as the final fit on every control point is held to the bounds themselves).
+    pub fn for_hypothesis(
+        fitted: impl Iterator<Item = [f64; 2]>,
+        tolerance: f64,
+        centre: [f64; 2],
+    ) -> Slack {
+        let fitted: Vec<[f64; 2]> = fitted.collect();
+        if fitted.is_empty() || tolerance.is_nan() || tolerance <= 0.0 {
+            return Slack::default();
+        }
+        let n = fitted.len() as f64;
+        let m = [
+            fitted.iter().map(|p| p[0]).sum::<f64>() / n,
+            fitted.iter().map(|p| p[1]).sum::<f64>() / n,
+        ];
+        let r = fitted
+            .iter()
+            .map(|p| (p[0] - m[0]).hypot(p[1] - m[1]))
+            .fold(0.0, f64::max);
+        if r.is_nan() || r <= 0.0 {
+            return Slack::default();
+        }
+        let angular = tolerance / r;
+        let d = (centre[0] - m[0]).hypot(centre[1] - m[1]);
+        Slack {
+            shift: tolerance + 2.0 * angular * d,
+            rotation: angular,
+            scale: angular,
+        }
     }
 }
 

@@ -326,7 +326,16 @@ pub fn ransac(input: &RansacInput, params: &RansacParams) -> RansacOutcome {
         let mut improved = false;
         for (h, fitted) in hyps.into_iter().flatten() {
             out.hypotheses += 1;
-            if params.prior.is_some_and(|p| !p.admits(&h)) {
+            if params.prior.is_some_and(|p| {
+                !p.admits_within(
+                    &h,
+                    &super::prior::Slack::for_hypothesis(
+                        fitted.iter().map(|&i| input.target[i as usize]),
+                        params.tolerance,
+                        p.centre,
+                    ),
+                )
+            }) {
                 out.outside_bounds += 1;
                 continue;
             }
