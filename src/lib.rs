@@ -13,6 +13,7 @@
 //! | 3 | [`signatures`] | positions | [`signatures::Signatures`]: one invariant key per neighbourhood |
 //! | 4 | [`matching`] | two signature sets | [`matching::Candidate`]s |
 //! | 5 | [`fit`] | candidates, positions | [`fit::Solution`] (transform, control points, significance) or [`fit::Rejection`] |
+//! | 5a | [`accuracy`] (pure) | point pairs, residual vectors (m) | [`accuracy::TransformStatement`] at the centroid; [`accuracy::Accuracy`]: RMSE, NSSDA 95 %, ASPRS RMSE_H |
 //! | 6 | [`emit`], [`report`] | an [`outcome::MatchOutcome`] | control-point files, transform, report |
 //!
 //! [`engine`] runs stages 1-5 in order and returns a [`outcome::MatchOutcome`]; it writes
@@ -31,6 +32,7 @@
 //! before use; legal or engineering survey work defers to local regulations and licensed
 //! surveyors.
 
+pub mod accuracy;
 pub mod config;
 pub mod emit;
 pub mod engine;
