@@ -9,7 +9,8 @@
 //! what to write.
 //!
 //! A pipeline file ([`PipelineFile`]) is TOML with the tables `[reference]`, `[target]`,
-//! `[output]`, `[frame]`, `[signatures]`, `[matching]` and `[fit]`; every key is listed in the
+//! `[output]`, `[frame]`, `[signatures]`, `[matching]`, `[fit]`, `[keypoints]`, `[refine]` and
+//! `[accuracy]`; every key is listed in the
 //! README ("Pipeline files"). Unknown keys are an error with line and column; relative paths
 //! are taken from the pipeline file's folder. Errors name options by their pipeline-file key
 //! (`fit.tolerance_m`); the command line renders those as its flags.
@@ -27,6 +28,7 @@
 //! dir = "../target/demo-output"
 //! ```
 
+pub use crate::accuracy::AccuracyParams;
 pub use crate::fit::FitParams;
 pub use crate::frame::FrameOptions;
 pub use crate::ingest::SurveyInput;
@@ -72,6 +74,8 @@ pub struct MatchConfig {
     pub keypoints: KeypointParams,
     /// Refinement of a raster match's control points on the pixels.
     pub refine: RefineParams,
+    /// Where the accuracy figure comes from: checkpoints, a hold-out share, or leave-one-out.
+    pub accuracy: AccuracyParams,
 }
 
 /// A pipeline file: a match and where its outputs go.
@@ -102,6 +106,10 @@ pub struct PipelineFile {
     /// `[refine]` (two raster surveys).
     #[serde(default)]
     pub refine: RefineParams,
+    /// `[accuracy]`: `checkpoints` (a CSV of surveyed marks), `holdout` (a share of the
+    /// control points kept out of the fit).
+    #[serde(default)]
+    pub accuracy: AccuracyParams,
 }
 
 /// A configuration could not be used.
@@ -151,6 +159,9 @@ pub enum ConfigError {
     /// A refinement option is out of range.
     #[error(transparent)]
     Refine(#[from] crate::refine::ParamError),
+    /// An accuracy option is out of range.
+    #[error(transparent)]
+    Accuracy(#[from] crate::accuracy::AccuracyParamsError),
 }
 
 impl MatchConfig {
@@ -165,6 +176,7 @@ impl MatchConfig {
             fit: FitParams::default(),
             keypoints: KeypointParams::default(),
             refine: RefineParams::default(),
+            accuracy: AccuracyParams::default(),
         }
     }
 
@@ -175,6 +187,7 @@ impl MatchConfig {
         self.fit.validate()?;
         self.keypoints.validate()?;
         self.refine.validate()?;
+        self.accuracy.validate()?;
         Ok(())
     }
 }
@@ -224,7 +237,10 @@ impl PipelineFile {
             &mut file.reference.path,
             &mut file.target.path,
             &mut file.output.dir,
-        ] {
+        ]
+        .into_iter()
+        .chain(file.accuracy.checkpoints.as_mut())
+        {
             if p.is_relative() {
                 *p = lexical_clean(&base.join(&*p));
             }
@@ -244,6 +260,7 @@ impl PipelineFile {
             fit,
             keypoints,
             refine,
+            accuracy,
         } = self;
         let config = MatchConfig {
             reference,
@@ -254,6 +271,7 @@ impl PipelineFile {
             fit,
             keypoints,
             refine,
+            accuracy,
         };
         (config, output)
     }

@@ -4,6 +4,7 @@
 //! and [`crate::report`]. This module imports the stages' data types and nothing that imports
 //! it back, so the module graph has no cycle: engine → outcome ← emit, report.
 
+use crate::accuracy::AccuracyReport;
 use crate::config::MatchConfig;
 use crate::fit::{Rejection, Solution};
 use crate::frame::WorkingFrame;
@@ -43,6 +44,10 @@ pub struct MatchOutcome {
     /// For two raster surveys: what refining the control points on the pixels did (the
     /// solution in `fit` is then the refitted one).
     pub pixels: Option<PixelRefinement>,
+    /// The accuracy statement of an accepted match: the transform at the control points'
+    /// centroid and the accuracy figure with its source (`None` when no transform was
+    /// accepted).
+    pub accuracy: Option<AccuracyReport>,
 }
 
 /// What the refinement on the pixels did to one control point it kept.

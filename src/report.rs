@@ -1,7 +1,11 @@
 //! Stage 6 (text) — the report: a plain-text summary for the terminal and `report.txt`.
 //!
-//! **In:** a [`MatchOutcome`]. **Out:** text: counts, the transform with its standard errors,
-//! RMSE, how well the control points cover the overlap, the significance, and the cautions; or,
+//! **In:** a [`MatchOutcome`]. **Out:** text: counts, the transform stated at the control
+//! points' centroid (shift east/north in metres, rotation in arc-seconds, scale in ppm, each
+//! with its standard error and whether it differs from zero at 95 %; the standard errors at
+//! the working origin are in transform.json only), the accuracy (RMSE_x/y/r with the count,
+//! NSSDA at 95 % with the rule used, ASPRS RMSE_H, where the residuals came from, warnings),
+//! how well the control points cover the overlap, the significance, and the cautions; or,
 //! for a rejected match, why (the robust fit's [`RejectReason`] put into words) and what to try.
 
 use crate::fit::prior::Competitor;
@@ -88,10 +92,24 @@ pub fn accepted(r: &MatchOutcome, s: &Solution) -> String {
         r.frame.chosen_because
     );
     let _ = writeln!(o);
-    let _ = writeln!(o, "control points   {}", s.pairs.len());
+    let held = match &r.accuracy {
+        Some(a)
+            if matches!(
+                a.accuracy.source,
+                crate::accuracy::AccuracySource::Holdout { .. }
+            ) =>
+        {
+            format!(
+                " ({} more held out of the fit as checkpoints)",
+                a.points.len()
+            )
+        }
+        _ => String::new(),
+    };
+    let _ = writeln!(o, "control points   {}{held}", s.pairs.len());
     let _ = writeln!(
         o,
-        "RMSE             {:.3} m   (sigma per coordinate {:.3} m)",
+        "RMSE             {:.3} m   (sigma per coordinate {:.3} m; the fit's own residuals)",
         f.rmse * mpu,
         f.sigma * mpu
     );
@@ -119,29 +137,29 @@ pub fn accepted(r: &MatchOutcome, s: &Solution) -> String {
         let _ = writeln!(o, "{}", pixels_line(px));
     }
     let _ = writeln!(o);
-    let _ = writeln!(
-        o,
-        "transform (target working -> reference working; rotation counter-clockwise)"
-    );
-    let _ = writeln!(o, "  scale          {:.9} ± {:.9}", t.scale(), f.se_scale);
+    match &r.accuracy {
+        Some(a) => {
+            let _ = write!(o, "{}", statement_lines(r, a));
+        }
+        None => {
+            let _ = writeln!(
+                o,
+                "transform (target working -> reference working; rotation counter-clockwise)"
+            );
+            let _ = writeln!(
+                o,
+                "  rotation       {:.6}° ± {:.6}°",
+                t.rotation().to_degrees(),
+                f.se_rotation.to_degrees()
+            );
+        }
+    }
+    let _ = writeln!(o, "  scale factor   {:.9} ± {:.9}", t.scale(), f.se_scale);
     let _ = write!(o, "{}", grid_scale_lines(r, t.scale(), f.se_scale));
-    let _ = writeln!(
-        o,
-        "  rotation       {:.6}° ± {:.6}°",
-        t.rotation().to_degrees(),
-        f.se_rotation.to_degrees()
-    );
-    let _ = writeln!(
-        o,
-        "  translation x  {:.4} ± {:.4} (standard error at the working origin)",
-        t.tx, f.se_tx
-    );
-    let _ = writeln!(o, "  translation y  {:.4} ± {:.4}", t.ty, f.se_ty);
-    let _ = writeln!(
-        o,
-        "  position       ± {:.4} m per coordinate at the control points' centroid",
-        f.sigma * mpu / (s.pairs.len() as f64).sqrt()
-    );
+    if let Some(a) = &r.accuracy {
+        let _ = writeln!(o);
+        let _ = write!(o, "{}", accuracy_lines(a));
+    }
     let refpts: Vec<[f64; 2]> = s
         .pairs
         .iter()
@@ -162,6 +180,128 @@ pub fn accepted(r: &MatchOutcome, s: &Solution) -> String {
     );
     let _ = writeln!(o);
     let _ = writeln!(o, "CAUTION: {CAUTION}");
+    o
+}
+
+/// "differs from zero at 95%" or not, for an estimate.
+fn verdict(e: &crate::accuracy::Estimate) -> &'static str {
+    if e.significant {
+        "differs from zero at 95%"
+    } else if e.se.is_finite() {
+        "does not differ from zero at 95%"
+    } else {
+        "no standard error (too few control points)"
+    }
+}
+
+/// The transform stated at the control points' centroid: shift east and north, rotation in
+/// arc-seconds, scale in ppm, each with its standard error and 95 % verdict.
+pub fn statement_lines(r: &MatchOutcome, a: &crate::accuracy::AccuracyReport) -> String {
+    let st = &a.statement;
+    let mut o = String::new();
+    let digits = if r.frame.reference_crs.geographic {
+        9
+    } else {
+        3
+    };
+    let _ = writeln!(
+        o,
+        "transform (target -> reference) at the control points' centroid, {:.digits$}, {:.digits$} in {}",
+        a.centroid_reference[0],
+        a.centroid_reference[1],
+        r.frame.reference_crs.label()
+    );
+    if r.frame.target_crs.is_none() {
+        let _ = writeln!(o, "  (a local grid: the shift is between the grid's coordinates and the reference's at that point)");
+    }
+    for (name, e) in [
+        ("shift east ", &st.shift_east_m),
+        ("shift north", &st.shift_north_m),
+    ] {
+        let _ = writeln!(
+            o,
+            "  {name}    {:+.4} ± {:.4} m   {}",
+            e.value,
+            e.se,
+            verdict(e)
+        );
+    }
+    let rot = &st.rotation_arcsec;
+    let degrees = if rot.value.abs() >= 360.0 {
+        format!(" ({:+.6}°)", rot.value / 3600.0)
+    } else {
+        String::new()
+    };
+    let _ = writeln!(
+        o,
+        "  rotation       {:+.3}″ ± {:.3}″ counter-clockwise{degrees}   {}",
+        rot.value,
+        rot.se,
+        verdict(rot)
+    );
+    let sc = &st.scale_ppm;
+    let _ = writeln!(
+        o,
+        "  scale          {:+.3} ± {:.3} ppm{}   {}",
+        sc.value,
+        sc.se,
+        if r.frame.target_unit.is_some() {
+            " (against the grid's unit)"
+        } else {
+            ""
+        },
+        verdict(sc)
+    );
+    o
+}
+
+/// The accuracy statement: RMSE with the count, NSSDA at 95 % with the rule used, ASPRS
+/// RMSE_H, the fit's own residuals for comparison, and the warnings.
+pub fn accuracy_lines(a: &crate::accuracy::AccuracyReport) -> String {
+    let acc = &a.accuracy;
+    let mut o = String::new();
+    let _ = writeln!(o, "accuracy         from {}", acc.source.describe());
+    let _ = writeln!(
+        o,
+        "  RMSE           x {:.4} m, y {:.4} m, r {:.4} m (n = {})",
+        acc.rmse_x_m, acc.rmse_y_m, acc.rmse_r_m, acc.n
+    );
+    let _ = writeln!(
+        o,
+        "  NSSDA          {:.4} m horizontal accuracy at 95% (FGDC-STD-007.3-1998: {}; RMSE_min/RMSE_max = {:.2})",
+        acc.nssda_95_m,
+        acc.nssda_rule.describe(),
+        acc.rmse_ratio
+    );
+    let _ = writeln!(
+        o,
+        "  ASPRS          RMSE_H {:.4} m (Positional Accuracy Standards for Digital Geospatial Data, Edition 2, 2023)",
+        acc.asprs_rmse_h_m
+    );
+    if acc.source != crate::accuracy::AccuracySource::FitResiduals {
+        let _ = writeln!(
+            o,
+            "  fit residuals  RMSE_r {:.4} m over the {} control points of the fit: the fit's own residuals overstate accuracy",
+            a.fit.rmse_r_m, a.fit.n
+        );
+    }
+    if let Some(worst) = a
+        .points
+        .iter()
+        .max_by(|p, q| p.dx_m.hypot(p.dy_m).total_cmp(&q.dx_m.hypot(q.dy_m)))
+    {
+        let _ = writeln!(
+            o,
+            "  largest        {}: {:.4} m ({:+.4} m east, {:+.4} m north)",
+            worst.id,
+            worst.dx_m.hypot(worst.dy_m),
+            worst.dx_m,
+            worst.dy_m
+        );
+    }
+    for w in &acc.warnings {
+        let _ = writeln!(o, "  WARNING: {w}");
+    }
     o
 }
 

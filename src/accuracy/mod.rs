@@ -2,10 +2,12 @@
 //! from residual vectors by the published standards. Pure: no I/O.
 //!
 //! **In:** point pairs (for [`TransformStatement`]) or residual vectors in metres with where
-//! they came from (for [`Accuracy`]). **Out:** a [`TransformStatement`] (shift, rotation,
+//! they came from (for [`Accuracy`]); the text of a checkpoints file ([`checkpoints`]); the
+//! `[accuracy]` options, the hold-out split and leave-one-out residuals ([`sources`]). **Out:** a [`TransformStatement`] (shift, rotation,
 //! scale with standard errors and 95 % significance, see [`statement`]) and an [`Accuracy`]:
 //! RMSE_x, RMSE_y, RMSE_r with the count behind them, the NSSDA horizontal accuracy at 95 %
-//! with the rule used, the ASPRS Edition 2 RMSE_H, and warnings.
+//! with the rule used, the ASPRS Edition 2 RMSE_H, and warnings; an [`AccuracyReport`] for a
+//! match.
 //!
 //! ## The standards
 //!
@@ -32,8 +34,12 @@
 //! Accuracy figures from the fit's own residuals overstate accuracy: the transform was chosen
 //! to make them small. [`AccuracySource`] says which residuals a figure came from.
 
+pub mod checkpoints;
+pub mod sources;
 pub mod statement;
 
+pub use checkpoints::{CheckpointError, CheckpointRows};
+pub use sources::{AccuracyParams, AccuracyParamsError, AccuracyReport, CheckResidual};
 pub use statement::{Estimate, TransformStatement, ARCSEC_PER_RAD, Z_95_TWO_SIDED};
 
 use serde::{Deserialize, Serialize};
@@ -214,10 +220,9 @@ impl Accuracy {
             ));
         }
         if !source.independent() {
-            warnings.push(format!(
-                "not from independent checkpoints but from {}",
-                source.describe()
-            ));
+            warnings.push(
+                "these figures are not from independent checkpoints and may overstate accuracy; survey checkpoints and give them with accuracy.checkpoints".to_string(),
+            );
         }
         Some(Accuracy {
             n,

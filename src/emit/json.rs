@@ -15,12 +15,82 @@
 //! `seed`; `version`. Translation standard errors are at the working frame's
 //! origin; `centroid` gives the target centroid of the control points, where the position
 //! error is smallest (σ̂/√n per coordinate).
+//!
+//! The accuracy statement ([`crate::accuracy`]): `at_centroid` — the transform stated at the
+//! control points' centroid (`target_x`, `target_y` in the working frame; `reference_x`,
+//! `reference_y` in the reference's CRS), `shift_east_m`, `shift_north_m`, `rotation_arcsec`
+//! (counter-clockwise), `scale_ppm`, each `{value, se, significant}` (significant: differs from
+//! zero at 95 %); `accuracy` — `rmse_x_m`, `rmse_y_m`, `rmse_r_m`, `n`, `nssda_95_m` with
+//! `nssda_rule` (`equal`, `approximation` or `outside_limit`), `exact_95_m`, `asprs_rmse_h_m`,
+//! `source` (`kind`: `fit_residuals`, `leave_one_out`, `holdout` with `share` and `seed`, or
+//! `checkpoints` with `file`), `independent`, `warnings`, the same figures of the fit's own
+//! residuals in `fit_residuals`, and `points` (id, `dx_m`, `dy_m` of each checkpoint or
+//! held-out control point; at most [`MAX_LISTED_POINTS`], `points_total` counts them all).
 
 use super::{io_err, EmitError};
 use crate::fit::Solution;
 use crate::outcome::MatchOutcome;
 use serde_json::json;
 use std::path::Path;
+
+/// Per-point residuals written at most (the rest are counted in `points_total`).
+pub const MAX_LISTED_POINTS: usize = 10_000;
+
+/// The accuracy statement's members of transform.json: `at_centroid` and `accuracy` (see the
+/// module doc).
+pub fn accuracy_members(result: &MatchOutcome) -> serde_json::Map<String, serde_json::Value> {
+    let mut m = serde_json::Map::new();
+    let Some(a) = &result.accuracy else {
+        return m;
+    };
+    let st = &a.statement;
+    m.insert(
+        "at_centroid".into(),
+        json!({
+            "stated_at": "the control points' centroid: target working coordinates target_x, target_y; in the reference CRS reference_x, reference_y (the reference control points' centroid)",
+            "target_x": st.at[0],
+            "target_y": st.at[1],
+            "reference_x": a.centroid_reference[0],
+            "reference_y": a.centroid_reference[1],
+            "shift_east_m": st.shift_east_m,
+            "shift_north_m": st.shift_north_m,
+            "rotation_arcsec": st.rotation_arcsec,
+            "scale_ppm": st.scale_ppm,
+            "scale_ppm_against": if result.frame.target_unit.is_some() { "the local grid's declared unit" } else { "1" },
+            "control_points": st.n,
+            "sigma_m": st.sigma_m,
+            "significance": "significant = |value| > 1.959964 × se (two-sided, 95%)",
+        }),
+    );
+    let figures = |acc: &crate::accuracy::Accuracy| {
+        json!({
+            "n": acc.n,
+            "rmse_x_m": acc.rmse_x_m,
+            "rmse_y_m": acc.rmse_y_m,
+            "rmse_r_m": acc.rmse_r_m,
+            "mean_x_m": acc.mean_x_m,
+            "mean_y_m": acc.mean_y_m,
+            "rmse_ratio": acc.rmse_ratio,
+            "nssda_95_m": acc.nssda_95_m,
+            "nssda_rule": acc.nssda_rule,
+            "nssda_rule_text": acc.nssda_rule.describe(),
+            "nssda_standard": "FGDC-STD-007.3-1998",
+            "exact_95_m": acc.exact_95_m,
+            "asprs_rmse_h_m": acc.asprs_rmse_h_m,
+            "asprs_standard": "ASPRS Positional Accuracy Standards for Digital Geospatial Data, Edition 2 (2023)",
+            "source": acc.source,
+            "source_text": acc.source.describe(),
+            "independent": acc.source.independent(),
+            "warnings": acc.warnings,
+        })
+    };
+    let mut doc = figures(&a.accuracy);
+    doc["fit_residuals"] = figures(&a.fit);
+    doc["points"] = json!(a.points.iter().take(MAX_LISTED_POINTS).collect::<Vec<_>>());
+    doc["points_total"] = json!(a.points.len());
+    m.insert("accuracy".into(), doc);
+    m
+}
 
 /// Builds the JSON document.
 pub fn transform_document(result: &MatchOutcome, s: &Solution) -> serde_json::Value {
@@ -34,7 +104,7 @@ pub fn transform_document(result: &MatchOutcome, s: &Solution) -> serde_json::Va
         [a[0] + q[0] / n, a[1] + q[1] / n]
     });
     let crs_doc = |c: &crate::frame::crs::Crs| json!({"authority": c.authority, "name": c.name, "wkt": c.wkt});
-    json!({
+    let mut doc = json!({
         "tool": "tiemark",
         "version": env!("CARGO_PKG_VERSION"),
         "maps": "target working coordinates to reference working coordinates",
@@ -117,7 +187,11 @@ pub fn transform_document(result: &MatchOutcome, s: &Solution) -> serde_json::Va
         "guided_rounds": s.guided_rounds,
         "seed": cfg.fit.seed,
         "caution": crate::report::CAUTION,
-    })
+    });
+    if let Some(o) = doc.as_object_mut() {
+        o.extend(accuracy_members(result));
+    }
+    doc
 }
 
 /// Writes `transform.json`.

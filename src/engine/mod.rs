@@ -9,6 +9,7 @@
 //! fit on points already in a working frame (benchmarks and experiments call it, so they
 //! measure what ships). Writing is the front ends' business ([`crate::emit`]).
 
+mod accuracy;
 mod pixels;
 
 use crate::config::{ConfigError, MatchConfig};
@@ -47,6 +48,12 @@ pub enum Error {
     /// the largest error).
     #[error(transparent)]
     Resources(Box<ResourceError>),
+    /// The checkpoints file cannot be used.
+    #[error(transparent)]
+    Checkpoints(#[from] crate::accuracy::CheckpointError),
+    /// The accuracy statement cannot be made as asked (a hold-out share too large).
+    #[error(transparent)]
+    Accuracy(#[from] accuracy::StatementError),
     /// More landmarks than the k-d tree's 32-bit item indices hold.
     #[error("{path}: more than 4,294,967,295 landmarks, which the spatial index cannot hold; split the survey into tiles and match them one by one")]
     Degenerate {
@@ -118,6 +125,12 @@ pub fn match_surveys(config: &MatchConfig, progress: &dyn Progress) -> Result<Ma
         config.target.crs.as_deref(),
         &config.frame,
     )?;
+    // Read before the search, so that a bad checkpoints file is refused at once.
+    let checkpoints = match &config.accuracy.checkpoints {
+        Some(path) => Some(accuracy::read_checkpoints(path, &frame)?),
+        None => None,
+    };
+    let unit_scale = frame.grid_scale(1.0, 0.0).map_or(1.0, |g| g.unit_factor);
     let index = |points: &[[f64; 2]], path: &std::path::Path| {
         PointIndex::new(points).ok_or_else(|| Error::Degenerate {
             path: path.to_path_buf(),
@@ -145,7 +158,7 @@ pub fn match_surveys(config: &MatchConfig, progress: &dyn Progress) -> Result<Ma
         &FrameFacts {
             metres_per_unit: frame.metres_per_unit(),
             georeferenced: frame.target_crs.is_some(),
-            unit_scale: frame.grid_scale(1.0, 0.0).map_or(1.0, |g| g.unit_factor),
+            unit_scale,
         },
         progress,
         &labels,
@@ -175,6 +188,23 @@ pub fn match_surveys(config: &MatchConfig, progress: &dyn Progress) -> Result<Ma
     if pixels.as_ref().is_some_and(|p| p.not_applied.is_none()) {
         target.points = frame.target.clone();
     }
+    let mut pixels = pixels;
+    let accuracy = match fit.as_mut() {
+        Ok(solution) => stage(progress, "stating the accuracy", None, |_| {
+            accuracy::state(
+                &config.accuracy,
+                config.fit.seed,
+                config.fit.min_control_points,
+                &frame,
+                [&reference, &target],
+                solution,
+                &mut pixels,
+                checkpoints.as_ref(),
+                unit_scale,
+            )
+        })?,
+        Err(_) => None,
+    };
     Ok(MatchOutcome {
         config: config.clone(),
         reference,
@@ -183,6 +213,7 @@ pub fn match_surveys(config: &MatchConfig, progress: &dyn Progress) -> Result<Ma
         search,
         fit,
         pixels,
+        accuracy,
     })
 }
 

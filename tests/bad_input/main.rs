@@ -20,6 +20,7 @@ use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 use std::process::{Command, Stdio};
 
+mod checkpoints;
 mod ingest;
 mod messages;
 mod rasters;

@@ -7,8 +7,8 @@ use clap::{Args, Parser, Subcommand};
 use serde::de::DeserializeOwned;
 use std::path::PathBuf;
 use tiemark::config::{
-    FitParams, FrameOptions, KeypointParams, MatchConfig, MatchingParams, OutputOptions,
-    RefineParams, SignatureChoice, SurveyInput,
+    AccuracyParams, FitParams, FrameOptions, KeypointParams, MatchConfig, MatchingParams,
+    OutputOptions, RefineParams, SignatureChoice, SurveyInput,
 };
 use tiemark::fit::prior;
 use tiemark::ingest::BandChoice;
@@ -187,6 +187,18 @@ pub struct MatchArgs {
     rank: Rank,
     #[command(flatten)]
     raster: KeypointArgs,
+
+    /// A CSV of surveyed checkpoints (columns id, reference_x, reference_y in the reference's CRS, target_x, target_y in the target's): the accuracy figure comes from them.
+    #[arg(long, help_heading = "Accuracy", value_name = "FILE")]
+    checkpoints: Option<PathBuf>,
+    /// Keep this share (0-1) of the control points out of the final fit, seeded by --seed, and measure the accuracy on them [default: neither; leave-one-out residuals of the control points].
+    #[arg(
+        long,
+        help_heading = "Accuracy",
+        allow_negative_numbers = true,
+        value_name = "SHARE"
+    )]
+    holdout: Option<f64>,
 }
 
 #[derive(Args)]
@@ -290,6 +302,10 @@ impl MatchArgs {
             },
             keypoints: self.raster.params(),
             refine: RefineParams::default(),
+            accuracy: AccuracyParams {
+                checkpoints: self.checkpoints,
+                holdout: self.holdout,
+            },
         };
         let output = OutputOptions {
             dir: self.out,
@@ -337,6 +353,8 @@ const FLAGS: &[(&str, &str)] = &[
     ("fit.max_shift_m", "--max-shift"),
     ("fit.max_rotation_deg", "--max-rotation"),
     ("fit.max_scale_ppm", "--max-scale-error"),
+    ("accuracy.checkpoints", "--checkpoints"),
+    ("accuracy.holdout", "--holdout"),
     ("output.dir", "--out"),
     ("output.force", "--force"),
 ];

@@ -59,6 +59,7 @@ fn run_match(
         config.target.path.as_path(),
     ];
     inputs.extend(pipeline);
+    inputs.extend(config.accuracy.checkpoints.as_deref());
     let warp = match output
         .warp
         .as_deref()
