@@ -48,6 +48,7 @@ pub mod raster;
 use crate::fit::Solution;
 use crate::ingest::LandmarkSet;
 use crate::outcome::MatchOutcome;
+use crate::progress::Progress;
 use atomic::Staging;
 pub use atomic::{remove_leftovers, Leftovers};
 pub use destination::{check_output_dir, check_output_file, Destination};
@@ -186,12 +187,15 @@ fn pause_for_tests() {
 }
 
 /// Writes every output file of an accepted match into the checked output folder; returns
-/// their paths (as [`Destination::shown`]).
+/// their paths (as [`Destination::shown`]). `progress` sees one stage, "writing outputs",
+/// counting the GeoPackage's features; the GeoPackage is written on this thread while
+/// another writes the CSV, the JSON and the report (each GDAL dataset stays on one thread).
 pub fn write_all(
     outcome: &MatchOutcome,
     out: &Destination,
     report: &str,
     warp: Option<raster::Resampling>,
+    progress: &dyn Progress,
 ) -> Result<Vec<PathBuf>, EmitError> {
     let solution = outcome.solution().ok_or(EmitError::NothingAccepted)?;
     // Again, after the work: another run may have written there meanwhile.
@@ -199,12 +203,26 @@ pub fn write_all(
     let dir = &out.path;
     let staging = Staging::for_target(dir)?;
     let written = (|| {
-        csv::write_control_points(outcome, solution, &staging.path.join(FILES[0]))?;
-        pause_for_tests();
-        gpkg::write_control_points(outcome, solution, &staging.path.join(FILES[1]))?;
-        json::write_transform(outcome, solution, &staging.path.join(FILES[2]))?;
-        let report_path = staging.path.join(FILES[3]);
-        std::fs::write(&report_path, report).map_err(io_err(&report_path))?;
+        let features = Some(gpkg::control_point_features(solution));
+        crate::progress::stage(progress, "writing outputs", features, |done| {
+            std::thread::scope(|scope| {
+                let others = scope.spawn(|| {
+                    csv::write_control_points(outcome, solution, &staging.path.join(FILES[0]))?;
+                    json::write_transform(outcome, solution, &staging.path.join(FILES[2]))?;
+                    let report_path = staging.path.join(FILES[3]);
+                    std::fs::write(&report_path, report).map_err(io_err(&report_path))
+                });
+                pause_for_tests();
+                let gpkg = gpkg::write_control_points(
+                    outcome,
+                    solution,
+                    &staging.path.join(FILES[1]),
+                    done,
+                );
+                let others = others.join().expect("the CSV writer does not panic");
+                gpkg.and(others)
+            })
+        })?;
         raster_outputs(outcome, solution, &staging.path, warp)
     })();
     // A full disk is said of the output folder (the staging folder is gone by then).

@@ -84,7 +84,8 @@ fn run_match(
         Ok(d) => d,
         Err(e) => return error(&e),
     };
-    let outcome = match engine::match_surveys(config, &bars::Bars::new(quiet)) {
+    let bars = bars::Bars::new(quiet);
+    let outcome = match engine::match_surveys(config, &bars) {
         Ok(o) => o,
         Err(e) => return error(&e),
     };
@@ -93,7 +94,7 @@ fn run_match(
         print(&summary);
         return ExitCode::from(1);
     }
-    match emit::write_all(&outcome, &out, &summary, warp) {
+    match emit::write_all(&outcome, &out, &summary, warp, &bars) {
         Ok(files) => {
             print(&report::with_files(&summary, &files));
             ExitCode::SUCCESS
