@@ -125,8 +125,20 @@ fn line(a: [f64; 2], b: [f64; 2]) -> gdal::errors::Result<Geometry> {
 /// The bounding box `[min_x, max_x, min_y, max_y]` of some points (the R*Tree's column order).
 fn bbox(points: &[[f64; 2]]) -> [f64; 4] {
     points.iter().fold(
-        [f64::INFINITY, f64::NEG_INFINITY, f64::INFINITY, f64::NEG_INFINITY],
-        |b, p| [b[0].min(p[0]), b[1].max(p[0]), b[2].min(p[1]), b[3].max(p[1])],
+        [
+            f64::INFINITY,
+            f64::NEG_INFINITY,
+            f64::INFINITY,
+            f64::NEG_INFINITY,
+        ],
+        |b, p| {
+            [
+                b[0].min(p[0]),
+                b[1].max(p[0]),
+                b[2].min(p[1]),
+                b[3].max(p[1]),
+            ]
+        },
     )
 }
 
@@ -159,7 +171,11 @@ fn query(ds: &Dataset, statement: &str, path: &Path) -> Result<Vec<Vec<String>>,
         for f in set.features() {
             let mut row = Vec::with_capacity(n);
             for i in 0..n {
-                row.push(f.field_as_string(i).map_err(gdal_err(path))?.unwrap_or_default());
+                row.push(
+                    f.field_as_string(i)
+                        .map_err(gdal_err(path))?
+                        .unwrap_or_default(),
+                );
             }
             rows.push(row);
         }
@@ -214,9 +230,9 @@ impl IndexedLayer {
             path,
         )?;
         if made.first().and_then(|r| r.first()).map(String::as_str) != Some("1") {
-            return Err(gdal_err(path)(gdal::errors::GdalError::BadArgument(format!(
-                "GDAL did not create the spatial index of layer {name}"
-            ))));
+            return Err(gdal_err(path)(gdal::errors::GdalError::BadArgument(
+                format!("GDAL did not create the spatial index of layer {name}"),
+            )));
         }
         let rtree = rtree_name(name);
         let triggers = query(
@@ -394,7 +410,12 @@ impl PackedTree {
         let capacity = capacity.max(2);
         let mut level: Vec<(i64, [f32; 4])> = boxes
             .iter()
-            .map(|(id, b)| (*id, [f32_down(b[0]), f32_up(b[1]), f32_down(b[2]), f32_up(b[3])]))
+            .map(|(id, b)| {
+                (
+                    *id,
+                    [f32_down(b[0]), f32_up(b[1]), f32_down(b[2]), f32_up(b[3])],
+                )
+            })
             .collect();
         let mut nodes = Vec::new();
         let mut parents = Vec::new();
@@ -428,8 +449,20 @@ impl PackedTree {
                     }
                 }
                 let b = cells.iter().fold(
-                    [f32::INFINITY, f32::NEG_INFINITY, f32::INFINITY, f32::NEG_INFINITY],
-                    |a, (_, c)| [a[0].min(c[0]), a[1].max(c[1]), a[2].min(c[2]), a[3].max(c[3])],
+                    [
+                        f32::INFINITY,
+                        f32::NEG_INFINITY,
+                        f32::INFINITY,
+                        f32::NEG_INFINITY,
+                    ],
+                    |a, (_, c)| {
+                        [
+                            a[0].min(c[0]),
+                            a[1].max(c[1]),
+                            a[2].min(c[2]),
+                            a[3].max(c[3]),
+                        ]
+                    },
                 );
                 above.push((node, b));
                 nodes.push((node, cells));
@@ -819,7 +852,11 @@ mod tests {
             for (node, cells) in &tree.nodes {
                 assert!(cells.len() <= capacity);
                 if *node != 1 {
-                    assert!(2 * cells.len() >= capacity, "{n}: node {node} holds {}", cells.len());
+                    assert!(
+                        2 * cells.len() >= capacity,
+                        "{n}: node {node} holds {}",
+                        cells.len()
+                    );
                 }
             }
             let expected_depth = match n {
@@ -829,11 +866,19 @@ mod tests {
             };
             assert_eq!(tree.depth, expected_depth, "{n}");
             // The root's blob begins with the depth, every blob with its count of cells.
-            let (i, root) = tree.nodes.iter().enumerate().find(|(_, n)| n.0 == 1).unwrap();
+            let (i, root) = tree
+                .nodes
+                .iter()
+                .enumerate()
+                .find(|(_, n)| n.0 == 1)
+                .unwrap();
             let blob = tree.node_blob(i, &root.1, 1228);
             assert_eq!(blob.len(), 1228);
             assert_eq!(u16::from_be_bytes([blob[0], blob[1]]), tree.depth);
-            assert_eq!(u16::from_be_bytes([blob[2], blob[3]]) as usize, root.1.len());
+            assert_eq!(
+                u16::from_be_bytes([blob[2], blob[3]]) as usize,
+                root.1.len()
+            );
         }
     }
 
@@ -891,7 +936,10 @@ mod tests {
             one_value(&ds, "SELECT HasSpatialIndex('landmarks', 'geom')"),
             "1"
         );
-        assert_eq!(one_value(&ds, "SELECT rtreecheck('rtree_landmarks_geom')"), "ok");
+        assert_eq!(
+            one_value(&ds, "SELECT rtreecheck('rtree_landmarks_geom')"),
+            "ok"
+        );
         assert_eq!(
             one_value(&ds, "SELECT count(*) FROM rtree_landmarks_geom"),
             "6000"
@@ -952,7 +1000,8 @@ mod tests {
         let mut ds = Dataset::open_ex(
             &a,
             gdal::DatasetOptions {
-                open_flags: gdal::GdalOpenFlags::GDAL_OF_UPDATE | gdal::GdalOpenFlags::GDAL_OF_VECTOR,
+                open_flags: gdal::GdalOpenFlags::GDAL_OF_UPDATE
+                    | gdal::GdalOpenFlags::GDAL_OF_VECTOR,
                 ..Default::default()
             },
         )
@@ -965,7 +1014,10 @@ mod tests {
             one_value(&ds, "SELECT count(*) FROM rtree_landmarks_geom"),
             "6001"
         );
-        assert_eq!(one_value(&ds, "SELECT rtreecheck('rtree_landmarks_geom')"), "ok");
+        assert_eq!(
+            one_value(&ds, "SELECT rtreecheck('rtree_landmarks_geom')"),
+            "ok"
+        );
         let _ = ds.flush_cache();
     }
 }

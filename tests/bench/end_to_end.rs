@@ -58,7 +58,12 @@ fn run(cmd: &mut Command) -> Usage {
     let mut usage: libc::rusage = unsafe { std::mem::zeroed() };
     let got = unsafe { libc::wait4(pid, &mut status, 0, &mut usage) };
     let wall = start.elapsed().as_secs_f64();
-    assert_eq!(got, pid, "wait4 failed: {}", std::io::Error::last_os_error());
+    assert_eq!(
+        got,
+        pid,
+        "wait4 failed: {}",
+        std::io::Error::last_os_error()
+    );
     drop(child);
     let secs = |t: libc::timeval| t.tv_sec as f64 + t.tv_usec as f64 * 1e-6;
     Usage {
@@ -98,9 +103,14 @@ fn surveys(n: usize) -> ([PathBuf; 2], [usize; 2]) {
     std::fs::create_dir_all(&dir).expect("the benchmark folder can be made");
     let paths = ["reference", "target"].map(|s| dir.join(format!("{s}-{n}-{SEED}.gpkg")));
     let counts = dir.join(format!("counts-{n}-{SEED}.txt"));
-    if let (true, Ok(text)) = (paths.iter().all(|p| p.exists()), std::fs::read_to_string(&counts))
-    {
-        let c: Vec<usize> = text.split_whitespace().filter_map(|v| v.parse().ok()).collect();
+    if let (true, Ok(text)) = (
+        paths.iter().all(|p| p.exists()),
+        std::fs::read_to_string(&counts),
+    ) {
+        let c: Vec<usize> = text
+            .split_whitespace()
+            .filter_map(|v| v.parse().ok())
+            .collect();
         if c.len() == 2 {
             return (paths, [c[0], c[1]]);
         }
@@ -135,7 +145,9 @@ fn surveys(n: usize) -> ([PathBuf; 2], [usize; 2]) {
         let set = LandmarkSet {
             source: path.clone(),
             layer: "landmarks".to_string(),
-            ids: (1..=points.len()).map(|i| format!("{prefix}-{i}")).collect(),
+            ids: (1..=points.len())
+                .map(|i| format!("{prefix}-{i}"))
+                .collect(),
             points: points.clone(),
             crs_wkt: Some(wkt.clone()),
             skipped: Default::default(),
@@ -261,7 +273,10 @@ fn match_once(n: usize) -> Run {
     );
     let (a, b) = (t.apply(CENTRE), truth().apply(CENTRE));
     let off = ((a[0] - b[0]).powi(2) + (a[1] - b[1]).powi(2)).sqrt();
-    assert!(off < 0.05, "n = {n}: the transform is {off} m off the truth at the centre");
+    assert!(
+        off < 0.05,
+        "n = {n}: the transform is {off} m off the truth at the centre"
+    );
     Run {
         sizes,
         usage,
