@@ -223,7 +223,6 @@ impl IndexedLayer {
             })
             .map_err(&e)?;
         add_fields(&layer, fields, path)?;
-        drop(layer);
         let made = query(
             ds,
             &format!("SELECT CreateSpatialIndex('{name}', '{GEOMETRY_COLUMN}')"),
@@ -391,10 +390,13 @@ fn f32_up(v: f64) -> f32 {
 /// node blob holds its number of cells and then its cells (id or child node number, and the
 /// box as 32-bit floats rounded outwards), big-endian; `_parent` maps every other node to its
 /// parent, `_rowid` every feature id to its leaf.
+/// The cells of one R-tree node: (feature id or child node number, box).
+type Cells = Vec<(i64, [f32; 4])>;
+
 #[derive(Debug)]
 struct PackedTree {
     /// Node number and cells (`(id or child, box)`), the root (node 1) last.
-    nodes: Vec<(i64, Vec<(i64, [f32; 4])>)>,
+    nodes: Vec<(i64, Cells)>,
     /// Levels above the leaves.
     depth: u16,
     /// (node, parent) of every node but the root.
@@ -993,7 +995,6 @@ mod tests {
             .unwrap();
         // The f32 boxes are a hair larger than the points: never fewer hits.
         assert!(hits as usize >= expected.len() && hits as usize <= expected.len() + 2);
-        drop(layer);
         drop(ds);
 
         // Editing after the fact goes through the triggers into the packed tree.
