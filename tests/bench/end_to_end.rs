@@ -171,7 +171,9 @@ fn surveys(n: usize) -> ([PathBuf; 2], [usize; 2]) {
 }
 
 /// Times GDAL dumping both inputs to CSV, one after the other (seconds of wall time).
-fn yardstick(inputs: &[PathBuf; 2]) -> (f64, &'static str) {
+/// Also the CPU seconds (user + system) of the `ogr2ogr` children (`None` through the crate,
+/// in this process).
+fn yardstick(inputs: &[PathBuf; 2]) -> (f64, Option<f64>, &'static str) {
     let dir = bench_dir().join("yardstick");
     let _ = std::fs::remove_dir_all(&dir);
     std::fs::create_dir_all(&dir).expect("yardstick folder");
@@ -180,6 +182,7 @@ fn yardstick(inputs: &[PathBuf; 2]) -> (f64, &'static str) {
         .output()
         .is_ok_and(|o| o.status.success());
     let start = Instant::now();
+    let mut cpu = 0.0;
     for (i, input) in inputs.iter().enumerate() {
         let out = dir.join(format!("{i}.csv"));
         if has_ogr2ogr {
@@ -189,6 +192,7 @@ fn yardstick(inputs: &[PathBuf; 2]) -> (f64, &'static str) {
                 .arg(input)
                 .args(["-lco", "GEOMETRY=AS_XY"]));
             assert!(u.success, "ogr2ogr failed on {}", input.display());
+            cpu += u.user + u.sys;
         } else {
             copy_to_csv(input, &out);
         }
@@ -198,7 +202,8 @@ fn yardstick(inputs: &[PathBuf; 2]) -> (f64, &'static str) {
     } else {
         "GDAL's CSV driver (GEOMETRY=AS_XY) through the gdal crate"
     };
-    (start.elapsed().as_secs_f64(), how)
+    let cpu = has_ogr2ogr.then_some(cpu);
+    (start.elapsed().as_secs_f64(), cpu, how)
 }
 
 /// What `ogr2ogr -f CSV -lco GEOMETRY=AS_XY` does, through the gdal crate.
@@ -369,35 +374,61 @@ fn main() {
                 r.usage.peak_rss_bytes / landmarks,
                 r.control_points
             );
-            points.push(((landmarks / 2.0).ln(), r.usage.wall.ln()));
+            points.push((
+                (landmarks / 2.0).ln(),
+                r.usage.wall.ln(),
+                (r.usage.user + r.usage.sys).ln(),
+            ));
         }
-        // Least-squares slope of ln(time) against ln(n).
-        let k = points.len() as f64;
-        let (mx, my) = points
-            .iter()
-            .fold((0.0, 0.0), |a, p| (a.0 + p.0 / k, a.1 + p.1 / k));
-        let (sxy, sxx) = points.iter().fold((0.0, 0.0), |a, p| {
-            (a.0 + (p.0 - mx) * (p.1 - my), a.1 + (p.0 - mx).powi(2))
-        });
-        println!("fitted exponent of wall time against n: {:.3}", sxy / sxx);
+        // Least-squares slope of ln(time) against ln(n), of the wall time and of the CPU time
+        // (user + system: the steadier one on a shared machine).
+        let slope = |pick: &dyn Fn(&(f64, f64, f64)) -> f64| {
+            let k = points.len() as f64;
+            let (mx, my) = points
+                .iter()
+                .fold((0.0, 0.0), |a, p| (a.0 + p.0 / k, a.1 + pick(p) / k));
+            let (sxy, sxx) = points.iter().fold((0.0, 0.0), |a, p| {
+                (a.0 + (p.0 - mx) * (pick(p) - my), a.1 + (p.0 - mx).powi(2))
+            });
+            sxy / sxx
+        };
+        println!(
+            "fitted exponent against n: wall time {:.3}, CPU time {:.3}",
+            slope(&|p| p.1),
+            slope(&|p| p.2)
+        );
         // The last interval alone, where fixed start-up costs matter least.
         if let [.., a, b] = points.as_slice() {
             println!(
-                "exponent between the two largest sizes: {:.3}",
-                (b.1 - a.1) / (b.0 - a.0)
+                "exponent between the two largest sizes: wall time {:.3}, CPU time {:.3}",
+                (b.1 - a.1) / (b.0 - a.0),
+                (b.2 - a.2) / (b.0 - a.0)
             );
         }
     } else {
         let n = numbers.first().copied().unwrap_or(1_000_000);
         let (inputs, _) = surveys(n);
-        let (gdal_wall, how) = yardstick(&inputs);
+        let (gdal_wall, gdal_cpu, how) = yardstick(&inputs);
         let r = match_once(n);
         print_run(&r);
-        println!("yardstick ({how}, both inputs): wall {gdal_wall:.2} s");
-        println!(
-            "ratio tiemark / yardstick: {:.2} (goal of issue 11: at most 0.8)",
-            r.usage.wall / gdal_wall
-        );
+        let cpu = r.usage.user + r.usage.sys;
+        match gdal_cpu {
+            Some(g) => {
+                println!("yardstick ({how}, both inputs): wall {gdal_wall:.2} s, CPU {g:.2} s");
+                println!(
+                    "ratio tiemark / yardstick: wall {:.2} (goal of issue 11: at most 0.8), CPU {:.2}",
+                    r.usage.wall / gdal_wall,
+                    cpu / g
+                );
+            }
+            None => {
+                println!("yardstick ({how}, both inputs): wall {gdal_wall:.2} s");
+                println!(
+                    "ratio tiemark / yardstick: wall {:.2} (goal of issue 11: at most 0.8)",
+                    r.usage.wall / gdal_wall
+                );
+            }
+        }
     }
     println!("load average after: {}", load());
 }
