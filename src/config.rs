@@ -13,7 +13,7 @@
 //! `[accuracy]`; every key is listed in the
 //! README ("Pipeline files"). Unknown keys are an error with line and column; relative paths
 //! are taken from the pipeline file's folder. Errors name options by their pipeline-file key
-//! (`fit.tolerance_m`); the command line renders those as its flags.
+//! (`fit.search_radius_m`); the command line renders those as its flags.
 //!
 //! ```toml
 //! [reference]

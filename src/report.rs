@@ -11,32 +11,82 @@
 use crate::fit::prior::Competitor;
 use crate::fit::{RejectReason, Rejection, Solution};
 use crate::outcome::MatchOutcome;
+use geo::{MultiPoint, MultiPolygon, Point};
 use std::fmt::Write;
 use std::path::PathBuf;
 
 /// The caution every report carries.
 pub const CAUTION: &str = "Control points found automatically must be verified against independent checkpoints before use. Legal or engineering survey work defers to local regulations and licensed surveyors.";
 
-/// Share of a 4 × 4 grid over the control points' reference extent that holds at least one
-/// control point, and the count in the emptiest quadrant: a rough measure of spread.
-pub fn coverage(points: &[[f64; 2]]) -> (f64, usize) {
-    if points.is_empty() {
-        return (0.0, 0);
-    }
-    let crate::spatial::Extent { min: lo, max: hi } = crate::spatial::Extent::of(points);
-    let cell = |p: &[f64; 2], d: usize, n: f64| {
-        (((p[d] - lo[d]) / (hi[d] - lo[d]).max(1e-12)) * n).min(n - 1.0) as usize
+/// The overlap of the two surveys in the working frame: the intersection of the convex hull
+/// of the reference landmarks with that of the target landmarks mapped by the transform.
+/// `None` when the hulls do not overlap (or a survey has fewer than three distinct points).
+pub fn overlap(reference: &[[f64; 2]], target_mapped: &[[f64; 2]]) -> Option<MultiPolygon<f64>> {
+    use geo::{Area, BooleanOps, ConvexHull};
+    let hull = |pts: &[[f64; 2]]| {
+        MultiPoint::from(pts.iter().map(|p| Point::new(p[0], p[1])).collect::<Vec<_>>())
+            .convex_hull()
     };
-    let mut grid = [false; 16];
+    let (a, b) = (hull(reference), hull(target_mapped));
+    if a.unsigned_area() <= 0.0 || b.unsigned_area() <= 0.0 {
+        return None;
+    }
+    let both = a.intersection(&b);
+    (both.unsigned_area() > 0.0).then_some(both)
+}
+
+/// How well control points cover a region (the overlap of the two surveys, [`overlap`]).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Spread {
+    /// Share of the cells of a 4 × 4 grid over the region's bounding box, those whose centre
+    /// lies in the region, that hold at least one control point.
+    pub share: f64,
+    /// Those cells.
+    pub cells: usize,
+    /// Control points in the emptiest quadrant of the bounding box (of those the region
+    /// reaches).
+    pub fewest_in_quadrant: usize,
+}
+
+/// The [`Spread`] of `points` over `region`.
+pub fn spread(points: &[[f64; 2]], region: &MultiPolygon<f64>) -> Spread {
+    use geo::{BoundingRect, Contains};
+    let Some(rect) = region.bounding_rect() else {
+        return Spread {
+            share: 0.0,
+            cells: 0,
+            fewest_in_quadrant: 0,
+        };
+    };
+    let (lo, hi) = ([rect.min().x, rect.min().y], [rect.max().x, rect.max().y]);
+    let size = [(hi[0] - lo[0]).max(1e-12), (hi[1] - lo[1]).max(1e-12)];
+    let cell = |p: &[f64; 2], d: usize| (((p[d] - lo[d]) / size[d]) * 4.0).clamp(0.0, 3.0) as usize;
+    let mut inside = [false; 16];
+    for (k, c) in inside.iter_mut().enumerate() {
+        let centre = Point::new(
+            lo[0] + size[0] * ((k % 4) as f64 + 0.5) / 4.0,
+            lo[1] + size[1] * ((k / 4) as f64 + 0.5) / 4.0,
+        );
+        *c = region.contains(&centre);
+    }
+    if !inside.iter().any(|c| *c) {
+        inside = [true; 16];
+    }
+    let mut held = [false; 16];
     let mut quads = [0usize; 4];
     for p in points {
-        grid[cell(p, 0, 4.0) + 4 * cell(p, 1, 4.0)] = true;
-        quads[cell(p, 0, 2.0) + 2 * cell(p, 1, 2.0)] += 1;
+        let (i, j) = (cell(p, 0), cell(p, 1));
+        held[i + 4 * j] = true;
+        quads[i / 2 + 2 * (j / 2)] += 1;
     }
-    (
-        grid.iter().filter(|c| **c).count() as f64 / 16.0,
-        *quads.iter().min().unwrap_or(&0),
-    )
+    let cells = inside.iter().filter(|c| **c).count();
+    let hit = (0..16).filter(|&k| inside[k] && held[k]).count();
+    let reached = |q: usize| (0..16).any(|k| inside[k] && (k % 4) / 2 + 2 * ((k / 4) / 2) == q);
+    Spread {
+        share: hit as f64 / cells as f64,
+        cells,
+        fewest_in_quadrant: (0..4).filter(|&q| reached(q)).map(|q| quads[q]).min().unwrap_or(0),
+    }
 }
 
 /// The summary of a match: [`accepted`] or [`rejection`].
@@ -106,7 +156,12 @@ pub fn accepted(r: &MatchOutcome, s: &Solution) -> String {
         }
         _ => String::new(),
     };
-    let _ = writeln!(o, "control points   {}{held}", s.pairs.len());
+    let _ = writeln!(
+        o,
+        "control points   {} (mutual pairs within the largest residual, {:.3} m){held}",
+        s.pairs.len(),
+        s.max_residual * mpu
+    );
     let _ = writeln!(
         o,
         "RMSE             {:.3} m   (sigma per coordinate {:.3} m; the fit's own residuals)",
@@ -124,15 +179,19 @@ pub fn accepted(r: &MatchOutcome, s: &Solution) -> String {
             max
         );
     }
-    if r.config.fit.tolerance_m.is_none() {
-        let _ = writeln!(o, "tolerance        search {:.3} m (a quarter of the reference's median spacing); inliers {:.3} m (99.9% of the residual spread)", s.search_tolerance * mpu, s.inlier_tolerance * mpu);
-    } else {
-        let _ = writeln!(
-            o,
-            "tolerance        {:.3} m (as given)",
-            s.inlier_tolerance * mpu
-        );
-    }
+    let given = |g: bool, default: &str| if g { "as given" } else { default }.to_string();
+    let _ = writeln!(
+        o,
+        "search radius    {:.3} m ({}): how far a mapped landmark may lie from its partner while searching",
+        s.search_radius * mpu,
+        given(r.config.fit.search_radius_m.is_some(), "a quarter of the reference's median spacing")
+    );
+    let _ = writeln!(
+        o,
+        "max residual     {:.3} m ({}): the largest residual a control point may have",
+        s.max_residual * mpu,
+        given(r.config.fit.max_residual_m.is_some(), "99.9% of the residual spread")
+    );
     if let Some(px) = &r.pixels {
         let _ = writeln!(o, "{}", pixels_line(px));
     }
@@ -165,11 +224,20 @@ pub fn accepted(r: &MatchOutcome, s: &Solution) -> String {
         .iter()
         .map(|p| r.frame.reference[p.reference as usize])
         .collect();
-    let (cov, minq) = coverage(&refpts);
+    let mapped: Vec<[f64; 2]> = r.frame.target.iter().map(|&p| t.apply(p)).collect();
     let _ = writeln!(o);
-    let _ = writeln!(o, "spread           {:.0}% of a 4x4 grid over the control points' extent; fewest in a quadrant: {}", cov * 100.0, minq);
+    match overlap(&r.frame.reference, &mapped) {
+        Some(region) => {
+            use geo::Area;
+            let sp = spread(&refpts, &region);
+            let _ = writeln!(o, "spread           {:.0}% of a 4x4 grid over the overlap of the two surveys (the intersection of their convex hulls, {:.3} km²) holds a control point; fewest in a quadrant of it: {}", sp.share * 100.0, region.unsigned_area() * mpu * mpu * 1e-6, sp.fewest_in_quadrant);
+        }
+        None => {
+            let _ = writeln!(o, "spread           not measured: the two surveys' convex hulls do not overlap in an area");
+        }
+    }
     let sig = &s.significance;
-    let _ = writeln!(o, "significance     {} of {} covered target landmarks paired; chance would pair {:.1}%; expected false detections < 10^{:.0}", sig.inliers, sig.trials, 100.0 * sig.chance_rate_poisson.max(sig.chance_rate_decoys), sig.log10_false_alarms.ceil());
+    let _ = writeln!(o, "significance     {} of {} covered target landmarks paired within the search radius; chance would pair {:.1}%; expected false detections < 10^{:.0}", sig.inliers, sig.trials, 100.0 * sig.chance_rate_poisson.max(sig.chance_rate_decoys), sig.log10_false_alarms.ceil());
     let _ = writeln!(o, "{}", bounds_line(s, mpu));
     let _ = writeln!(o, "{}", runner_up_line(s));
     let c = &r.search;
@@ -409,7 +477,7 @@ fn runner_up_line(s: &Solution) -> String {
             let margin = s.chosen.support as f64 - r.support as f64;
             let sd = (s.chosen.support as f64 + r.support as f64).sqrt();
             format!(
-                "runner-up        {} — {} pairs against {} (margin {:.0} pairs, {:.1} standard deviations)",
+                "runner-up        {} — {} pairs against {} for the chosen transform (mutual pairs within the largest residual; margin {:.0} pairs, {:.1} standard deviations)",
                 transform_words(r),
                 r.support,
                 s.chosen.support,
@@ -458,9 +526,9 @@ pub fn rejection(r: &MatchOutcome, rejection: &Rejection) -> String {
     if let Some(line) = bounds_hint(rejection) {
         let _ = writeln!(o, "{line}");
     }
-    let _ = writeln!(o, "tolerance {:.3} m; reference median spacing {:.3} m; {} reference and {} target signatures; {} candidates; {} RANSAC rounds", rejection.search_tolerance * mpu, counts.reference_spacing * mpu, counts.reference_signatures, counts.target_signatures, counts.candidates, rejection.ransac_rounds);
+    let _ = writeln!(o, "search radius {:.3} m; reference median spacing {:.3} m; {} reference and {} target signatures; {} candidates; {} RANSAC rounds", rejection.search_radius * mpu, counts.reference_spacing * mpu, counts.reference_signatures, counts.target_signatures, counts.candidates, rejection.ransac_rounds);
     let _ = writeln!(o);
-    let _ = writeln!(o, "No control points were written. If the surveys should match: check that they cover the same place (CRS of each file), that the landmarks are the same kind of feature, and try fit.tolerance_m with the expected disagreement in metres, or more signatures.neighbours.");
+    let _ = writeln!(o, "No control points were written. If the surveys should match: check that they cover the same place (CRS of each file), that the landmarks are the same kind of feature, and try fit.search_radius_m with the expected disagreement in metres, or more signatures.neighbours.");
     o
 }
 
@@ -505,13 +573,40 @@ pub fn pixels_line(px: &crate::outcome::PixelRefinement) -> String {
 
 #[cfg(test)]
 mod tests {
+    use super::{overlap, spread};
+
+    /// A lattice of `n` × `n` points over [x0, x1] × [y0, y1].
+    fn lattice(n: usize, x: [f64; 2], y: [f64; 2]) -> Vec<[f64; 2]> {
+        let at = |a: [f64; 2], i: usize| a[0] + (a[1] - a[0]) * i as f64 / (n - 1) as f64;
+        (0..n * n).map(|k| [at(x, k % n), at(y, k / n)]).collect()
+    }
+
     #[test]
-    fn coverage_of_a_spread_and_a_clustered_set() {
-        let spread: Vec<[f64; 2]> = (0..16).map(|i| [(i % 4) as f64, (i / 4) as f64]).collect();
-        assert_eq!(super::coverage(&spread).0, 1.0);
-        let mut clustered = vec![[0.0, 0.0]; 10];
-        clustered.push([1.0, 1.0]);
-        let (c, minq) = super::coverage(&clustered);
-        assert!(c < 0.2 && minq == 0);
+    fn spread_is_measured_over_the_overlap_of_the_surveys() {
+        // Reference over 0-1000 m, target (mapped) over 500-1500 m east: they overlap in
+        // 500-1000 × 0-1000.
+        let reference = lattice(21, [0.0, 1000.0], [0.0, 1000.0]);
+        let target = lattice(21, [500.0, 1500.0], [0.0, 1000.0]);
+        let region = overlap(&reference, &target).expect("they overlap");
+        use geo::Area;
+        assert!((region.unsigned_area() - 500.0 * 1000.0).abs() < 1e-6);
+        // Control points over the whole overlap: every cell held, every quadrant populated.
+        let everywhere = lattice(8, [510.0, 990.0], [10.0, 990.0]);
+        let s = spread(&everywhere, &region);
+        assert_eq!((s.share, s.cells), (1.0, 16));
+        assert!(s.fewest_in_quadrant >= 10, "{s:?}");
+        // Control points bunched in one corner of the overlap: their own extent is covered
+        // evenly (the old measure said 100%), the overlap is not.
+        let corner = lattice(8, [505.0, 600.0], [5.0, 200.0]);
+        let s = spread(&corner, &region);
+        assert!(s.share <= 1.0 / 16.0 + 1e-12, "{s:?}");
+        assert_eq!(s.fewest_in_quadrant, 0);
+    }
+
+    #[test]
+    fn surveys_that_do_not_overlap_have_no_overlap() {
+        let a = lattice(5, [0.0, 10.0], [0.0, 10.0]);
+        let b = lattice(5, [20.0, 30.0], [0.0, 10.0]);
+        assert!(overlap(&a, &b).is_none());
     }
 }

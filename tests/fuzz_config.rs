@@ -176,7 +176,7 @@ fn signatures() -> impl Strategy<Value = SignatureChoice> {
 
 fn fit() -> impl Strategy<Value = FitParams> {
     (
-        prop::option::of(finite()),
+        (prop::option::of(finite()), prop::option::of(finite())),
         finite(),
         count(),
         0..=i64::MAX as u64,
@@ -184,8 +184,9 @@ fn fit() -> impl Strategy<Value = FitParams> {
         count(),
     )
         .prop_map(
-            |(tolerance_m, confidence, max_rounds, seed, level, min)| FitParams {
-                tolerance_m,
+            |((search_radius_m, max_residual_m), confidence, max_rounds, seed, level, min)| FitParams {
+                search_radius_m,
+                max_residual_m,
                 confidence,
                 max_rounds,
                 seed,
@@ -369,7 +370,8 @@ const TABLES: [(&str, &[&str]); 7] = [
     (
         "fit",
         &[
-            "tolerance_m",
+            "search_radius_m",
+            "max_residual_m",
             "confidence",
             "max_rounds",
             "seed",

@@ -153,7 +153,7 @@ fn two_bands_with_a_known_georeferencing_error_are_coregistered_within_a_third_o
     // GDAL (the reference library) reads both VRTs: the GCP list, one GCP a control point, in
     // the reference's CRS; the corrected geotransform puts the corners where the truth does.
     let gcps = Dataset::open(dir.path().join("out/target-gcps.vrt")).unwrap();
-    let control_points = t["inliers"].as_u64().unwrap() as usize;
+    let control_points = t["control_points"].as_u64().unwrap() as usize;
     assert_eq!(gcps.gcps().len(), control_points);
     assert!(gcps.gcp_spatial_ref().is_some());
     // The control-point table says where each point is on the target's pixels and what the

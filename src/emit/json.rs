@@ -3,14 +3,15 @@
 //! Fields: `scale`, `rotation_deg`, `translation_x`, `translation_y` map target working
 //! coordinates to reference working coordinates as x' = s(cos t·x − sin t·y) + tx,
 //! y' = s(sin t·x + cos t·y) + ty, t counter-clockwise; `standard_errors` of each; `rmse_m`;
-//! `sigma_m` (per-coordinate σ̂); `inliers`; `working_crs` (authority code, name, WKT and why it
+//! `sigma_m` (per-coordinate σ̂); `control_points` (their count); `working_crs` (authority code, name, WKT and why it
 //! was chosen); `reference_crs`, `target_crs` (for a local grid: name "local grid", its
 //! declared `unit` or null, and the WKT of its engineering CRS); `local_grid` (null for a
 //! georeferenced target; else the declared `unit`, `unit_name`, `metres_per_unit`,
 //! `unit_factor` = working units per grid unit, and what remains of `scale` once that is taken
 //! out: `grid_scale_factor`, `grid_scale_ppm` and its standard error `grid_scale_ppm_se`; only
-//! `unit: null` when no unit was declared); `thresholds`;
-//! `significance`; `chosen` and `runner_up` (rotation, scale error in ppm, shift at the
+//! `unit: null` when no unit was declared); `thresholds` (`search_radius_m` and `max_residual_m`, each with
+//! whether it was the default);
+//! `significance` (its `paired_within_search_radius`: target landmarks paired while searching); `chosen` and `runner_up` (rotation, scale error in ppm, shift at the
 //! target's centre in metres, support); `bounds` (from the target's georeferencing, or null);
 //! `seed`; `version`. Translation standard errors are at the working frame's
 //! origin; `centroid` gives the target centroid of the control points, where the position
@@ -122,7 +123,7 @@ pub fn transform_document(result: &MatchOutcome, s: &Solution) -> serde_json::Va
         "centroid": {"target_x": centroid[0], "target_y": centroid[1], "position_se_m": f.sigma * mpu / n.sqrt()},
         "rmse_m": f.rmse * mpu,
         "sigma_m": f.sigma * mpu,
-        "inliers": s.pairs.len(),
+        "control_points": s.pairs.len(),
         "working_crs": {
             "authority": result.frame.crs.authority,
             "name": result.frame.crs.name,
@@ -157,9 +158,10 @@ pub fn transform_document(result: &MatchOutcome, s: &Solution) -> serde_json::Va
             "target": {"path": result.target.source, "layer": result.target.layer, "landmarks": result.target.points.len()},
         },
         "thresholds": {
-            "tolerance_m": s.inlier_tolerance * mpu,
-            "search_tolerance_m": s.search_tolerance * mpu,
-            "tolerance_default": cfg.fit.tolerance_m.is_none(),
+            "search_radius_m": s.search_radius * mpu,
+            "search_radius_default": cfg.fit.search_radius_m.is_none(),
+            "max_residual_m": s.max_residual * mpu,
+            "max_residual_default": cfg.fit.max_residual_m.is_none(),
             "reference_spacing_m": result.search.reference_spacing * mpu,
             "confidence": cfg.fit.confidence,
             "max_rounds": cfg.fit.max_rounds,
@@ -175,7 +177,7 @@ pub fn transform_document(result: &MatchOutcome, s: &Solution) -> serde_json::Va
             "rank": cfg.matching.rank,
             "candidates": cfg.matching.candidates,
         },
-        "significance": s.significance,
+        "significance": significance_document(&s.significance),
         "chosen": s.chosen,
         "runner_up": s.runner_up,
         "bounds": s.bounds.map(|b| json!({
@@ -192,6 +194,19 @@ pub fn transform_document(result: &MatchOutcome, s: &Solution) -> serde_json::Va
         o.extend(accuracy_members(result));
     }
     doc
+}
+
+/// The significance test, its count named for what it counts: the target landmarks paired
+/// within the search radius (`paired_within_search_radius`), which is not the number of
+/// control points.
+fn significance_document(sig: &crate::fit::significance::Significance) -> serde_json::Value {
+    let mut v = serde_json::to_value(sig).expect("JSON values serialise");
+    if let Some(m) = v.as_object_mut() {
+        if let Some(n) = m.remove("inliers") {
+            m.insert("paired_within_search_radius".into(), n);
+        }
+    }
+    v
 }
 
 /// Writes `transform.json`.

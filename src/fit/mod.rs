@@ -32,8 +32,17 @@ use significance::Significance;
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields, default)]
 pub struct FitParams {
-    /// Inlier tolerance in metres; `None`: a quarter of the reference's median landmark
-    /// spacing.
+    /// Radius of the search in metres: how far a mapped target landmark may lie from its
+    /// reference landmark to count as paired in RANSAC, guided matching and the significance
+    /// test; `None`: a quarter of the reference's median landmark spacing.
+    pub search_radius_m: Option<f64>,
+    /// The largest residual a control point may have, in metres; `None`: 99.9% of the
+    /// residual spread (Rayleigh, from the median residual), at most the search radius.
+    pub max_residual_m: Option<f64>,
+    /// Retired: it set both of the above. Kept only to refuse it by name: a pipeline file
+    /// holding it is refused as it is read (with its line), a value set here by
+    /// [`FitParams::validate`] ([`FitError::RetiredTolerance`]); never written.
+    #[serde(skip_serializing, deserialize_with = "refuse_retired_tolerance")]
     pub tolerance_m: Option<f64>,
     /// RANSAC confidence of drawing one all-inlier sample.
     pub confidence: f64,
@@ -61,6 +70,8 @@ pub struct FitParams {
 impl Default for FitParams {
     fn default() -> Self {
         FitParams {
+            search_radius_m: None,
+            max_residual_m: None,
             tolerance_m: None,
             confidence: 0.999,
             max_rounds: 300_000,
@@ -74,12 +85,30 @@ impl Default for FitParams {
     }
 }
 
+/// What a pipeline file's `fit.tolerance_m` is told (the command line's `--tolerance` gets
+/// [`FitError::RetiredTolerance`], rendered with its flags).
+const RETIRED_TOLERANCE: &str = "fit.tolerance_m no longer exists: it set two different things, now set apart: fit.search_radius_m (the radius of the search: how far a mapped landmark may lie from its partner in RANSAC, guided matching and the significance test) and fit.max_residual_m (the largest residual a control point may have); give either or both in metres instead";
+
+fn refuse_retired_tolerance<'de, D: serde::Deserializer<'de>>(
+    _: D,
+) -> Result<Option<f64>, D::Error> {
+    Err(serde::de::Error::custom(RETIRED_TOLERANCE))
+}
+
 /// Why the options are unusable.
 #[derive(Debug, thiserror::Error, PartialEq)]
 pub enum FitError {
-    /// Tolerance not a positive number.
-    #[error("fit.tolerance_m must be a positive number of metres (got {0})")]
-    InvalidTolerance(f64),
+    /// A distance (search radius, largest residual) not a positive number.
+    #[error("{key} must be a positive number of metres (got {value})")]
+    InvalidDistance {
+        /// The option's key.
+        key: &'static str,
+        /// The value given.
+        value: f64,
+    },
+    /// The retired key `fit.tolerance_m` was given.
+    #[error("{RETIRED_TOLERANCE} (got {0})")]
+    RetiredTolerance(f64),
     /// Confidence outside (0, 1).
     #[error("fit.confidence must be between 0 and 1, exclusive (got {0})")]
     InvalidConfidence(f64),
@@ -118,8 +147,16 @@ impl FitParams {
     /// Checks the options alone.
     pub fn validate(&self) -> Result<(), FitError> {
         if let Some(t) = self.tolerance_m {
-            if !(t.is_finite() && t > 0.0) {
-                return Err(FitError::InvalidTolerance(t));
+            return Err(FitError::RetiredTolerance(t));
+        }
+        for (key, v) in [
+            ("fit.search_radius_m", self.search_radius_m),
+            ("fit.max_residual_m", self.max_residual_m),
+        ] {
+            if let Some(value) = v {
+                if !(value.is_finite() && value > 0.0) {
+                    return Err(FitError::InvalidDistance { key, value });
+                }
             }
         }
         if !(self.confidence > 0.0 && self.confidence < 1.0) {
@@ -228,11 +265,12 @@ pub struct Solution {
     pub fit: SimilarityFit,
     /// Control points, residuals under `fit.transform` (working units).
     pub pairs: Vec<Pair>,
-    /// Largest residual a control point may have, working units: the search tolerance, or
-    /// with the default tolerance 99.9% of the residual spread.
-    pub inlier_tolerance: f64,
-    /// Tolerance of the search (RANSAC, guided matching, significance), working units.
-    pub search_tolerance: f64,
+    /// Largest residual a control point may have, working units
+    /// ([`FitParams::max_residual_m`], or 99.9% of the residual spread).
+    pub max_residual: f64,
+    /// Radius of the search (RANSAC, guided matching, significance), working units
+    /// ([`FitParams::search_radius_m`], or a quarter of the reference's median spacing).
+    pub search_radius: f64,
     /// The significance test.
     pub significance: Significance,
     /// RANSAC rounds run.
@@ -314,8 +352,8 @@ pub enum RejectReason {
 pub struct Rejection {
     /// Why.
     pub reason: RejectReason,
-    /// Tolerance of the search, working units.
-    pub search_tolerance: f64,
+    /// Radius of the search, working units.
+    pub search_radius: f64,
     /// The best attempt's significance, if any attempt got that far.
     pub significance: Option<Significance>,
     /// RANSAC rounds run.
@@ -340,7 +378,7 @@ pub fn robust_fit(
     params: &FitParams,
     progress: &mut dyn FnMut(&str),
 ) -> Result<Solution, Rejection> {
-    let tolerance = match params.tolerance_m {
+    let radius = match params.search_radius_m {
         Some(t) => t / input.metres_per_unit,
         None => 0.25 * input.reference_spacing,
     };
@@ -362,12 +400,12 @@ pub fn robust_fit(
     );
     progress("searching for a consistent transform (RANSAC)");
     let rparams = ransac::RansacParams {
-        tolerance,
+        tolerance: radius,
         confidence: params.confidence,
         max_rounds: params.max_rounds,
         seed: params.seed,
         keep: 4,
-        chance_rate: significance::poisson_chance_rate(tolerance, input.reference_spacing),
+        chance_rate: significance::poisson_chance_rate(radius, input.reference_spacing),
         prior,
     };
     let r = ransac::ransac(input, &rparams);
@@ -377,7 +415,7 @@ pub fn robust_fit(
                 outside_bounds: r.outside_bounds,
                 made: r.hypotheses,
             },
-            search_tolerance: tolerance,
+            search_radius: radius,
             significance: None,
             ransac_rounds: r.rounds,
             hypotheses: [r.hypotheses, r.outside_bounds],
@@ -389,12 +427,12 @@ pub fn robust_fit(
     // hypothesis from costing full passes over a large survey.
     let coarse: Option<Vec<u32>> =
         (input.target.len() > COARSE_ABOVE).then(|| spread_subset(input.target_order, COARSE_SIZE));
-    let poisson = significance::poisson_chance_rate(tolerance, input.reference_spacing);
+    let poisson = significance::poisson_chance_rate(radius, input.reference_spacing);
     let mut ranked: Vec<(usize, Similarity, &ransac::Hypothesis)> = Vec::new();
     for h in &r.best {
         match &coarse {
             Some(sub) => {
-                let g = guided_match(&frames, h.transform, tolerance, coverage, Some(sub), 20);
+                let g = guided_match(&frames, h.transform, radius, coverage, Some(sub), 20);
                 let quick =
                     Significance::new(g.covered, g.pairs.len(), poisson, 0.0, r.hypotheses.max(1));
                 if quick.is_significant(params.false_alarm_level) {
@@ -415,7 +453,7 @@ pub fn robust_fit(
     // times faster than in file order.
     let everyone = input.target_order;
     for (i, (_, start, h)) in ranked.into_iter().take(full_runs).enumerate() {
-        let g = guided_match(&frames, start, tolerance, coverage, Some(everyone), 20);
+        let g = guided_match(&frames, start, radius, coverage, Some(everyone), 20);
         alternatives[i] = g.transform;
         if best
             .as_ref()
@@ -427,7 +465,7 @@ pub fn robust_fit(
     let Some((g, h)) = best else {
         let h = &r.best[0];
         let sub = coarse.as_deref();
-        let g = guided_match(&frames, h.transform, tolerance, coverage, sub, 20);
+        let g = guided_match(&frames, h.transform, radius, coverage, sub, 20);
         let sig = Significance::new(g.covered, g.pairs.len(), poisson, 0.0, r.hypotheses.max(1));
         return Err(Rejection {
             reason: RejectReason::ChanceOnSubset {
@@ -435,7 +473,7 @@ pub fn robust_fit(
                 sampled: g.covered,
                 chance_rate: poisson,
             },
-            search_tolerance: tolerance,
+            search_radius: radius,
             significance: Some(sig),
             ransac_rounds: r.rounds,
             hypotheses: [r.hypotheses, r.outside_bounds],
@@ -446,7 +484,7 @@ pub fn robust_fit(
         &frames,
         input.target_order,
         &g.transform,
-        tolerance,
+        radius,
         coverage,
         params.seed,
     );
@@ -456,7 +494,7 @@ pub fn robust_fit(
     let reject = |reason: RejectReason| {
         Err(Rejection {
             reason,
-            search_tolerance: tolerance,
+            search_radius: radius,
             significance: Some(sig),
             ransac_rounds: r.rounds,
             hypotheses: [r.hypotheses, r.outside_bounds],
@@ -477,32 +515,33 @@ pub fn robust_fit(
             level: params.false_alarm_level,
         });
     }
-    // With the default tolerance, tighten the inlier test to what the residuals show: 3.717 σ̂
-    // is the 99.9% point of the Rayleigh law of a 2-D residual with σ per coordinate, and σ̂
-    // comes from the median residual (Rayleigh median = σ·√(2 ln 2)), robust to the outliers
-    // still inside the search tolerance.
+    // The largest residual a control point may have: as given, or what the residuals show:
+    // 3.717 σ̂ is the 99.9% point of the Rayleigh law of a 2-D residual with σ per coordinate,
+    // and σ̂ comes from the median residual (Rayleigh median = σ·√(2 ln 2)), robust to the
+    // outliers still inside the search radius.
     let mut g = g;
-    let mut inlier_tolerance = tolerance;
-    if params.tolerance_m.is_none() {
-        let mut res: Vec<f64> = g.pairs.iter().map(|p| p.residual).collect();
-        let mid = res.len() / 2;
-        res.select_nth_unstable_by(mid, f64::total_cmp);
-        let sigma = res[mid] / (2.0 * std::f64::consts::LN_2).sqrt();
-        let tightened = (RAYLEIGH_999 * sigma).clamp(0.02 * tolerance, tolerance);
-        if tightened < tolerance {
-            progress("tightening the inlier tolerance");
-            let g2 = guided_match(
-                &frames,
-                g.transform,
-                tightened,
-                coverage,
-                Some(everyone),
-                10,
-            );
-            if g2.pairs.len() >= params.min_control_points {
-                g = g2;
-                inlier_tolerance = tightened;
-            }
+    let mut max_residual = radius;
+    let wanted = match params.max_residual_m {
+        Some(m) => m / input.metres_per_unit,
+        None => {
+            let mut res: Vec<f64> = g.pairs.iter().map(|p| p.residual).collect();
+            let mid = res.len() / 2;
+            res.select_nth_unstable_by(mid, f64::total_cmp);
+            let sigma = res[mid] / (2.0 * std::f64::consts::LN_2).sqrt();
+            (RAYLEIGH_999 * sigma).clamp(0.02 * radius, radius)
+        }
+    };
+    if wanted != radius {
+        progress("pairing the control points within the largest residual");
+        let g2 = guided_match(&frames, g.transform, wanted, coverage, Some(everyone), 10);
+        if g2.pairs.len() >= params.min_control_points {
+            g = g2;
+            max_residual = wanted;
+        } else if params.max_residual_m.is_some() {
+            return reject(RejectReason::TooFewControlPoints {
+                paired: g2.pairs.len(),
+                required: params.min_control_points,
+            });
         }
     }
     let Some(fit) = guided::refit(&frames, &g.pairs) else {
@@ -511,7 +550,7 @@ pub fn robust_fit(
     // A fit that the bounds of the target's own georeferencing rule out is never reported.
     let subset = coarse.as_deref().unwrap_or(everyone);
     let support = |t: &Similarity| {
-        guided::mutual_pairs(&frames, t, inlier_tolerance, coverage, Some(subset))
+        guided::mutual_pairs(&frames, t, max_residual, coverage, Some(subset))
             .0
             .len()
     };
@@ -546,7 +585,7 @@ pub fn robust_fit(
         &alternatives,
         &fit.transform,
         prior.as_ref(),
-        tolerance,
+        radius,
         coverage,
         Some(subset),
     )
@@ -562,8 +601,8 @@ pub fn robust_fit(
     Ok(Solution {
         fit,
         pairs: g.pairs,
-        inlier_tolerance,
-        search_tolerance: tolerance,
+        max_residual,
+        search_radius: radius,
         significance: sig,
         ransac_rounds: r.rounds,
         ransac_consensus: h.consensus,
@@ -576,7 +615,7 @@ pub fn robust_fit(
 }
 
 /// The best of the `alternatives` (each refined again by guided matching) that is admitted by
-/// the prior and is not `best` within the search tolerance anywhere over the target's extent:
+/// the prior and is not `best` within the search radius anywhere over the target's extent:
 /// the transform that competes with the chosen one.
 fn competing_transform(
     frames: &Frames,
@@ -692,14 +731,35 @@ mod option_tests {
             ),
             (
                 FitParams {
-                    tolerance_m: Some(0.0),
+                    search_radius_m: Some(0.0),
                     ..FitParams::default()
                 },
-                "fit.tolerance_m",
+                "fit.search_radius_m",
             ),
             (
                 FitParams {
-                    tolerance_m: Some(f64::INFINITY),
+                    search_radius_m: Some(f64::INFINITY),
+                    ..FitParams::default()
+                },
+                "fit.search_radius_m",
+            ),
+            (
+                FitParams {
+                    max_residual_m: Some(-1.0),
+                    ..FitParams::default()
+                },
+                "fit.max_residual_m",
+            ),
+            (
+                FitParams {
+                    max_residual_m: Some(f64::NAN),
+                    ..FitParams::default()
+                },
+                "fit.max_residual_m",
+            ),
+            (
+                FitParams {
+                    tolerance_m: Some(1.0),
                     ..FitParams::default()
                 },
                 "fit.tolerance_m",

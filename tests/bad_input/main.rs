@@ -24,6 +24,7 @@ mod checkpoints;
 mod ingest;
 mod messages;
 mod rasters;
+mod words;
 
 /// The GeoJSON `crs` member value for WGS 84 / UTM zone 33N.
 const UTM33: &str = "urn:ogc:def:crs:EPSG::32633";
@@ -804,36 +805,36 @@ fn neighbours_too_small() {
 }
 
 #[test]
-fn negative_tolerance() {
-    let words = ["tolerance", "positive", "(got -1)"];
-    Site::new().refuses_match(None, None, &["--tolerance=-1"], &words);
+fn negative_search_radius() {
+    let words = ["--search-radius", "positive", "(got -1)"];
+    Site::new().refuses_match(None, None, &["--search-radius=-1"], &words);
 }
 
 #[test]
-fn negative_tolerance_as_separate_argument() {
-    // `--tolerance -1`, as a user types it, must get the same answer as `--tolerance=-1`
+fn negative_max_residual_as_separate_argument() {
+    // `--max-residual -1`, as a user types it, must get the same answer as `--max-residual=-1`
     // (clap takes `-1` for an unknown flag unless the argument allows negative numbers).
-    let words = ["tolerance", "positive", "(got -1)"];
-    Site::new().refuses_match(None, None, &["--tolerance", "-1"], &words);
+    let words = ["--max-residual", "positive", "(got -1)"];
+    Site::new().refuses_match(None, None, &["--max-residual", "-1"], &words);
 }
 
 #[test]
 fn pipeline_with_unknown_key() {
     let site = Site::new();
     site.valid_pair();
-    let text = "[reference]\npath = \"../reference.geojson\"\nid = \"name\"\n\n[target]\npath = \"../target.csv\"\ncrs = \"local\"\n\n[output]\ndir = \"out\"\n\n[fit]\ntolerence_m = 2.0\n";
+    let text = "[reference]\npath = \"../reference.geojson\"\nid = \"name\"\n\n[target]\npath = \"../target.csv\"\ncrs = \"local\"\n\n[output]\ndir = \"out\"\n\n[fit]\nsearch_radios_m = 2.0\n";
     site.write("pipelines/p.toml", text);
     // Where the misspelt key is, counted from the text written.
     let line = text
         .lines()
-        .position(|l| l.contains("tolerence_m"))
+        .position(|l| l.contains("search_radios_m"))
         .unwrap()
         + 1;
     let column = text
         .lines()
         .nth(line - 1)
         .unwrap()
-        .find("tolerence_m")
+        .find("search_radios_m")
         .unwrap()
         + 1;
     site.expect_failure(
@@ -842,14 +843,14 @@ fn pipeline_with_unknown_key() {
         &[
             "p.toml",
             &format!("line {line}, column {column}"),
-            "tolerence_m",
+            "search_radios_m",
         ],
     );
     assert!(!site.path("pipelines/out").exists());
     // Control: spelt right, the same pipeline runs.
     site.write(
         "pipelines/p.toml",
-        text.replace("tolerence_m", "tolerance_m"),
+        text.replace("search_radios_m", "search_radius_m"),
     );
     let out = site.run(&["run", "pipelines/p.toml"]);
     assert_eq!(out.code, Some(0), "{out:#?}");

@@ -163,8 +163,9 @@ fn zero_rounds_and_other_senseless_numbers_are_refused_by_key() {
         ("fit", "max_rounds = 0", "fit.max_rounds"),
         ("fit", "confidence = nan", "fit.confidence"),
         ("fit", "confidence = 0.0", "fit.confidence"),
-        ("fit", "tolerance_m = -2.0", "fit.tolerance_m"),
-        ("fit", "tolerance_m = nan", "fit.tolerance_m"),
+        ("fit", "search_radius_m = -2.0", "fit.search_radius_m"),
+        ("fit", "search_radius_m = nan", "fit.search_radius_m"),
+        ("fit", "max_residual_m = 0.0", "fit.max_residual_m"),
         ("fit", "false_alarm_level = 0.0", "fit.false_alarm_level"),
         ("fit", "min_control_points = 0", "fit.min_control_points"),
         ("fit", "max_shift_m = 0.0", "fit.max_shift_m"),
@@ -360,7 +361,7 @@ fn local_grid_in_us_survey_feet_reports_its_scale_factor_apart_from_the_unit() {
         srs.linear_units()
     );
     assert_eq!(srs.linear_units_name().as_deref(), Some("US survey foot"));
-    assert_eq!(layer.feature_count(), doc["inliers"].as_u64().unwrap());
+    assert_eq!(layer.feature_count(), doc["control_points"].as_u64().unwrap());
 
     // Declared in international feet: 2 ppm higher.
     let (_, doc) = run("ft", "out-ft");

@@ -125,8 +125,14 @@ pub struct MatchArgs {
     /// Projected CRS to work in (default: the reference's, or the UTM zone of a geographic reference).
     #[arg(long)]
     working_crs: Option<String>,
-    /// Inlier tolerance in metres (default: a quarter of the reference's median landmark spacing).
-    #[arg(long, allow_negative_numbers = true)]
+    /// Radius of the search in metres: how far a mapped landmark may lie from its partner in RANSAC, guided matching and the significance test (default: a quarter of the reference's median landmark spacing).
+    #[arg(long, allow_negative_numbers = true, value_name = "M")]
+    search_radius: Option<f64>,
+    /// The largest residual in metres a control point may have (default: 99.9% of the residual spread, at most the search radius).
+    #[arg(long, allow_negative_numbers = true, value_name = "M")]
+    max_residual: Option<f64>,
+    /// Retired (it set both --search-radius and --max-residual): refused with a message naming them.
+    #[arg(long, allow_negative_numbers = true, hide = true)]
     tolerance: Option<f64>,
     #[arg(long, allow_negative_numbers = true, help = format!("Largest shift in metres, at the target's centre, that the target's georeferencing may have; inf: no bound [default: {} for a georeferenced target, no bound for a local grid]", prior::DEFAULT_MAX_SHIFT_M))]
     max_shift: Option<f64>,
@@ -290,6 +296,8 @@ impl MatchArgs {
                 rank: self.rank,
             },
             fit: FitParams {
+                search_radius_m: self.search_radius,
+                max_residual_m: self.max_residual,
                 tolerance_m: self.tolerance,
                 confidence: self.confidence,
                 max_rounds: self.max_rounds,
@@ -341,6 +349,8 @@ const FLAGS: &[(&str, &str)] = &[
     ("signatures.ambiguity", "--ambiguity"),
     ("matching.candidates", "--candidates"),
     ("matching.rank", "--rank"),
+    ("fit.search_radius_m", "--search-radius"),
+    ("fit.max_residual_m", "--max-residual"),
     ("fit.tolerance_m", "--tolerance"),
     ("fit.confidence", "--confidence"),
     ("fit.max_rounds", "--max-rounds"),
