@@ -24,8 +24,12 @@ pub const CAUTION: &str = "Control points found automatically must be verified a
 pub fn overlap(reference: &[[f64; 2]], target_mapped: &[[f64; 2]]) -> Option<MultiPolygon<f64>> {
     use geo::{Area, BooleanOps, ConvexHull};
     let hull = |pts: &[[f64; 2]]| {
-        MultiPoint::from(pts.iter().map(|p| Point::new(p[0], p[1])).collect::<Vec<_>>())
-            .convex_hull()
+        MultiPoint::from(
+            pts.iter()
+                .map(|p| Point::new(p[0], p[1]))
+                .collect::<Vec<_>>(),
+        )
+        .convex_hull()
     };
     let (a, b) = (hull(reference), hull(target_mapped));
     if a.unsigned_area() <= 0.0 || b.unsigned_area() <= 0.0 {
@@ -85,7 +89,11 @@ pub fn spread(points: &[[f64; 2]], region: &MultiPolygon<f64>) -> Spread {
     Spread {
         share: hit as f64 / cells as f64,
         cells,
-        fewest_in_quadrant: (0..4).filter(|&q| reached(q)).map(|q| quads[q]).min().unwrap_or(0),
+        fewest_in_quadrant: (0..4)
+            .filter(|&q| reached(q))
+            .map(|q| quads[q])
+            .min()
+            .unwrap_or(0),
     }
 }
 
@@ -162,11 +170,13 @@ pub fn accepted(r: &MatchOutcome, s: &Solution) -> String {
         s.pairs.len(),
         s.max_residual * mpu
     );
+    let written = s.models.written();
     let _ = writeln!(
         o,
-        "RMSE             {:.3} m   (sigma per coordinate {:.3} m; the fit's own residuals)",
-        f.rmse * mpu,
-        f.sigma * mpu
+        "RMSE             {:.3} m   (sigma per coordinate {:.3} m; the fit's own {} residuals, as in control-points.csv)",
+        written.rmse * mpu,
+        written.sigma * mpu,
+        written.model
     );
     let mut res: Vec<f64> = s.pairs.iter().map(|p| p.residual * mpu).collect();
     res.sort_by(f64::total_cmp);
@@ -190,7 +200,10 @@ pub fn accepted(r: &MatchOutcome, s: &Solution) -> String {
         o,
         "max residual     {:.3} m ({}): the largest residual a control point may have",
         s.max_residual * mpu,
-        given(r.config.fit.max_residual_m.is_some(), "99.9% of the residual spread")
+        given(
+            r.config.fit.max_residual_m.is_some(),
+            "99.9% of the residual spread"
+        )
     );
     if let Some(px) = &r.pixels {
         let _ = writeln!(o, "{}", pixels_line(px));
@@ -236,6 +249,7 @@ pub fn accepted(r: &MatchOutcome, s: &Solution) -> String {
             let _ = writeln!(o, "spread           not measured: the two surveys' convex hulls do not overlap in an area");
         }
     }
+    let _ = write!(o, "{}", models_lines(s, mpu));
     let sig = &s.significance;
     let _ = writeln!(o, "significance     {} of {} covered target landmarks paired within the search radius; chance would pair {:.1}%; expected false detections < 10^{:.0}", sig.inliers, sig.trials, 100.0 * sig.chance_rate_poisson.max(sig.chance_rate_decoys), sig.log10_false_alarms.ceil());
     let _ = writeln!(o, "{}", bounds_line(s, mpu));
@@ -436,6 +450,9 @@ pub fn reason(r: &RejectReason) -> String {
             100.0 * chance_rate
         ),
         RejectReason::DegenerateControlPoints => "the control points are degenerate (all at one place)".into(),
+        RejectReason::ModelNotFitted { model, paired, required } => format!(
+            "the transform pairs {paired} landmarks, but fit.model = {model} needs at least {required} control points placed so that they determine it; choose a simpler fit.model (similarity needs 3)"
+        ),
         RejectReason::OutsidePrior { found } => format!(
             "the best transform ({}) lies outside the bounds of the target's georeferencing (fit.max_shift_m, fit.max_rotation_deg, fit.max_scale_ppm); if the target's georeferencing is that far off, raise those bounds",
             transform_words(&found)
@@ -448,6 +465,60 @@ pub fn reason(r: &RejectReason) -> String {
             runner_up.support
         ),
     }
+}
+
+/// The models compared on the control points: a small table and which one is written.
+pub fn models_lines(s: &Solution, mpu: f64) -> String {
+    use crate::fit::Model;
+    let c = &s.models;
+    let mut o = String::new();
+    let _ = writeln!(
+        o,
+        "models           fitted on the same {} control points; written: {} (fit.model; never chosen on its own)",
+        s.pairs.len(),
+        c.chosen
+    );
+    let _ = writeln!(
+        o,
+        "  model          parameters  RMSE m   sigma m  warranted? (F test of the residual reduction against the parameters spent, at 95%)"
+    );
+    for m in [Model::Similarity, Model::Affine, Model::Polynomial2] {
+        let Some(f) = c.fit(m) else {
+            let _ = writeln!(
+                o,
+                "  {:<14} {:<11} not fitted: needs at least {} control points",
+                m.name(),
+                m.parameters().unwrap_or(0),
+                m.min_control_points()
+            );
+            continue;
+        };
+        let verdict = match c.test(m) {
+            None => "the baseline".to_string(),
+            Some(t) => format!(
+                "{} (against {}): F({}, {}) = {:.2}, p = {:.3}",
+                if t.warranted { "yes" } else { "no" },
+                t.simpler,
+                t.df1,
+                t.df2,
+                t.f,
+                t.p_value
+            ),
+        };
+        let _ = writeln!(
+            o,
+            "  {:<14} {:<11} {:<8.3} {:<8.3} {}",
+            m.name(),
+            f.parameters,
+            f.rmse * mpu,
+            f.sigma * mpu,
+            verdict
+        );
+    }
+    if c.chosen == Model::Tps {
+        let _ = writeln!(o, "  tps            a thin-plate spline through every control point (the warp of target-gcps.vrt); it meets each exactly, so the residuals given are the similarity's");
+    }
+    o
 }
 
 /// The bounds of the search, in words.

@@ -184,15 +184,17 @@ fn fit() -> impl Strategy<Value = FitParams> {
         count(),
     )
         .prop_map(
-            |((search_radius_m, max_residual_m), confidence, max_rounds, seed, level, min)| FitParams {
-                search_radius_m,
-                max_residual_m,
-                confidence,
-                max_rounds,
-                seed,
-                false_alarm_level: level,
-                min_control_points: min,
-                ..FitParams::default()
+            |((search_radius_m, max_residual_m), confidence, max_rounds, seed, level, min)| {
+                FitParams {
+                    search_radius_m,
+                    max_residual_m,
+                    confidence,
+                    max_rounds,
+                    seed,
+                    false_alarm_level: level,
+                    min_control_points: min,
+                    ..FitParams::default()
+                }
             },
         )
 }
@@ -372,6 +374,7 @@ const TABLES: [(&str, &[&str]); 7] = [
         &[
             "search_radius_m",
             "max_residual_m",
+            "model",
             "confidence",
             "max_rounds",
             "seed",

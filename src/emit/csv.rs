@@ -37,7 +37,6 @@ pub fn write_control_points(
 ) -> Result<(), EmitError> {
     let f = std::fs::File::create(path).map_err(io_err(path))?;
     let mut w = std::io::BufWriter::new(f);
-    let t = s.fit.transform;
     let mpu = result.frame.metres_per_unit();
     let rd = coordinate_decimals(result.frame.reference_crs.geographic);
     let td = coordinate_decimals(
@@ -82,7 +81,7 @@ pub fn write_control_points(
         let (ri, ti) = (p.reference as usize, p.target as usize);
         let r = result.reference.points[ri];
         let tp = result.target.points[ti];
-        let m = t.apply(result.frame.target[ti]);
+        let m = s.map(result.frame.target[ti]);
         let rw = result.frame.reference[ri];
         let (dx, dy) = ((rw[0] - m[0]) * mpu, (rw[1] - m[1]) * mpu);
         let mut extra = String::new();

@@ -178,6 +178,7 @@ pub fn transform_document(result: &MatchOutcome, s: &Solution) -> serde_json::Va
             "candidates": cfg.matching.candidates,
         },
         "significance": significance_document(&s.significance),
+        "model": model_document(&s.models, mpu),
         "chosen": s.chosen,
         "runner_up": s.runner_up,
         "bounds": s.bounds.map(|b| json!({
@@ -194,6 +195,43 @@ pub fn transform_document(result: &MatchOutcome, s: &Solution) -> serde_json::Va
         o.extend(accuracy_members(result));
     }
     doc
+}
+
+/// The model written and every model compared on the same control points (`model`): `chosen`;
+/// `residuals_of` (the model whose residuals `control-points.csv` gives: the chosen one, the
+/// similarity's for `tps`); `formula`; `centre_x`, `centre_y`, `scale_length` and
+/// `x_coefficients`, `y_coefficients` of each fit (working units; the similarity's are a, b,
+/// tx, ty of the formula at the top); `parameters`, `control_points`, `rmse_m`, `sigma_m`;
+/// `tests`: each richer model against the next simpler one (`f`, `df1`, `df2`, `p_value`,
+/// `warranted` at `level`).
+fn model_document(c: &crate::fit::models::Comparison, mpu: f64) -> serde_json::Value {
+    let fits: Vec<serde_json::Value> = c
+        .fits
+        .iter()
+        .map(|f| {
+            json!({
+                "model": f.model,
+                "parameters": f.parameters,
+                "control_points": f.n,
+                "rmse_m": f.rmse * mpu,
+                "sigma_m": f.sigma * mpu,
+                "centre_x": f.centre[0],
+                "centre_y": f.centre[1],
+                "scale_length": f.scale_length,
+                "x_coefficients": f.x_coefficients,
+                "y_coefficients": f.y_coefficients,
+            })
+        })
+        .collect();
+    json!({
+        "chosen": c.chosen,
+        "residuals_of": c.written().model,
+        "formula": "similarity: as at the top; affine: u = (x - centre_x)/scale_length, v = (y - centre_y)/scale_length, x' = X0 + X1*u + X2*v, y' = Y0 + Y1*u + Y2*v; polynomial2: the same plus X3*u^2 + X4*u*v + X5*v^2 (and Y3..Y5); Xi = x_coefficients[i], Yi = y_coefficients[i]; tps: a thin-plate spline through every control point (the GCP warp of a raster target)",
+        "fits": fits,
+        "tests": c.tests,
+        "test": "nested-model (extra sum of squares) F test of the residual reduction against the parameters spent (NIST/SEMATECH e-Handbook of Statistical Methods, 4.4.4); warranted when p_value < level",
+        "level": c.level,
+    })
 }
 
 /// The significance test, its count named for what it counts: the target landmarks paired

@@ -320,8 +320,18 @@ fn raster_outputs(
                 }
             }
         };
+        // The GCP warp follows the model written: first order for the similarity and the
+        // affine, second order for the polynomial, the thin-plate spline for tps.
+        let transform = match outcome.config.fit.model {
+            crate::fit::Model::Similarity | crate::fit::Model::Affine => {
+                raster::WarpTransform::FirstOrder
+            }
+            crate::fit::Model::Polynomial2 => raster::WarpTransform::SecondOrder,
+            crate::fit::Model::Tps => raster::WarpTransform::ThinPlateSpline,
+        };
         let options = raster::WarpOptions {
             resampling,
+            transform,
             ..raster::WarpOptions::default()
         };
         raster::warp_to_reference(

@@ -9,8 +9,9 @@
 //! caller renames it into place with the other outputs):
 //!
 //! - `target-gcps.vrt` ([`write_gcp_vrt`]): the target image, unchanged, with the GCP list and
-//!   the reference CRS and no geotransform, so that a first-order (`gdalwarp -order 1`) or a
-//!   thin-plate-spline (`-tps`) warp co-registers it with no further work.
+//!   the reference CRS and no geotransform, so that a first-order (`gdalwarp -order 1`), a
+//!   second-order (`-order 2`) or a thin-plate-spline (`-tps`) warp co-registers it with no
+//!   further work (which one [`warp_to_reference`] makes follows `fit.model`).
 //! - `target-georeferenced.vrt` ([`write_georeferenced_vrt`]): the target image, unchanged,
 //!   with the geotransform of [`georeferenced_geotransform`] (the target's geotransform
 //!   followed by the similarity) and the reference CRS: re-georeferenced without resampling.
@@ -133,6 +134,9 @@ pub enum WarpTransform {
     /// The least-squares affine of the source's GCPs (a first-order polynomial): for
     /// [`GCP_VRT`].
     FirstOrder,
+    /// The least-squares second-order polynomial of the source's GCPs (at least 6): for
+    /// [`GCP_VRT`].
+    SecondOrder,
     /// A thin-plate spline through the source's GCPs (every GCP met exactly): for
     /// [`GCP_VRT`].
     ThinPlateSpline,
@@ -648,7 +652,7 @@ fn source_map(
                  transform instead",
             )),
         },
-        WarpTransform::FirstOrder | WarpTransform::ThinPlateSpline => {
+        WarpTransform::FirstOrder | WarpTransform::SecondOrder | WarpTransform::ThinPlateSpline => {
             let n = ds.gcps().len();
             if n < 3 {
                 return Err(raster_err(
@@ -666,10 +670,13 @@ fn source_map(
                      co-register the image",
                 )
             })?;
-            let pad_pixels = if transform == WarpTransform::ThinPlateSpline {
-                (worst / affine.pixel_size()).ceil()
-            } else {
-                0.0
+            // How far the map may stray from the GCPs' affine: the spline by about the worst
+            // GCP's distance from it; a second-order polynomial grows quadratically beyond the
+            // GCPs, so up to the image corners by a few times that (our own margin: four).
+            let pad_pixels = match transform {
+                WarpTransform::ThinPlateSpline => (worst / affine.pixel_size()).ceil(),
+                WarpTransform::SecondOrder => (4.0 * worst / affine.pixel_size()).ceil(),
+                _ => 0.0,
             };
             Ok(SourceMap {
                 affine,
@@ -809,7 +816,8 @@ unsafe extern "C" fn progress_trampoline(
 }
 
 /// Writes `target-coregistered.tif` at `out`: `source` (a [`GCP_VRT`] with
-/// [`WarpTransform::FirstOrder`] or [`WarpTransform::ThinPlateSpline`], a [`GEOREFERENCED_VRT`]
+/// [`WarpTransform::FirstOrder`], [`WarpTransform::SecondOrder`] or
+/// [`WarpTransform::ThinPlateSpline`], a [`GEOREFERENCED_VRT`]
 /// with [`WarpTransform::Geotransform`]) warped by GDAL (`GDALWarp`) onto `grid`: the reference
 /// CRS, its pixel size, pixel edges on the reference's, over the target's footprint or the whole
 /// reference ([`WarpExtent`]). A tiled GeoTIFF, compressed losslessly with a predictor,
@@ -861,6 +869,11 @@ pub fn warp_to_reference(
     match options.transform {
         WarpTransform::FirstOrder => args.extend(
             ["-order", "1", "-to", "METHOD=GCP_POLYNOMIAL"]
+                .iter()
+                .map(|s| s.to_string()),
+        ),
+        WarpTransform::SecondOrder => args.extend(
+            ["-order", "2", "-to", "METHOD=GCP_POLYNOMIAL"]
                 .iter()
                 .map(|s| s.to_string()),
         ),

@@ -118,6 +118,13 @@ impl FrameFacts {
 pub fn match_surveys(config: &MatchConfig, progress: &dyn Progress) -> Result<MatchOutcome, Error> {
     config.validate()?;
     let (reference, target) = stage(progress, "reading surveys", None, |_| read_surveys(config))?;
+    config
+        .fit
+        .check_model(
+            target.raster.is_some(),
+            &format!("the target ({})", target.source.display()),
+        )
+        .map_err(ConfigError::from)?;
     let frame = frame::working_frame(
         &reference,
         config.reference.crs.as_deref(),
@@ -183,10 +190,14 @@ pub fn match_surveys(config: &MatchConfig, progress: &dyn Progress) -> Result<Ma
         )?,
         _ => None,
     };
-    // Refined on the pixels, the target's positions are the working frame's (one CRS).
+    // Refined on the pixels, the target's positions are the working frame's (one CRS), and
+    // every model is fitted again on the refined control points.
     let mut target = target;
     if pixels.as_ref().is_some_and(|p| p.not_applied.is_none()) {
         target.points = frame.target.clone();
+        if let Ok(solution) = fit.as_mut() {
+            solution.refresh_models(&frame.reference, &frame.target, config.fit.model);
+        }
     }
     let mut pixels = pixels;
     let accuracy = match fit.as_mut() {

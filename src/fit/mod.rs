@@ -12,6 +12,7 @@
 //! chance; the final closed-form least-squares fit ([`similarity`]) with standard errors.
 
 pub mod guided;
+pub mod models;
 pub mod prior;
 pub mod ransac;
 pub mod sample_count;
@@ -19,6 +20,7 @@ pub mod significance;
 pub mod similarity;
 
 pub use guided::Pair;
+pub use models::Model;
 pub use similarity::{Similarity, SimilarityFit};
 
 use crate::matching::Candidate;
@@ -44,6 +46,10 @@ pub struct FitParams {
     /// [`FitParams::validate`] ([`FitError::RetiredTolerance`]); never written.
     #[serde(skip_serializing, deserialize_with = "refuse_retired_tolerance")]
     pub tolerance_m: Option<f64>,
+    /// The transform model written ([`models`]): fitted on the similarity's control points,
+    /// compared with the others in every report, never chosen on its own. `tps` (a thin-plate
+    /// spline, for the warp) only for a raster target.
+    pub model: Model,
     /// RANSAC confidence of drawing one all-inlier sample.
     pub confidence: f64,
     /// Upper bound on RANSAC rounds.
@@ -73,6 +79,7 @@ impl Default for FitParams {
             search_radius_m: None,
             max_residual_m: None,
             tolerance_m: None,
+            model: Model::Similarity,
             confidence: 0.999,
             max_rounds: 300_000,
             seed: 20_261_201,
@@ -105,6 +112,12 @@ pub enum FitError {
         key: &'static str,
         /// The value given.
         value: f64,
+    },
+    /// `fit.model = tps` for a target that is not a raster image.
+    #[error("fit.model = tps (a thin-plate spline through every control point) is how a raster image is warped; {target} is not a raster image: choose fit.model = similarity, affine or polynomial2")]
+    TpsNeedsRaster {
+        /// The target ("the target (path)").
+        target: String,
     },
     /// The retired key `fit.tolerance_m` was given.
     #[error("{RETIRED_TOLERANCE} (got {0})")]
@@ -200,6 +213,16 @@ impl FitParams {
         Ok(())
     }
 
+    /// Refuses `fit.model = tps` unless the target (named `label`) is a raster image.
+    pub fn check_model(&self, target_is_raster: bool, label: &str) -> Result<(), FitError> {
+        if self.model == Model::Tps && !target_is_raster {
+            return Err(FitError::TpsNeedsRaster {
+                target: label.to_string(),
+            });
+        }
+        Ok(())
+    }
+
     /// The bounds on the transform around the target's `centre` (working units; `metres` per
     /// unit): the options given, else the defaults when the target is `georeferenced`; `None`
     /// when nothing bounds it (a local grid with no bound given).
@@ -263,8 +286,11 @@ pub struct FitInput<'a> {
 pub struct Solution {
     /// Final least-squares fit on all control points.
     pub fit: SimilarityFit,
-    /// Control points, residuals under `fit.transform` (working units).
+    /// Control points, residuals under the model written ([`models::Comparison::written`]:
+    /// the similarity `fit.transform` unless `fit.model` chose another), working units.
     pub pairs: Vec<Pair>,
+    /// Every model fitted on the control points, the tests between them and the one written.
+    pub models: models::Comparison,
     /// Largest residual a control point may have, working units
     /// ([`FitParams::max_residual_m`], or 99.9% of the residual spread).
     pub max_residual: f64,
@@ -332,6 +358,16 @@ pub enum RejectReason {
     },
     /// The control points are degenerate (all at one place): no similarity can be fitted.
     DegenerateControlPoints,
+    /// The model asked for (`fit.model`) could not be fitted on the control points: too few,
+    /// or placed so that they do not determine it.
+    ModelNotFitted {
+        /// The model.
+        model: Model,
+        /// Control points.
+        paired: usize,
+        /// The fewest it needs.
+        required: usize,
+    },
     /// The best transform lies outside the bounds the target's georeferencing sets.
     OutsidePrior {
         /// The transform found.
@@ -598,9 +634,11 @@ pub fn robust_fit(
             });
         }
     }
-    Ok(Solution {
+    let mut solution = Solution {
         fit,
         pairs: g.pairs,
+        // Filled in just below, from the control points.
+        models: models::compare(&[], &[], &fit.transform, params.model),
         max_residual,
         search_radius: radius,
         significance: sig,
@@ -611,7 +649,44 @@ pub fn robust_fit(
         chosen,
         runner_up,
         bounds: prior,
-    })
+    };
+    solution.refresh_models(input.reference, input.target, params.model);
+    if solution.models.fit(params.model).is_none() && params.model != Model::Tps {
+        return reject(RejectReason::ModelNotFitted {
+            model: params.model,
+            paired: solution.pairs.len(),
+            required: params.model.min_control_points(),
+        });
+    }
+    Ok(solution)
+}
+
+impl Solution {
+    /// Fits every model on the control points again (after they changed, e.g. refined on the
+    /// pixels) and sets their residuals to the written model's. `reference`, `target`: the
+    /// landmarks in the working frame.
+    pub fn refresh_models(&mut self, reference: &[[f64; 2]], target: &[[f64; 2]], chosen: Model) {
+        let from: Vec<[f64; 2]> = self
+            .pairs
+            .iter()
+            .map(|p| target[p.target as usize])
+            .collect();
+        let to: Vec<[f64; 2]> = self
+            .pairs
+            .iter()
+            .map(|p| reference[p.reference as usize])
+            .collect();
+        self.models = models::compare(&from, &to, &self.fit.transform, chosen);
+        let written = self.models.written();
+        for (p, r) in self.pairs.iter_mut().zip(&written.residuals) {
+            p.residual = r[0].hypot(r[1]);
+        }
+    }
+
+    /// Maps a target working point to the reference working frame by the model written.
+    pub fn map(&self, p: [f64; 2]) -> [f64; 2] {
+        self.models.written().apply(p)
+    }
 }
 
 /// The best of the `alternatives` (each refined again by guided matching) that is admitted by

@@ -361,7 +361,10 @@ fn local_grid_in_us_survey_feet_reports_its_scale_factor_apart_from_the_unit() {
         srs.linear_units()
     );
     assert_eq!(srs.linear_units_name().as_deref(), Some("US survey foot"));
-    assert_eq!(layer.feature_count(), doc["control_points"].as_u64().unwrap());
+    assert_eq!(
+        layer.feature_count(),
+        doc["control_points"].as_u64().unwrap()
+    );
 
     // Declared in international feet: 2 ppm higher.
     let (_, doc) = run("ft", "out-ft");

@@ -131,6 +131,9 @@ pub struct MatchArgs {
     /// The largest residual in metres a control point may have (default: 99.9% of the residual spread, at most the search radius).
     #[arg(long, allow_negative_numbers = true, value_name = "M")]
     max_residual: Option<f64>,
+    /// Transform model written: similarity, affine, polynomial2 (second order), or tps (thin-plate spline: the warp of a raster target only). Every model is fitted on the same control points and compared in the report, which says whether each richer one is warranted; none is chosen on its own.
+    #[arg(long, value_parser = choice::<tiemark::fit::Model>, default_value_t = FitParams::default().model)]
+    model: tiemark::fit::Model,
     /// Retired (it set both --search-radius and --max-residual): refused with a message naming them.
     #[arg(long, allow_negative_numbers = true, hide = true)]
     tolerance: Option<f64>,
@@ -299,6 +302,7 @@ impl MatchArgs {
                 search_radius_m: self.search_radius,
                 max_residual_m: self.max_residual,
                 tolerance_m: self.tolerance,
+                model: self.model,
                 confidence: self.confidence,
                 max_rounds: self.max_rounds,
                 seed: self.seed,
@@ -352,6 +356,7 @@ const FLAGS: &[(&str, &str)] = &[
     ("fit.search_radius_m", "--search-radius"),
     ("fit.max_residual_m", "--max-residual"),
     ("fit.tolerance_m", "--tolerance"),
+    ("fit.model", "--model"),
     ("fit.confidence", "--confidence"),
     ("fit.max_rounds", "--max-rounds"),
     ("keypoints.feature_size_m", "--feature-size"),
