@@ -208,3 +208,47 @@ fn the_image_against_unrelated_imagery_in_the_same_spot_finds_no_transform() {
     assert!(text.contains("No control points were written"), "{text}");
     assert!(!dir.path().join("out").exists(), "{text}");
 }
+
+#[test]
+fn the_warp_follows_the_model_asked_for() {
+    // --model polynomial2 warps with the GCPs' second-order polynomial, --model tps with the
+    // thin-plate spline; both write the co-registered image, and transform.json names the model
+    // and gives the polynomial's coefficients.
+    let dir = tempfile::tempdir().unwrap();
+    write_band(3, &dir.path().join("red.tif"), false, false);
+    write_band(2, &dir.path().join("green-moved.tif"), true, false);
+    for (model, coefficients) in [("polynomial2", 6), ("tps", 0)] {
+        let out = format!("out-{model}");
+        let (code, text) = tiemark(
+            dir.path(),
+            &[
+                "match",
+                "red.tif",
+                "green-moved.tif",
+                "--out",
+                &out,
+                "--warp",
+                "--model",
+                model,
+            ],
+        );
+        assert_eq!(code, Some(0), "{text}");
+        assert!(text.contains(&format!("written: {model}")), "{text}");
+        let t: serde_json::Value = serde_json::from_str(
+            &std::fs::read_to_string(dir.path().join(&out).join("transform.json")).unwrap(),
+        )
+        .unwrap();
+        assert_eq!(t["model"]["chosen"], model);
+        let fit = t["model"]["fits"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .find(|f| f["model"] == model);
+        assert_eq!(
+            fit.map_or(0, |f| f["x_coefficients"].as_array().unwrap().len()),
+            coefficients
+        );
+        let warped = Dataset::open(dir.path().join(&out).join("target-coregistered.tif")).unwrap();
+        assert!(warped.raster_size().0 > 100, "{model}");
+    }
+}
