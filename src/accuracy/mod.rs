@@ -3,7 +3,8 @@
 //!
 //! **In:** point pairs (for [`TransformStatement`]) or residual vectors in metres with where
 //! they came from (for [`Accuracy`]); the text of a checkpoints file ([`checkpoints`]); the
-//! `[accuracy]` options, the hold-out split and leave-one-out residuals ([`sources`]). **Out:** a [`TransformStatement`] (shift, rotation,
+//! `[accuracy]` options, the hold-out split and leave-one-out residuals ([`sources`]); the
+//! transform as a PROJ pipeline string and as EPSG method 9621 ([`proj`]). **Out:** a [`TransformStatement`] (shift, rotation,
 //! scale with standard errors and 95 % significance, see [`statement`]) and an [`Accuracy`]:
 //! RMSE_x, RMSE_y, RMSE_r with the count behind them, the NSSDA horizontal accuracy at 95 %
 //! with the rule used, the ASPRS Edition 2 RMSE_H, and warnings; an [`AccuracyReport`] for a
@@ -35,6 +36,7 @@
 //! to make them small. [`AccuracySource`] says which residuals a figure came from.
 
 pub mod checkpoints;
+pub mod proj;
 pub mod sources;
 pub mod statement;
 

@@ -169,6 +169,11 @@ pub struct AccuracyReport {
     /// The checkpoints or held-out control points behind `accuracy`, with their residuals
     /// (empty for leave-one-out, whose points are the control points).
     pub points: Vec<CheckResidual>,
+    /// The transform target CRS → reference CRS as a PROJ pipeline string
+    /// ([`super::proj::pipeline`]), or why there is none.
+    pub proj_pipeline: Result<String, String>,
+    /// For a local-grid target: the similarity (grid → working CRS) as EPSG method 9621.
+    pub epsg_9621: Option<super::proj::Epsg9621>,
 }
 
 #[cfg(test)]

@@ -27,6 +27,10 @@
 //! `checkpoints` with `file`), `independent`, `warnings`, the same figures of the fit's own
 //! residuals in `fit_residuals`, and `points` (id, `dx_m`, `dy_m` of each checkpoint or
 //! held-out control point; at most [`MAX_LISTED_POINTS`], `points_total` counts them all).
+//! `proj_pipeline`: the transform target CRS → reference CRS as a PROJ pipeline string
+//! ([`crate::accuracy::proj`]; null, with the reason in `proj_pipeline_applies`, when PROJ
+//! cannot state a conversion); for a local-grid target `epsg_9621`: the similarity (grid →
+//! working CRS) as EPSG method 9621 with its parameters' names, codes, values and units.
 
 use super::{io_err, EmitError};
 use crate::fit::Solution;
@@ -90,6 +94,37 @@ pub fn accuracy_members(result: &MatchOutcome) -> serde_json::Map<String, serde_
     doc["points"] = json!(a.points.iter().take(MAX_LISTED_POINTS).collect::<Vec<_>>());
     doc["points_total"] = json!(a.points.len());
     m.insert("accuracy".into(), doc);
+    match &a.proj_pipeline {
+        Ok(p) => {
+            m.insert("proj_pipeline".into(), json!(p));
+            m.insert(
+                "proj_pipeline_applies".into(),
+                json!("to the target's coordinates in its own CRS (x = easting or longitude in degrees, y = northing or latitude), giving the reference CRS's in the same order: e.g. cct -z 0 -t 0 PIPELINE, or ogr2ogr -ct PIPELINE; the similarity acts in the working CRS"),
+            );
+        }
+        Err(why) => {
+            m.insert("proj_pipeline".into(), serde_json::Value::Null);
+            m.insert("proj_pipeline_applies".into(), json!(why));
+        }
+    }
+    if let Some(e) = &a.epsg_9621 {
+        let mpu = result.frame.metres_per_unit();
+        let unit = if mpu == 1.0 {
+            "metre".to_string()
+        } else {
+            format!("{mpu} metres")
+        };
+        m.insert(
+            "epsg_9621".into(),
+            json!({
+                "method": "Similarity transformation (EPSG method 9621; IOGP Guidance Note 7-2)",
+                "source_crs": "the target's local grid",
+                "target_crs": result.frame.crs.label(),
+                "formula": "XT = XT0 + XS*M*cos(theta) + YS*M*sin(theta); YT = YT0 - XS*M*sin(theta) + YS*M*cos(theta); theta counter-clockwise positive (rotation of the source axes)",
+                "parameters": e.parameters(&unit),
+            }),
+        );
+    }
     m
 }
 

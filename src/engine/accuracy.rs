@@ -251,11 +251,60 @@ pub fn state(
     let Some(accuracy) = Accuracy::from_residuals(&vectors, source) else {
         return Ok(None);
     };
+    let sample_target = sets[1].points[pairs[0].target as usize];
+    let proj_pipeline = (|| {
+        let into = match &frame.target_crs {
+            Some(c) => definition(c, &frame.crs, sample_target)?,
+            None => None,
+        };
+        let out = definition(&frame.crs, &frame.reference_crs, centroid_working)?;
+        crate::accuracy::proj::pipeline(into.as_deref(), &t, out.as_deref())
+    })();
+    let epsg_9621 = frame
+        .target_crs
+        .is_none()
+        .then(|| crate::accuracy::proj::Epsg9621::of(&t));
     Ok(Some(AccuracyReport {
         statement,
         centroid_reference,
         accuracy,
         fit,
         points,
+        proj_pipeline,
+        epsg_9621,
     }))
+}
+
+/// PROJ's definition of the conversion `from` → `to` (axis order normalised to east/north,
+/// longitude/latitude), as chosen for the point `at` (in `from`); `None` when they are one
+/// CRS. When PROJ has several candidate operations it names the one chosen only after a
+/// point is converted, hence `at`.
+fn definition(from: &Crs, to: &Crs, at: [f64; 2]) -> Result<Option<String>, String> {
+    if from.wkt == to.wkt {
+        return Ok(None);
+    }
+    let p =
+        proj::Proj::new_known_crs(&from.proj_string(), &to.proj_string(), None).map_err(|e| {
+            format!(
+                "PROJ cannot convert {} to {}: {e}",
+                from.label(),
+                to.label()
+            )
+        })?;
+    p.convert((at[0], at[1])).map_err(|e| {
+        format!(
+            "PROJ cannot convert {} to {}: {e}",
+            from.label(),
+            to.label()
+        )
+    })?;
+    let d = p.def().map_err(|e| e.to_string())?;
+    if d.contains("unavailable") || d.trim().is_empty() {
+        return Err(format!(
+            "PROJ did not state its conversion from {} to {} as a definition",
+            from.label(),
+            to.label()
+        ));
+    }
+    Ok(Some(d))
 }
