@@ -2,7 +2,9 @@
 //!
 //! **In:** a [`MatchConfig`] and a [`Progress`] receiver.
 //! **Out:** a [`MatchOutcome`]: both surveys as read, the working frame, what the search
-//! produced, and the accepted transform with its control points or why none was accepted.
+//! produced, and the accepted transform with its control points and its accuracy statement
+//! (module `accuracy`: checkpoints read before the search, the hold-out split, leave-one-out
+//! residuals) or why none was accepted.
 //! Errors are [`Error`]s that name the file and the option, and say what to do.
 //!
 //! [`match_surveys`] reads files; [`solve_points`] runs signatures, matching and the robust
