@@ -48,6 +48,58 @@ pub struct MatchOutcome {
     /// centroid and the accuracy figure with its source (`None` when no transform was
     /// accepted).
     pub accuracy: Option<AccuracyReport>,
+    /// For two raster surveys: whether the area-based seed ran, and what it found
+    /// (`crate::engine`'s area seed; when it ran and succeeded, `reference`, `target`,
+    /// `frame` and `fit` are its grid control points).
+    pub area_seed: Option<AreaSeed>,
+}
+
+/// One seed the area-based search tried: a coarse correlation peak and what the grid of
+/// patches made of it.
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
+pub struct SeedTried {
+    /// Rotation of the seed, degrees counter-clockwise.
+    pub rotation_deg: f64,
+    /// Scale error of the seed, ppm.
+    pub scale_ppm: f64,
+    /// Shift of the seed at the target's centre, east and north, metres.
+    pub shift_m: [f64; 2],
+    /// The coarse orientation correlation at the peak (mean cosine over the target).
+    pub score: f64,
+    /// Grid points inside the target's footprint under the seed.
+    pub grid_points: usize,
+    /// Of those, refined with a clear correlation peak.
+    pub refined: usize,
+    /// Of those, consistent with the fit on them (the support).
+    pub support: usize,
+}
+
+/// When the area-based seed of a raster match runs, in the words the report and
+/// `transform.json` use.
+pub const AREA_SEED_RULE: &str = "runs when both surveys are rasters on the working CRS and the keypoint match found no accepted transform";
+
+/// What the area-based seed of a raster match did.
+#[derive(Debug, Clone)]
+pub struct AreaSeed {
+    /// Whether the search ran.
+    pub ran: bool,
+    /// Why it ran or did not, in words (with the rule).
+    pub why: String,
+    /// The keypoint match's rejection that made it run.
+    pub keypoints: Option<Rejection>,
+    /// Ground sample of the coarse search, metres (NaN when it did not run).
+    pub coarse_m: f64,
+    /// The coarse measure (`crate::refine::Measure` name).
+    pub measure: String,
+    /// Similarities (rotation × scale steps) the coarse search compared at every shift.
+    pub hypotheses: usize,
+    /// How far the best coarse peak stands above the surface: (peak − mean) / standard
+    /// deviation over every similarity and shift.
+    pub z: f64,
+    /// The seeds tried, best coarse peak first.
+    pub seeds: Vec<SeedTried>,
+    /// Which of `seeds` was chosen (the largest support).
+    pub chosen: Option<usize>,
 }
 
 /// What the refinement on the pixels did to one control point it kept.

@@ -189,6 +189,13 @@ pub fn accepted(r: &MatchOutcome, s: &Solution) -> String {
             max
         );
     }
+    if r.area_seed.as_ref().is_some_and(|a| a.ran) {
+        let _ = writeln!(
+            o,
+            "max residual     {:.3} m (one sample of the refinement's reference grid, for the area-based seed's control points)",
+            s.max_residual * mpu
+        );
+    } else {
     let given = |g: bool, default: &str| if g { "as given" } else { default }.to_string();
     let _ = writeln!(
         o,
@@ -205,8 +212,12 @@ pub fn accepted(r: &MatchOutcome, s: &Solution) -> String {
             "99.9% of the residual spread"
         )
     );
+    }
     if let Some(px) = &r.pixels {
         let _ = writeln!(o, "{}", pixels_line(px));
+    }
+    if let Some(a) = &r.area_seed {
+        let _ = writeln!(o, "{}", area_seed_line(a));
     }
     let _ = writeln!(o);
     match &r.accuracy {
@@ -594,6 +605,9 @@ pub fn rejection(r: &MatchOutcome, rejection: &Rejection) -> String {
     let _ = writeln!(o, "working    {}", frame.crs.label());
     let _ = writeln!(o);
     let _ = writeln!(o, "why: {}", reason(&rejection.reason));
+    if let Some(a) = &r.area_seed {
+        let _ = writeln!(o, "{}", area_seed_line(a));
+    }
     if let Some(line) = bounds_hint(rejection) {
         let _ = writeln!(o, "{line}");
     }
@@ -617,6 +631,52 @@ pub fn bounds_hint(rejection: &Rejection) -> Option<String> {
             "bounds: {outside} of the {made} transforms the neighbourhoods proposed lay outside the bounds of the target's georeferencing (fit.max_shift_m, fit.max_rotation_deg, fit.max_scale_ppm); if the target's georeferencing may be worse than that, widen them"
         )
     })
+}
+
+/// Whether the area-based seed of a raster match ran and what it found, in one line, e.g.
+/// `area seed        ran: the keypoint match found no accepted transform (…); coarse search
+/// at 1.00 m, 285 rotations × scales (orientation correlation), best peak 9.8 σ; seeds
+/// (rotation°, ppm, shift m: support/refined/grid points): …; chosen 1`.
+pub fn area_seed_line(a: &crate::outcome::AreaSeed) -> String {
+    let mut line = format!("area seed        {}", a.why);
+    if let Some(k) = &a.keypoints {
+        if a.ran {
+            line.push_str(&format!(" (keypoints: {})", reason(&k.reason)));
+        }
+    }
+    if a.ran {
+        line.push_str(&format!(
+            "; coarse search at {:.2} m, {} rotations × scales ({} correlation), best peak {:.1} σ above the surface",
+            a.coarse_m, a.hypotheses, a.measure, a.z
+        ));
+        if !a.seeds.is_empty() {
+            let seeds: Vec<String> = a
+                .seeds
+                .iter()
+                .map(|s| {
+                    format!(
+                        "{:.3}°, {:.0} ppm, ({:.2}, {:.2}) m: {}/{}/{}",
+                        s.rotation_deg,
+                        s.scale_ppm,
+                        s.shift_m[0],
+                        s.shift_m[1],
+                        s.support,
+                        s.refined,
+                        s.grid_points
+                    )
+                })
+                .collect();
+            line.push_str(&format!(
+                "; seeds (rotation, scale, shift: support/refined/grid points): {}",
+                seeds.join("; ")
+            ));
+        }
+        if let Some(c) = a.chosen {
+            line.push_str(&format!("; chosen seed {}", c + 1));
+        }
+    }
+    line.push_str(&format!(" (the seed {})", crate::outcome::AREA_SEED_RULE));
+    line
 }
 
 /// What the refinement on the pixels did, e.g. `refined          240 of 251 control points on

@@ -193,6 +193,63 @@ fn two_bands_with_a_known_georeferencing_error_are_coregistered_within_a_third_o
     }
 }
 
+/// The worst distance, in pixels of the scene, between where transform.json in `out` and
+/// where the truth put the target image's corners.
+fn corner_error(out: &Path, gt: &[f64; 6]) -> (f64, serde_json::Value) {
+    let t: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(out.join("transform.json")).unwrap())
+            .unwrap();
+    let f = |k: &str| t[k].as_f64().unwrap_or_else(|| panic!("{k} in {t}"));
+    let (s, th, tx, ty) = (
+        f("scale"),
+        f("rotation_deg").to_radians(),
+        f("translation_x"),
+        f("translation_y"),
+    );
+    let (w, h) = (349.0, 352.0);
+    let centre = [gt[0] + gt[1] * w / 2.0, gt[3] + gt[5] * h / 2.0];
+    let mut worst: f64 = 0.0;
+    for (p, l) in [(0.0, 0.0), (w, 0.0), (0.0, h), (w, h)] {
+        let truth = [gt[0] + gt[1] * p, gt[3] + gt[5] * l];
+        let claimed = error(centre, truth);
+        let fitted = [
+            s * (th.cos() * claimed[0] - th.sin() * claimed[1]) + tx,
+            s * (th.sin() * claimed[0] + th.cos() * claimed[1]) + ty,
+        ];
+        worst = worst.max((fitted[0] - truth[0]).hypot(fitted[1] - truth[1]) / gt[1]);
+    }
+    (worst, t)
+}
+
+#[test]
+fn red_against_near_infrared_with_a_known_error_is_coregistered_within_a_third_of_a_pixel() {
+    // Band 3 (red) as the reference, band 4 (near infrared) with the 1.5° / 500 ppm / 47 m
+    // error as the target: vegetation is dark in the red and bright in the near infrared, so
+    // the contrast reverses over much of the scene and few keypoints recur; the area-based
+    // seed must find the transform and the refinement make it sub-pixel.
+    let dir = tempfile::tempdir().unwrap();
+    let gt = write_band(3, &dir.path().join("red.tif"), false, false);
+    write_band(4, &dir.path().join("nir-moved.tif"), true, false);
+    let (code, text) = tiemark(
+        dir.path(),
+        &["match", "red.tif", "nir-moved.tif", "--out", "out"],
+    );
+    assert_eq!(code, Some(0), "{text}");
+    let (worst, t) = corner_error(&dir.path().join("out"), &gt);
+    eprintln!("{text}\nworst corner error {worst:.4} px");
+    assert!(worst <= 0.3, "corner error {worst:.3} px\n{text}");
+    // transform.json says whether the area-based seed ran and by which rule.
+    let a = &t["area_seed"];
+    assert!(
+        a["rule"].as_str().unwrap().contains("keypoint match"),
+        "{a}"
+    );
+    if a["ran"].as_bool().unwrap() {
+        assert!(a["seeds"].as_array().is_some_and(|s| !s.is_empty()), "{a}");
+        assert!(text.contains("area seed        ran because"), "{text}");
+    }
+}
+
 #[test]
 fn the_image_against_unrelated_imagery_in_the_same_spot_finds_no_transform() {
     // The scene mirrored left to right: the same kind of imagery, the same place, no
@@ -203,6 +260,23 @@ fn the_image_against_unrelated_imagery_in_the_same_spot_finds_no_transform() {
     let (code, text) = tiemark(
         dir.path(),
         &["match", "red.tif", "mirrored.tif", "--out", "out"],
+    );
+    assert_eq!(code, Some(1), "{text}");
+    assert!(text.contains("No control points were written"), "{text}");
+    assert!(!dir.path().join("out").exists(), "{text}");
+    // The keypoints find nothing, so the area-based seed runs, and finds nothing either.
+    assert!(text.contains("area seed        ran because"), "{text}");
+}
+
+#[test]
+fn the_near_infrared_against_the_mirrored_red_finds_no_transform() {
+    // Another band and a mirror image: nothing to find, by keypoints or by area.
+    let dir = tempfile::tempdir().unwrap();
+    write_band(3, &dir.path().join("red-mirrored.tif"), false, true);
+    write_band(4, &dir.path().join("nir-moved.tif"), true, false);
+    let (code, text) = tiemark(
+        dir.path(),
+        &["match", "red-mirrored.tif", "nir-moved.tif", "--out", "out"],
     );
     assert_eq!(code, Some(1), "{text}");
     assert!(text.contains("No control points were written"), "{text}");

@@ -358,3 +358,60 @@ fn changed_objects_differ_between_the_images() {
         assert!(d[0] < 1.4 * d[1], "2026 at a felled tree: {d:?}");
     }
 }
+
+#[test]
+fn the_drone_mosaic_matches_the_orthophoto_within_a_third_of_a_mosaic_pixel_at_its_corners() {
+    // The pipeline's run (its bounds: 20 m, 3°), through the binary. The keypoints do not
+    // recur between the epochs (season and sun), so the area-based seed runs; the transform
+    // must put every corner of the mosaic within 0.3 of its 10 cm pixels of where the truth
+    // file's transform puts it (the bar issue 8 sets).
+    let t = truth();
+    let dir = tempfile::tempdir().unwrap();
+    let out = dir.path().join("out");
+    let run = std::process::Command::new(env!("CARGO_BIN_EXE_tiemark"))
+        .args([
+            "match",
+            sample_data().join(scene::ORTHO_FILE).to_str().unwrap(),
+            sample_data().join(scene::DRONE_FILE).to_str().unwrap(),
+            "--out",
+            out.to_str().unwrap(),
+            "--max-shift",
+            "20",
+            "--max-rotation",
+            "3",
+        ])
+        .output()
+        .unwrap();
+    let text = format!(
+        "{}{}",
+        String::from_utf8_lossy(&run.stdout),
+        String::from_utf8_lossy(&run.stderr)
+    );
+    assert_eq!(run.status.code(), Some(0), "{text}");
+    let got: Value =
+        serde_json::from_str(&std::fs::read_to_string(out.join("transform.json")).unwrap())
+            .unwrap();
+    let a = &got["area_seed"];
+    assert_eq!(a["ran"], Value::Bool(true), "{a}");
+    assert!(text.contains("area seed        ran because"), "{text}");
+    let gt: Vec<f64> = t["target"]["geotransform"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(f)
+        .collect();
+    let gt: [f64; 6] = gt.try_into().unwrap();
+    let (w, h) = (
+        t["target"]["width"].as_u64().unwrap() as f64,
+        t["target"]["height"].as_u64().unwrap() as f64,
+    );
+    let mut worst: f64 = 0.0;
+    for corner in [[0.0, 0.0], [w, 0.0], [0.0, h], [w, h]] {
+        let p = apply_gt(&gt, corner);
+        let (a, b) = (similarity(&got, p), similarity(&t["expected_transform"], p));
+        worst = worst.max((a[0] - b[0]).hypot(a[1] - b[1]) / 0.1);
+    }
+    eprintln!("{text}\nworst corner error {worst:.4} mosaic px");
+    assert!(worst <= 0.3, "corner error {worst:.3} px\n{text}");
+    assert!(got["inliers"].as_u64().unwrap() >= 50, "{got}");
+}

@@ -223,6 +223,17 @@ pub fn transform_document(result: &MatchOutcome, s: &Solution) -> serde_json::Va
         })),
         "ransac": {"rounds": s.ransac_rounds, "consensus": s.ransac_consensus, "sample": s.ransac_sample},
         "guided_rounds": s.guided_rounds,
+        "area_seed": result.area_seed.as_ref().map(|a| json!({
+            "ran": a.ran,
+            "why": a.why,
+            "rule": crate::outcome::AREA_SEED_RULE,
+            "coarse_m": if a.coarse_m.is_finite() { json!(a.coarse_m) } else { json!(null) },
+            "measure": a.measure,
+            "hypotheses": a.hypotheses,
+            "peak_z": if a.z.is_finite() { json!(a.z) } else { json!(null) },
+            "seeds": a.seeds,
+            "chosen": a.chosen,
+        })),
         "seed": cfg.fit.seed,
         "caution": crate::report::CAUTION,
     });

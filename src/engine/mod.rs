@@ -12,6 +12,7 @@
 //! measure what ships). Writing is the front ends' business ([`crate::emit`]).
 
 mod accuracy;
+mod area_seed;
 mod pixels;
 
 use crate::config::{ConfigError, MatchConfig};
@@ -174,6 +175,48 @@ pub fn match_surveys(config: &MatchConfig, progress: &dyn Progress) -> Result<Ma
     )?;
     let mut frame = frame;
     let mut fit = fit;
+    let (mut reference, mut target) = (reference, target);
+    // Two rasters: the area-based seed when the keypoints found no transform.
+    let both_rasters = reference.raster.is_some() && target.raster.is_some();
+    let area_seed = match fit.as_ref().err().cloned() {
+        None if both_rasters => Some(crate::outcome::AreaSeed {
+            ran: false,
+            why: "not run: the keypoints matched, so the seed is not needed".into(),
+            keypoints: None,
+            coarse_m: f64::NAN,
+            measure: String::new(),
+            hypotheses: 0,
+            z: f64::NAN,
+            seeds: Vec::new(),
+            chosen: None,
+        }),
+        Some(rejection) if both_rasters => {
+            let same_crs = |s: &LandmarkSet| s.crs_wkt.as_deref() == Some(frame.crs.wkt.as_str());
+            let same = same_crs(&reference) && same_crs(&target);
+            let area = stage(progress, "area-based seed", None, |_| {
+                area_seed::area_match(
+                    config,
+                    [&reference, &target],
+                    same,
+                    frame.metres_per_unit(),
+                    &rejection,
+                )
+            })?;
+            match area.fit {
+                Some(Ok((solution, r, t))) => {
+                    frame.reference = r.points.clone();
+                    frame.target = t.points.clone();
+                    reference = r;
+                    target = t;
+                    fit = Ok(solution);
+                }
+                Some(Err(why)) => fit = Err(why),
+                None => {}
+            }
+            Some(area.summary)
+        }
+        _ => None,
+    };
     let pixels = match fit.as_mut() {
         Ok(solution) if reference.raster.is_some() && target.raster.is_some() => stage(
             progress,
@@ -227,6 +270,7 @@ pub fn match_surveys(config: &MatchConfig, progress: &dyn Progress) -> Result<Ma
         fit,
         pixels,
         accuracy,
+        area_seed,
     })
 }
 

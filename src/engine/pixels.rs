@@ -19,7 +19,8 @@ use crate::fit::guided::Pair;
 use crate::fit::similarity::fit_similarity;
 use crate::fit::Solution;
 use crate::frame::WorkingFrame;
-use crate::ingest::{self, IngestError, LandmarkSet, SurveyInput};
+use crate::image::Image;
+use crate::ingest::{self, IngestError, LandmarkSet, RasterLandmarks, RasterSource, SurveyInput};
 use crate::outcome::{PixelRefinement, PointRefinement};
 use crate::refine::{self, RefineParams};
 
@@ -59,15 +60,7 @@ pub(super) fn refine_on_pixels(
     }
     let reference = ingest::open_raster(inputs[0])?;
     let target = ingest::open_raster(inputs[1])?;
-    let ref_pixels = rr.width * rr.height;
-    let dr = ((ref_pixels as f64 / MAX_REFERENCE_PIXELS as f64)
-        .sqrt()
-        .ceil() as usize)
-        .max(1);
-    let ref_pixel_m = rr.pixel_m * dr as f64;
-    let dt = ((ref_pixel_m / tr.pixel_m).round() as usize).clamp(1, tr.width.min(tr.height).max(1));
-    let ref_image = reference.read(dr)?;
-    let tgt_image = target.read(dt)?;
+    let (ref_image, tgt_image) = read_for_refinement(&reference, &target, rr, tr)?;
     let points: Vec<[f64; 2]> = solution
         .pairs
         .iter()
@@ -147,6 +140,25 @@ pub(super) fn refine_on_pixels(
     solution.fit = fit;
     solution.pairs = pairs;
     Ok(Some(summary))
+}
+
+/// Both images as the refinement reads them (module doc): the reference whole at its own
+/// resolution (decimated only when over [`MAX_REFERENCE_PIXELS`]), the target decimated to
+/// about the reference's pixel size.
+pub(super) fn read_for_refinement(
+    reference: &RasterSource,
+    target: &RasterSource,
+    rr: &RasterLandmarks,
+    tr: &RasterLandmarks,
+) -> Result<(Image, Image), IngestError> {
+    let ref_pixels = rr.width * rr.height;
+    let dr = ((ref_pixels as f64 / MAX_REFERENCE_PIXELS as f64)
+        .sqrt()
+        .ceil() as usize)
+        .max(1);
+    let ref_pixel_m = rr.pixel_m * dr as f64;
+    let dt = ((ref_pixel_m / tr.pixel_m).round() as usize).clamp(1, tr.width.min(tr.height).max(1));
+    Ok((reference.read(dr)?, target.read(dt)?))
 }
 
 /// A short cause for a control point the refinement did not keep.
