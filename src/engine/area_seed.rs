@@ -9,8 +9,8 @@
 //! on new landmark sets — the grid points of the reference and where the correlation puts
 //! them in the target — or a [`Rejection`] saying why none was accepted.
 //!
-//! **When it runs** ([`RULE`]): both surveys are rasters on the working CRS and the keypoint
-//! match was rejected. When the keypoints match, the seed is not needed and does not run (the
+//! **When it runs** ([`crate::outcome::AREA_SEED_RULE`]): both surveys are rasters on the
+//! working CRS and the keypoint match was rejected. When the keypoints match, the seed is not needed and does not run (the
 //! report and `transform.json` say so).
 //!
 //! **Coarse search.** Both images are read through GDAL's overviews or averaged strips
@@ -67,8 +67,6 @@ use rustfft::num_complex::Complex64;
 use rustfft::{Fft, FftPlanner};
 use std::sync::Arc;
 
-/// When the area-based seed runs (the words of the report and `transform.json`).
-pub use crate::outcome::AREA_SEED_RULE as RULE;
 /// The coarse search's grid spans about this many samples across the target's footprint.
 pub const COARSE_SIDE: f64 = 320.0;
 /// Distinct coarse peaks tried as seeds.
@@ -95,6 +93,15 @@ pub(super) struct AreaMatch {
 struct Peak {
     transform: Similarity,
     score: f64,
+}
+
+/// One similarity's correlation surface: its best peaks inside the bounds (score, transform)
+/// and the sums of its values, for the surface's spread.
+struct Scan {
+    peaks: Vec<(f64, Similarity)>,
+    sum: f64,
+    sum2: f64,
+    count: usize,
 }
 
 /// What the coarse search found.
@@ -319,7 +326,7 @@ fn coarse_search(rimg: &Image, timg: &Image, prior: &Prior, axial: bool) -> Resu
         let q = rimg.geotransform.0;
         [q[1] * d[0] + q[2] * d[1], q[4] * d[0] + q[5] * d[1]]
     };
-    let results: Vec<(Vec<(f64, Similarity)>, f64, f64, usize)> = grid
+    let results: Vec<Scan> = grid
         .par_iter()
         .map(|&(rot, sc)| {
             let s = about(centre, sc, rot);
@@ -425,16 +432,21 @@ fn coarse_search(rimg: &Image, timg: &Image, prior: &Prior, axial: bool) -> Resu
             }
             peaks.sort_by(|a, b| b.0.total_cmp(&a.0));
             peaks.truncate(SEEDS * 2);
-            (peaks, sum, sum2, count)
+            Scan {
+                peaks,
+                sum,
+                sum2,
+                count,
+            }
         })
         .collect();
     let (mut sum, mut sum2, mut count) = (0.0, 0.0, 0usize);
     let mut all: Vec<(f64, Similarity)> = Vec::new();
-    for (p, s, s2, c) in results {
-        all.extend(p);
-        sum += s;
-        sum2 += s2;
-        count += c;
+    for r in results {
+        all.extend(r.peaks);
+        sum += r.sum;
+        sum2 += r.sum2;
+        count += r.count;
     }
     all.sort_by(|a, b| b.0.total_cmp(&a.0));
     let mut peaks: Vec<Peak> = Vec::new();
@@ -546,8 +558,8 @@ struct SeedFit {
     refits: usize,
 }
 
-/// Runs the area-based seed (module doc). `keypoints`: the keypoint match's rejection.
-/// `Ok(None)` never; errors are reading errors.
+/// Runs the area-based seed (module doc). `keypoints`: the keypoint match's rejection;
+/// `same_crs`: both images are on the working CRS. Errors are reading errors.
 pub(super) fn area_match(
     config: &MatchConfig,
     sets: [&LandmarkSet; 2],
