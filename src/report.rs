@@ -196,22 +196,22 @@ pub fn accepted(r: &MatchOutcome, s: &Solution) -> String {
             s.max_residual * mpu
         );
     } else {
-    let given = |g: bool, default: &str| if g { "as given" } else { default }.to_string();
-    let _ = writeln!(
+        let given = |g: bool, default: &str| if g { "as given" } else { default }.to_string();
+        let _ = writeln!(
         o,
         "search radius    {:.3} m ({}): how far a mapped landmark may lie from its partner while searching",
         s.search_radius * mpu,
         given(r.config.fit.search_radius_m.is_some(), "a quarter of the reference's median spacing")
     );
-    let _ = writeln!(
-        o,
-        "max residual     {:.3} m ({}): the largest residual a control point may have",
-        s.max_residual * mpu,
-        given(
-            r.config.fit.max_residual_m.is_some(),
-            "99.9% of the residual spread"
-        )
-    );
+        let _ = writeln!(
+            o,
+            "max residual     {:.3} m ({}): the largest residual a control point may have",
+            s.max_residual * mpu,
+            given(
+                r.config.fit.max_residual_m.is_some(),
+                "99.9% of the residual spread"
+            )
+        );
     }
     if let Some(px) = &r.pixels {
         let _ = writeln!(o, "{}", pixels_line(px));

@@ -326,3 +326,66 @@ fn the_warp_follows_the_model_asked_for() {
         assert!(warped.raster_size().0 > 100, "{model}");
     }
 }
+
+/// Writes a 400 × 400 px one-band GeoTIFF of 2 m pixels showing a square lattice of equal
+/// blobs, 14 m apart, its top-left corner at `origin` (UTM 25S, as the Landsat scene).
+fn write_lattice(path: &Path, origin: [f64; 2]) {
+    let (w, h) = (400usize, 400usize);
+    let gt = [origin[0], 2.0, 0.0, origin[1], 0.0, -2.0];
+    let mut data = Vec::with_capacity(w * h);
+    for l in 0..h {
+        for p in 0..w {
+            // Ground position of the pixel centre; the lattice is fixed on the ground.
+            let (x, y) = (
+                gt[0] + 2.0 * (p as f64 + 0.5),
+                gt[3] - 2.0 * (l as f64 + 0.5),
+            );
+            let (u, v) = (x.rem_euclid(14.0) - 7.0, y.rem_euclid(14.0) - 7.0);
+            data.push((40.0 + 180.0 * (-(u * u + v * v) / 8.0).exp()) as u8);
+        }
+    }
+    let src = Dataset::open(landsat()).unwrap();
+    let driver = DriverManager::get_driver_by_name("GTiff").unwrap();
+    let mut out = driver
+        .create_with_band_type::<u8, _>(path, w, h, 1)
+        .unwrap();
+    out.set_projection(&src.projection()).unwrap();
+    out.set_geo_transform(&gt).unwrap();
+    let mut buf = Buffer::new((w, h), data);
+    out.rasterband(1)
+        .unwrap()
+        .write((0, 0), (w, h), &mut buf)
+        .unwrap();
+}
+
+#[test]
+fn a_periodic_lattice_is_not_matched_confidently() {
+    // Two images of one lattice of equal blobs, the target's georeferencing 30 m off: every
+    // shift by the lattice's period fits as well, so no transform may be accepted (exit 1),
+    // whatever the keypoints or the area-based seed find.
+    let dir = tempfile::tempdir().unwrap();
+    let src = Dataset::open(landsat()).unwrap();
+    let gt = src.geo_transform().unwrap();
+    write_lattice(&dir.path().join("a.tif"), [gt[0], gt[3]]);
+    write_lattice(&dir.path().join("b.tif"), [gt[0] + 100.0, gt[3] - 130.0]);
+    // The second image claims its pixels are 30 m east of where they are.
+    let b = Dataset::open(dir.path().join("b.tif")).unwrap();
+    let mut bgt = b.geo_transform().unwrap();
+    drop(b);
+    bgt[0] += 30.0;
+    let mut b = Dataset::open_ex(
+        dir.path().join("b.tif"),
+        gdal::DatasetOptions {
+            open_flags: gdal::GdalOpenFlags::GDAL_OF_UPDATE,
+            ..Default::default()
+        },
+    )
+    .unwrap();
+    b.set_geo_transform(&bgt).unwrap();
+    drop(b);
+    let (code, text) = tiemark(dir.path(), &["match", "a.tif", "b.tif", "--out", "out"]);
+    assert_eq!(code, Some(1), "{text}");
+    assert!(text.contains("No control points were written"), "{text}");
+    assert!(!dir.path().join("out").exists(), "{text}");
+    eprintln!("{text}");
+}

@@ -10,8 +10,8 @@
 //! them in the target — or a [`Rejection`] saying why none was accepted.
 //!
 //! **When it runs** ([`crate::outcome::AREA_SEED_RULE`]): both surveys are rasters on the
-//! working CRS and the keypoint match was rejected. When the keypoints match, the seed is not needed and does not run (the
-//! report and `transform.json` say so).
+//! working CRS and the keypoint match was rejected. When the keypoints match, the seed is not
+//! needed and does not run (the report and `transform.json` say so).
 //!
 //! **Coarse search.** Both images are read through GDAL's overviews or averaged strips
 //! ([`crate::ingest::RasterSource::read`]) at a common ground sample of about 1/[`COARSE_SIDE`]
