@@ -16,6 +16,10 @@
 //! | 5a | [`accuracy`] (pure) | point pairs, residual vectors (m) | [`accuracy::TransformStatement`] at the centroid; [`accuracy::Accuracy`]: RMSE, NSSDA 95 %, ASPRS RMSE_H |
 //! | 6 | [`emit`], [`report`] | an [`outcome::MatchOutcome`] | control-point files, transform, report |
 //!
+//! [`epochs`] builds a library of persistent control points from N surveys of one site: it
+//! runs the engine's matches on pairs of epochs, links landmarks into tracks and adjusts one
+//! similarity per epoch to a base epoch jointly.
+//!
 //! [`engine`] runs stages 1-5 in order and returns a [`outcome::MatchOutcome`]; it writes
 //! nothing ([`engine::match_surveys`]; [`engine::solve_points`] for points already in a working
 //! frame); before stage 3 it asks [`resources`] whether the run fits the machine's memory.
@@ -36,6 +40,7 @@ pub mod accuracy;
 pub mod config;
 pub mod emit;
 pub mod engine;
+pub mod epochs;
 #[cfg(feature = "experiments")]
 pub mod experiment;
 pub mod fit;

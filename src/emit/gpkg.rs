@@ -36,7 +36,7 @@ use gdal::vector::{
 use gdal::{Dataset, DriverManager};
 use std::path::Path;
 
-fn gdal_err(path: &Path) -> impl Fn(gdal::errors::GdalError) -> EmitError + '_ {
+pub(super) fn gdal_err(path: &Path) -> impl Fn(gdal::errors::GdalError) -> EmitError + '_ {
     move |source| {
         let detail = source.to_string();
         if super::atomic::disk_full_text(&detail) {
@@ -60,7 +60,7 @@ const FIXED_DATE: &str = "2000-01-01T00:00:00.000Z";
 
 /// Creates a GeoPackage with [`FIXED_DATE`] as its timestamps (the option is set for this
 /// thread while GDAL writes and cleared by `DateFixed`'s drop).
-fn create_gpkg(path: &Path) -> Result<(Dataset, DateFixed), EmitError> {
+pub(super) fn create_gpkg(path: &Path) -> Result<(Dataset, DateFixed), EmitError> {
     let e = gdal_err(path);
     gdal::config::set_thread_local_config_option("OGR_CURRENT_DATE", FIXED_DATE).map_err(&e)?;
     let fixed = DateFixed;
@@ -70,7 +70,7 @@ fn create_gpkg(path: &Path) -> Result<(Dataset, DateFixed), EmitError> {
 }
 
 /// Clears the thread's `OGR_CURRENT_DATE` on drop (after the dataset is closed).
-struct DateFixed;
+pub(super) struct DateFixed;
 
 impl Drop for DateFixed {
     fn drop(&mut self) {
@@ -81,7 +81,7 @@ impl Drop for DateFixed {
 /// Closes `ds` and returns a failure GDAL raised while closing but did not return: GDAL 3.6's
 /// GeoPackage driver builds the spatial index at close, and on a full disk only prints the
 /// error and leaves the file without it.
-fn close_checked(ds: Dataset, path: &Path) -> Result<(), EmitError> {
+pub(super) fn close_checked(ds: Dataset, path: &Path) -> Result<(), EmitError> {
     crate::ingest::clear_gdal_error();
     ds.close().map_err(gdal_err(path))?;
     match crate::ingest::take_gdal_failure() {
@@ -90,13 +90,13 @@ fn close_checked(ds: Dataset, path: &Path) -> Result<(), EmitError> {
     }
 }
 
-fn srs_from_wkt(wkt: &str, path: &Path) -> Result<SpatialRef, EmitError> {
+pub(super) fn srs_from_wkt(wkt: &str, path: &Path) -> Result<SpatialRef, EmitError> {
     let mut srs = SpatialRef::from_wkt(wkt).map_err(gdal_err(path))?;
     srs.set_axis_mapping_strategy(AxisMappingStrategy::TraditionalGisOrder);
     Ok(srs)
 }
 
-fn add_fields<L: LayerAccess>(
+pub(super) fn add_fields<L: LayerAccess>(
     layer: &L,
     fields: &[(&str, OGRFieldType::Type)],
     path: &Path,
@@ -109,7 +109,7 @@ fn add_fields<L: LayerAccess>(
     Ok(())
 }
 
-fn point(p: [f64; 2]) -> gdal::errors::Result<Geometry> {
+pub(super) fn point(p: [f64; 2]) -> gdal::errors::Result<Geometry> {
     let mut g = Geometry::empty(OGRwkbGeometryType::wkbPoint)?;
     g.add_point_2d((p[0], p[1]));
     Ok(g)

@@ -41,6 +41,7 @@
 pub(crate) mod atomic;
 pub mod csv;
 pub mod destination;
+pub mod epochs;
 pub mod gpkg;
 pub mod json;
 pub mod raster;

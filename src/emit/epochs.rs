@@ -1,0 +1,505 @@
+//! The outputs of `tiemark epochs`: the library of persistent control points.
+//!
+//! **In:** an [`EpochsOutcome`] whose epochs were all joined to the base, a checked
+//! [`Destination`] and the report text. **Out:** in the output folder, all or none (the
+//! staging machinery of [`super::atomic`]):
+//!
+//! - `persistent-control-points.csv`: one row per kept track —
+//!   `track,<epoch>…,epochs_seen,x,y,sd_x_m,sd_y_m,largest_movement_m,grade`: a column per
+//!   epoch named after its file's stem holding that epoch's landmark id (empty where not
+//!   seen); `x`, `y` the track's weighted mean position in the base epoch's own CRS (4
+//!   decimals, 9 in a geographic CRS); `sd_x_m`, `sd_y_m` the sample standard deviation of its
+//!   per-epoch positions along the working CRS's axes; `largest_movement_m` the largest
+//!   distance between two of them; `grade` the stability grade (A, B, C; see
+//!   [`crate::epochs`]).
+//! - `moved-landmarks.csv`: the tracks that moved between epochs, same leading columns, then
+//!   `x,y,largest_movement_m,statistic,p_value` (a drift finding, not control).
+//! - `persistent-control-points.gpkg`: layer `persistent_control_points` (the kept tracks as
+//!   points in the base CRS: track, epochs_seen, sd_x_m, sd_y_m, largest_movement_m, grade),
+//!   layer `epoch_positions` (each kept or moved track's position in every epoch that saw it,
+//!   mapped into the base CRS: track, epoch, landmark_id, offset_m from the track's mean,
+//!   status) and layer `moved_landmarks`.
+//! - `epochs.json`: every epoch (file, CRS, landmarks) and its transform to the base with
+//!   standard errors, the pairs matched, the closure checks, the adjustment's variance factor
+//!   and redundancy, the counts.
+//! - `report.txt`: the summary, with the cautions.
+
+use super::{atomic, destination, gpkg, io_err, Destination, EmitError};
+use crate::epochs::{EpochsOutcome, Track, TrackStatus};
+use gdal::vector::{Feature, LayerAccess, LayerOptions, OGRFieldType, OGRwkbGeometryType};
+use serde_json::json;
+use std::io::Write;
+use std::path::{Path, PathBuf};
+
+/// The files an epochs run writes.
+pub const FILES: [&str; 5] = [
+    "persistent-control-points.csv",
+    "persistent-control-points.gpkg",
+    "moved-landmarks.csv",
+    "epochs.json",
+    "report.txt",
+];
+
+/// Fixed columns of `persistent-control-points.csv` (epoch names must avoid them).
+pub const COLUMNS: [&str; 10] = [
+    "track",
+    "epochs_seen",
+    "x",
+    "y",
+    "sd_x_m",
+    "sd_y_m",
+    "largest_movement_m",
+    "grade",
+    "statistic",
+    "p_value",
+];
+
+/// Writes every file into the checked output folder; returns their paths as shown.
+pub fn write_all(
+    outcome: &EpochsOutcome,
+    out: &Destination,
+    report: &str,
+) -> Result<Vec<PathBuf>, EmitError> {
+    destination::check_dir_state(out)?;
+    let staging = atomic::Staging::for_target(&out.path)?;
+    let means = base_crs(outcome, |t| Some(t.mean))?;
+    let dir = staging.path.clone();
+    (|| -> Result<(), EmitError> {
+        write_csv(outcome, &means, &dir.join(FILES[0]), false)?;
+        super::pause_for_tests();
+        write_gpkg(outcome, &means, &dir.join(FILES[1]))?;
+        write_csv(outcome, &means, &dir.join(FILES[2]), true)?;
+        let doc = document(outcome);
+        let p = dir.join(FILES[3]);
+        let text = serde_json::to_string_pretty(&doc).expect("JSON of plain values") + "\n";
+        std::fs::write(&p, text).map_err(io_err(&p))?;
+        let p = dir.join(FILES[4]);
+        std::fs::write(&p, report).map_err(io_err(&p))
+    })()
+    .map_err(|e| match e {
+        EmitError::DiskFull { path, detail } => EmitError::DiskFull {
+            path: out.given.clone(),
+            detail: format!(
+                "writing {}: {detail}",
+                path.file_name().unwrap_or_default().to_string_lossy()
+            ),
+        },
+        other => other,
+    })?;
+    atomic::put_in_place(staging, &out.path, &FILES, out.mode())?;
+    Ok(FILES.iter().map(|f| out.shown(f)).collect())
+}
+
+/// Per track, a point chosen by `pick` (base working frame) converted to the base's CRS.
+fn base_crs(
+    outcome: &EpochsOutcome,
+    pick: impl Fn(&Track) -> Option<[f64; 2]>,
+) -> Result<Vec<Option<[f64; 2]>>, EmitError> {
+    let picked: Vec<Option<[f64; 2]>> = outcome.library.tracks.iter().map(pick).collect();
+    let flat: Vec<[f64; 2]> = picked.iter().flatten().copied().collect();
+    let conv = outcome
+        .frame
+        .to_reference_crs(&flat)
+        .map_err(EmitError::Frame)?;
+    let mut it = conv.into_iter();
+    Ok(picked.iter().map(|p| p.and_then(|_| it.next())).collect())
+}
+
+fn shown(t: &Track) -> bool {
+    matches!(t.status, TrackStatus::Kept)
+}
+
+fn write_csv(
+    outcome: &EpochsOutcome,
+    means: &[Option<[f64; 2]>],
+    path: &Path,
+    moved: bool,
+) -> Result<(), EmitError> {
+    let f = std::fs::File::create(path).map_err(io_err(path))?;
+    let mut w = std::io::BufWriter::new(f);
+    let d = super::csv::coordinate_decimals(outcome.frame.reference_crs.geographic);
+    let names: Vec<String> = outcome
+        .epochs
+        .iter()
+        .map(|e| super::csv::field(&e.name))
+        .collect();
+    let tail = if moved {
+        "epochs_seen,x,y,largest_movement_m,statistic,p_value"
+    } else {
+        "epochs_seen,x,y,sd_x_m,sd_y_m,largest_movement_m,grade"
+    };
+    let e = io_err(path);
+    (|| -> std::io::Result<()> {
+        writeln!(w, "track,{},{tail}", names.join(","))?;
+        for (t, mean) in outcome.library.tracks.iter().zip(means) {
+            let keep = if moved {
+                t.status == TrackStatus::Moved
+            } else {
+                shown(t)
+            };
+            if !keep {
+                continue;
+            }
+            let ids: Vec<String> = t
+                .members
+                .iter()
+                .zip(&t.positions)
+                .zip(&outcome.epochs)
+                .map(|((m, p), e)| match (m, p) {
+                    (Some(i), Some(_)) => super::csv::field(&e.set.ids[*i as usize]),
+                    _ => String::new(),
+                })
+                .collect();
+            let [x, y] = mean.expect("every track has a mean");
+            write!(w, "{},{},{},{x:.d$},{y:.d$}", t.id, ids.join(","), t.epochs_seen())?;
+            if moved {
+                writeln!(
+                    w,
+                    ",{:.4},{:.2},{:.3e}",
+                    t.largest_movement_m, t.statistic, t.p_value
+                )?;
+            } else {
+                writeln!(
+                    w,
+                    ",{:.4},{:.4},{:.4},{}",
+                    t.sd_m[0],
+                    t.sd_m[1],
+                    t.largest_movement_m,
+                    t.grade.unwrap_or('-')
+                )?;
+            }
+        }
+        w.flush()
+    })()
+    .map_err(e)
+}
+
+fn write_gpkg(
+    outcome: &EpochsOutcome,
+    means: &[Option<[f64; 2]>],
+    path: &Path,
+) -> Result<(), EmitError> {
+    let e = gpkg::gdal_err(path);
+    let srs = gpkg::srs_from_wkt(&outcome.frame.reference_crs.wkt, path)?;
+    let lib = &outcome.library;
+    // Per-epoch positions of the kept and moved tracks, in the base CRS.
+    let listed: Vec<(usize, usize, [f64; 2])> = lib
+        .tracks
+        .iter()
+        .enumerate()
+        .filter(|(_, t)| matches!(t.status, TrackStatus::Kept | TrackStatus::Moved))
+        .flat_map(|(i, t)| {
+            t.positions
+                .iter()
+                .enumerate()
+                .filter_map(move |(k, p)| p.map(|p| (i, k, p)))
+        })
+        .collect();
+    let converted = outcome
+        .frame
+        .to_reference_crs(&listed.iter().map(|x| x.2).collect::<Vec<_>>())
+        .map_err(EmitError::Frame)?;
+    let (mut ds, _fixed) = gpkg::create_gpkg(path)?;
+    {
+        let mut txn = ds.start_transaction().map_err(&e)?;
+        for (name, status) in [
+            ("persistent_control_points", TrackStatus::Kept),
+            ("moved_landmarks", TrackStatus::Moved),
+        ] {
+            let layer = txn
+                .create_layer(LayerOptions {
+                    name,
+                    srs: Some(&srs),
+                    ty: OGRwkbGeometryType::wkbPoint,
+                    options: None,
+                })
+                .map_err(&e)?;
+            gpkg::add_fields(
+                &layer,
+                &[
+                    ("track", OGRFieldType::OFTString),
+                    ("epochs_seen", OGRFieldType::OFTInteger),
+                    ("sd_x_m", OGRFieldType::OFTReal),
+                    ("sd_y_m", OGRFieldType::OFTReal),
+                    ("largest_movement_m", OGRFieldType::OFTReal),
+                    ("grade", OGRFieldType::OFTString),
+                ],
+                path,
+            )?;
+            for (t, mean) in lib.tracks.iter().zip(means) {
+                if t.status != status {
+                    continue;
+                }
+                let mut f = Feature::new(layer.defn()).map_err(&e)?;
+                f.set_field_string(0, &t.id).map_err(&e)?;
+                f.set_field_integer(1, t.epochs_seen() as i32).map_err(&e)?;
+                f.set_field_double(2, t.sd_m[0]).map_err(&e)?;
+                f.set_field_double(3, t.sd_m[1]).map_err(&e)?;
+                f.set_field_double(4, t.largest_movement_m).map_err(&e)?;
+                f.set_field_string(5, &t.grade.map_or("moved".into(), |g| g.to_string()))
+                    .map_err(&e)?;
+                f.set_geometry(gpkg::point(mean.expect("a mean")).map_err(&e)?)
+                    .map_err(&e)?;
+                f.create(&layer).map_err(&e)?;
+            }
+        }
+        let layer = txn
+            .create_layer(LayerOptions {
+                name: "epoch_positions",
+                srs: Some(&srs),
+                ty: OGRwkbGeometryType::wkbPoint,
+                options: None,
+            })
+            .map_err(&e)?;
+        gpkg::add_fields(
+            &layer,
+            &[
+                ("track", OGRFieldType::OFTString),
+                ("epoch", OGRFieldType::OFTString),
+                ("landmark_id", OGRFieldType::OFTString),
+                ("offset_m", OGRFieldType::OFTReal),
+                ("status", OGRFieldType::OFTString),
+            ],
+            path,
+        )?;
+        let mpu = lib.metres_per_unit;
+        for ((i, k, working), p) in listed.iter().zip(&converted) {
+            let t = &lib.tracks[*i];
+            let m = t.members[*k].expect("a position has a member");
+            let mut f = Feature::new(layer.defn()).map_err(&e)?;
+            f.set_field_string(0, &t.id).map_err(&e)?;
+            f.set_field_string(1, &outcome.epochs[*k].name).map_err(&e)?;
+            f.set_field_string(2, &outcome.epochs[*k].set.ids[m as usize])
+                .map_err(&e)?;
+            f.set_field_double(3, crate::spatial::dist2(*working, t.mean).sqrt() * mpu)
+                .map_err(&e)?;
+            f.set_field_string(
+                4,
+                if t.status == TrackStatus::Moved {
+                    "moved"
+                } else {
+                    "kept"
+                },
+            )
+            .map_err(&e)?;
+            f.set_geometry(gpkg::point(*p).map_err(&e)?).map_err(&e)?;
+            f.create(&layer).map_err(&e)?;
+        }
+        txn.commit().map_err(&e)?;
+    }
+    gpkg::close_checked(ds, path)?;
+    Ok(())
+}
+
+/// The document of `epochs.json`.
+pub fn document(outcome: &EpochsOutcome) -> serde_json::Value {
+    let lib = &outcome.library;
+    let base = outcome.config.base_index();
+    let epochs: Vec<serde_json::Value> = outcome
+        .epochs
+        .iter()
+        .enumerate()
+        .map(|(k, e)| {
+            let t = lib.transforms[k].as_ref();
+            json!({
+                "number": k + 1,
+                "name": e.name,
+                "file": e.set.source.display().to_string(),
+                "layer": e.set.layer,
+                "crs": e.crs.as_ref().map(|c| c.label()),
+                "local_grid_unit": e.crs.is_none().then(|| e.unit.map(|u| u.code())),
+                "landmarks": e.set.ids.len(),
+                "base": k == base,
+                "to_base": t.map(|t| json!({
+                    "maps": "this epoch's working coordinates (the base's working CRS, or the local grid's own) to the base's working CRS",
+                    "scale": t.similarity.scale(),
+                    "rotation_deg": t.similarity.rotation().to_degrees(),
+                    "translation_x": t.similarity.tx,
+                    "translation_y": t.similarity.ty,
+                    "standard_errors": {
+                        "scale": t.se_scale,
+                        "rotation_arcsec": t.se_rotation.to_degrees() * 3600.0,
+                        "position_at_centroid_m": {"x": t.se_position_m[0], "y": t.se_position_m[1]},
+                    },
+                    "centroid": {"x": t.origin[0], "y": t.origin[1]},
+                    "landmarks_adjusted": t.landmarks,
+                    "rms_residual_m": t.rms_m,
+                    "sigma_m": t.sigma_m,
+                })),
+            })
+        })
+        .collect();
+    let pairs: Vec<serde_json::Value> = outcome
+        .pairs
+        .iter()
+        .map(|p| {
+            let (name_r, name_t) = (&outcome.epochs[p.reference].name, &outcome.epochs[p.target].name);
+            match &p.result {
+                Ok(c) => json!({"reference": name_r, "target": name_t, "accepted": true,
+                    "control_points": c.points.len(), "rmse_m": c.rmse_m}),
+                Err(r) => json!({"reference": name_r, "target": name_t, "accepted": false,
+                    "reason": crate::report::reason(&r.reason)}),
+            }
+        })
+        .collect();
+    let closures: Vec<serde_json::Value> = lib
+        .closures
+        .iter()
+        .map(|c| {
+            let [b, i, j] = c.epochs;
+            json!({
+                "chain": [outcome.epochs[j].name, outcome.epochs[i].name, outcome.epochs[b].name],
+                "direct": [outcome.epochs[j].name, outcome.epochs[b].name],
+                "misfit_m": c.misfit_m,
+                "largest_misfit_m": c.largest_misfit_m,
+                "rotation_arcsec": c.rotation_arcsec,
+                "scale_ppm": c.scale_ppm,
+                "chi2": c.statistic,
+                "chi2_99": c.threshold,
+                "warning": c.flagged,
+            })
+        })
+        .collect();
+    let o = &outcome.config.options;
+    json!({
+        "tool": "tiemark",
+        "version": env!("CARGO_PKG_VERSION"),
+        "base": outcome.epochs[base].name,
+        "base_crs": outcome.frame.reference_crs.label(),
+        "working_crs": outcome.frame.crs.label(),
+        "pairs_plan": o.pairs,
+        "min_epochs": outcome.config.min_epochs(),
+        "stability_m": o.stability_m,
+        "epochs": epochs,
+        "pairs": pairs,
+        "closure": {
+            "test": "chi-square, 4 degrees of freedom, of the chain j->i->base minus j->base (linear part and position at the centroid of the (i,j) control points), covariances of the three pairwise fits summed; warning above the 99% point",
+            "checks": closures,
+        },
+        "adjustment": {
+            "variance_factor": lib.variance_factor,
+            "redundancy": lib.redundancy,
+            "moved_test": format!("per track chi-square with 2(m-1) degrees of freedom, moved when p < {}", crate::epochs::MOVED_ALPHA),
+        },
+        "counts": lib.counts,
+    })
+}
+
+/// The summary printed and written to `report.txt`, with the cautions.
+pub fn summary(outcome: &EpochsOutcome) -> String {
+    let lib = &outcome.library;
+    let base = outcome.config.base_index();
+    let mut s = String::new();
+    s += &format!(
+        "Persistent control points across {} epochs; base: {} ({})\n\n",
+        outcome.epochs.len(),
+        outcome.epochs[base].name,
+        outcome.frame.reference_crs.label()
+    );
+    s += "Pairs matched:\n";
+    for p in &outcome.pairs {
+        let (a, b) = (&outcome.epochs[p.reference].name, &outcome.epochs[p.target].name);
+        match &p.result {
+            Ok(c) => {
+                s += &format!(
+                    "  {b} -> {a}: {} control points, RMSE {:.3} m\n",
+                    c.points.len(),
+                    c.rmse_m
+                )
+            }
+            Err(r) => {
+                s += &format!(
+                    "  {b} -> {a}: no transform: {}\n",
+                    crate::report::reason(&r.reason)
+                )
+            }
+        }
+    }
+    s += "\nTransforms to the base (joint adjustment):\n";
+    for (k, e) in outcome.epochs.iter().enumerate() {
+        match &lib.transforms[k] {
+            Some(_) if k == base => s += &format!("  {}: base (fixed)\n", e.name),
+            Some(t) => {
+                s += &format!(
+                    "  {}: scale {:.8} ± {:.2e}, rotation {:.6}° ± {:.2}\", position at its centroid ± {:.3} m east, ± {:.3} m north; {} landmarks, RMS {:.3} m\n",
+                    e.name,
+                    t.similarity.scale(),
+                    t.se_scale,
+                    t.similarity.rotation().to_degrees(),
+                    t.se_rotation.to_degrees() * 3600.0,
+                    t.se_position_m[0],
+                    t.se_position_m[1],
+                    t.landmarks,
+                    t.rms_m
+                )
+            }
+            None => s += &format!(
+                "  {}: NOT JOINED: no accepted match links it to the base; check its CRS (or declare it crs = local), its overlap with the other epochs, or leave it out\n",
+                e.name
+            ),
+        }
+    }
+    if !lib.closures.is_empty() {
+        s += "\nClosure of chained transforms (j -> i -> base against j -> base):\n";
+        for c in &lib.closures {
+            let [b, i, j] = c.epochs;
+            let n = |k: usize| &outcome.epochs[k].name;
+            s += &format!(
+                "  {} -> {} -> {}: misfit {:.3} m at the centroid (largest {:.3} m), rotation {:.2}\", scale {:.1} ppm, chi2 {:.2} (99% point {:.2}){}\n",
+                n(j),
+                n(i),
+                n(b),
+                c.misfit_m,
+                c.largest_misfit_m,
+                c.rotation_arcsec,
+                c.scale_ppm,
+                c.statistic,
+                c.threshold,
+                if c.flagged {
+                    " WARNING: the chained transforms disagree beyond what their standard errors allow; one of these epochs may be distorted (not a similarity of the others) or mismatched"
+                } else {
+                    ""
+                }
+            );
+        }
+    }
+    let c = &lib.counts;
+    s += &format!(
+        "\nTracks (landmarks linked in two or more epochs): {}; kept: {} (grade A {}, B {}, C {}); moved between epochs: {}; seen in fewer than {} epochs: {}; beyond the stability limit: {}; conflicting links refused: {}\n",
+        c.tracks,
+        c.kept,
+        c.grades[0],
+        c.grades[1],
+        c.grades[2],
+        c.moved,
+        outcome.config.min_epochs(),
+        c.too_few_epochs,
+        c.unstable,
+        c.conflicts
+    );
+    if c.moved > 0 {
+        s += &format!(
+            "{} landmarks moved between epochs beyond their noise: they are listed in moved-landmarks.csv as a drift finding and are not control points.\n",
+            c.moved
+        );
+    }
+    s += &format!(
+        "\nGrades: A seen in every epoch, scatter within the noise (p >= {g}); B seen in at least half of the epochs with p >= {g}, or in every epoch with {m} <= p < {g}; C the other kept tracks.\n",
+        g = crate::epochs::GRADE_ALPHA,
+        m = crate::epochs::MOVED_ALPHA
+    );
+    s += "\n";
+    s += crate::report::CAUTION;
+    s += "\nA persistent landmark is one that stayed put in these epochs; it may still move later: re-check the library against each new survey.\n";
+    s
+}
+
+/// `summary` with the list of files written.
+pub fn with_files(summary: &str, files: &[PathBuf]) -> String {
+    let mut s = summary.to_string();
+    s += "\nWritten:\n";
+    for f in files {
+        s += &format!("  {}\n", f.display());
+    }
+    s
+}
