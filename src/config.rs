@@ -278,7 +278,7 @@ impl PipelineFile {
 }
 
 /// Removes `.` and `dir/..` from a path without touching the file system.
-fn lexical_clean(p: &Path) -> PathBuf {
+pub(crate) fn lexical_clean(p: &Path) -> PathBuf {
     use std::path::Component;
     let mut out: Vec<Component> = Vec::new();
     for c in p.components() {
@@ -297,7 +297,8 @@ fn lexical_clean(p: &Path) -> PathBuf {
     }
 }
 
-fn describe_toml_error(text: &str, e: &toml::de::Error) -> String {
+/// A TOML error with its line and column.
+pub(crate) fn describe_toml_error(text: &str, e: &toml::de::Error) -> String {
     let msg = e.message().trim().to_string();
     match e.span() {
         Some(span) => {

@@ -50,6 +50,7 @@
 //!    partly seen with a scatter at the edge of the noise).
 
 pub mod adjust;
+pub mod pipeline;
 pub mod tracks;
 
 use crate::config::{

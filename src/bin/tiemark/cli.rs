@@ -51,6 +51,9 @@ pub enum Command {
     },
     /// Write the landmarks tiemark extracts from one dataset (to inspect them).
     Landmarks(LandmarksArgs),
+    /// Build a library of persistent control points from several epochs of one site (per-epoch ids and CRSs: a pipeline file with [[epoch]] blocks, run with `tiemark run`).
+    #[command(after_help = epochs_after_help())]
+    Epochs(EpochsArgs),
     /// Measure the signature stage (quality benchmarks; writes tables and a plot).
     #[cfg(feature = "experiments")]
     #[command(subcommand)]
@@ -326,6 +329,93 @@ impl MatchArgs {
         };
         (config, output)
     }
+}
+
+// ---- tiemark epochs --------------------------------------------------------------------------
+
+/// Exit codes of `epochs`, and the caution.
+pub fn epochs_after_help() -> String {
+    format!(
+        "Exit codes: 0 library written; 1 some epoch could not be joined to the base (no accepted match links it; nothing written); 2 bad input or error.\n\n{}",
+        tiemark::report::CAUTION
+    )
+}
+
+#[derive(Args)]
+pub struct EpochsArgs {
+    /// The epochs: two or more surveys of the site (any dataset `match` reads), in time order.
+    #[arg(required = true, num_args = 1..)]
+    epochs: Vec<PathBuf>,
+    /// Output folder (created; must be empty unless --force).
+    #[arg(long)]
+    out: PathBuf,
+    /// Replace tiemark's files in a non-empty output folder.
+    #[arg(long)]
+    force: bool,
+    /// Attribute holding landmark ids in every epoch (default: the feature id).
+    #[arg(long)]
+    id: Option<String>,
+    /// The base epoch, numbered from 1 in the order given: the library is expressed in its CRS.
+    #[arg(long, allow_negative_numbers = true, value_parser = count::<usize>, default_value_t = tiemark::epochs::EpochOptions::default().base)]
+    base: usize,
+    /// Keep the landmarks seen in at least this many epochs [default: all].
+    #[arg(long, allow_negative_numbers = true, value_parser = count::<usize>)]
+    min_epochs: Option<usize>,
+    /// Keep the landmarks whose positions in the base frame agree within this many metres.
+    #[arg(long, allow_negative_numbers = true)]
+    stability: Option<f64>,
+    /// Match every pair of epochs (default: each against the base and the next, 2N-3 matches).
+    #[arg(long)]
+    all_pairs: bool,
+    /// Seed of every random choice.
+    #[arg(long, allow_negative_numbers = true, value_parser = count::<u64>, default_value_t = FitParams::default().seed)]
+    seed: u64,
+}
+
+impl EpochsArgs {
+    /// The run and where its outputs go.
+    pub fn into_config(self) -> (tiemark::epochs::EpochsConfig, OutputOptions) {
+        let mut config = tiemark::epochs::EpochsConfig::new(self.epochs);
+        for e in &mut config.epochs {
+            e.id.clone_from(&self.id);
+        }
+        config.options = tiemark::epochs::EpochOptions {
+            base: self.base,
+            min_epochs: self.min_epochs,
+            stability_m: self.stability,
+            pairs: if self.all_pairs {
+                tiemark::epochs::PairPlan::All
+            } else {
+                tiemark::epochs::PairPlan::BaseAndNeighbours
+            },
+        };
+        config.fit.seed = self.seed;
+        let output = OutputOptions {
+            dir: self.out,
+            force: self.force,
+            warp: None,
+        };
+        (config, output)
+    }
+}
+
+/// Pipeline-file keys of an epochs run and the flags of `epochs` that set them.
+const EPOCH_FLAGS: &[(&str, &str)] = &[
+    ("epochs.base", "--base"),
+    ("epochs.min_epochs", "--min-epochs"),
+    ("epochs.stability_m", "--stability"),
+    ("fit.seed", "--seed"),
+    ("output.dir", "--out"),
+    ("output.force", "--force"),
+];
+
+/// A library message of an epochs run with its keys rendered as the flags of `epochs`.
+pub fn epoch_flags(message: &str) -> String {
+    let mut out = message.to_string();
+    for (key, flag) in EPOCH_FLAGS {
+        out = out.replace(key, flag);
+    }
+    out
 }
 
 /// Pipeline-file keys the library names in its messages, and the flags of `match` and

@@ -143,6 +143,54 @@ fn run_landmarks(a: cli::LandmarksArgs) -> ExitCode {
     }
 }
 
+/// `tiemark epochs` (or an epochs pipeline): computes the library, writes it if every epoch
+/// was joined to the base (exit 0), else prints the summary and writes nothing (exit 1).
+fn run_epochs(
+    config: &tiemark::epochs::EpochsConfig,
+    output: &OutputOptions,
+    pipeline: Option<&Path>,
+    quiet: bool,
+    command_line: bool,
+) -> ExitCode {
+    let render = |m: &str| {
+        if command_line {
+            cli::epoch_flags(m)
+        } else {
+            m.to_string()
+        }
+    };
+    let error = |e: &dyn std::fmt::Display| fail(&render(&e.to_string()));
+    let mut inputs: Vec<&Path> = config.epochs.iter().map(|e| e.path.as_path()).collect();
+    inputs.extend(pipeline);
+    // Checked before any work, so that a long run cannot end in these errors.
+    if let Err(e) = config.validate() {
+        return error(&e);
+    }
+    let out = match emit::check_output_dir(&output.dir, output.force, &emit::epochs::FILES, &inputs)
+    {
+        Ok(d) => d,
+        Err(e) => return error(&e),
+    };
+    let outcome = match tiemark::epochs::run(config, &emit::epochs::COLUMNS, &bars::Bars::new(quiet))
+    {
+        Ok(o) => o,
+        Err(e) => return error(&e),
+    };
+    let summary = render(&emit::epochs::summary(&outcome));
+    if !outcome.library.unjoined().is_empty() {
+        print(&summary);
+        print("Nothing was written: every epoch must be joined to the base.\n");
+        return ExitCode::from(1);
+    }
+    match emit::epochs::write_all(&outcome, &out, &summary) {
+        Ok(files) => {
+            print(&emit::epochs::with_files(&summary, &files));
+            ExitCode::SUCCESS
+        }
+        Err(e) => error(&e),
+    }
+}
+
 /// On SIGINT, SIGTERM or SIGHUP: removes this run's staging folders and temporary files
 /// (after any move into place in progress), then ends with exit code 128 + the signal's
 /// number. The handlers signal-hook installs only write to a pipe (async-signal-safe); the
@@ -188,6 +236,19 @@ fn main() -> ExitCode {
         Command::Match(args) => {
             let (config, output) = args.into_config();
             run_match(&config, &output, None, cli.quiet, Source::CommandLine)
+        }
+        Command::Run { pipeline } if tiemark::epochs::pipeline::is_epochs_pipeline(&pipeline) => {
+            match tiemark::epochs::pipeline::EpochsPipelineFile::read(&pipeline) {
+                Ok(file) => {
+                    let (config, output) = file.into_parts();
+                    run_epochs(&config, &output, Some(&pipeline), cli.quiet, false)
+                }
+                Err(e) => fail(&e.to_string()),
+            }
+        }
+        Command::Epochs(a) => {
+            let (config, output) = a.into_config();
+            run_epochs(&config, &output, None, cli.quiet, true)
         }
         Command::Run { pipeline } => match PipelineFile::read(&pipeline) {
             Ok(file) => {
