@@ -1,0 +1,465 @@
+//! `tiemark epochs` on a real point pattern the project did not design: the airports extract
+//! of tests/data (PyPI package `airportsdata`, MIT; see tests/data/PROVENANCE.md), in WGS 84 /
+//! UTM 16N, observed in four epochs with independent dropouts, new landmarks, each epoch's own
+//! georeferencing error (one in a rotated, scaled local grid) and noise. Plus the joint
+//! adjustment against the pairwise fits on noise-free data, its standard errors against a
+//! Monte Carlo, the closure test on a perturbed transform, and a planted moved landmark.
+
+use rand::{Rng, SeedableRng};
+use rand_chacha::ChaCha8Rng;
+use rand_distr::{Distribution, Normal};
+use std::collections::{HashMap, HashSet};
+use std::path::{Path, PathBuf};
+use tiemark::epochs::adjust::{self, CentredFit, Obs};
+use tiemark::epochs::{self, EpochOptions, EpochsConfig, TrackStatus};
+use tiemark::fit::Similarity;
+use tiemark::frame::crs::{Converter, Crs};
+use tiemark::progress::Silent;
+
+fn root() -> PathBuf {
+    PathBuf::from(env!("CARGO_MANIFEST_DIR"))
+}
+
+/// The airports in UTM 16N (tests/data/PROVENANCE.md).
+fn airports() -> Vec<[f64; 2]> {
+    let text = std::fs::read_to_string(root().join("tests/data/airports-us-utm16n.csv")).unwrap();
+    let c = Converter::new(
+        &Crs::parse("EPSG:4326", "t").unwrap(),
+        &Crs::parse("EPSG:32616", "t").unwrap(),
+    )
+    .unwrap();
+    text.lines()
+        .skip(1)
+        .map(|l| {
+            let f: Vec<&str> = l.split(',').collect();
+            c.convert([f[1].parse().unwrap(), f[2].parse().unwrap()])
+                .unwrap()
+        })
+        .collect()
+}
+
+/// How an epoch sees the world: `error` maps the truth (UTM), taken about the pattern's
+/// centroid, to the epoch's coordinates (about the centroid too for a georeferenced epoch,
+/// whose georeferencing error is small there; the local grid's is a transform of its own).
+struct EpochPlan {
+    error: Similarity,
+    local: bool,
+}
+
+/// Four epochs of the airports: each keeps an airport with probability `keep`, adds 10 % new
+/// points, applies its error and Gaussian noise `sigma` per coordinate. `moved`: airports
+/// shifted by the vector given in the epoch given. Returns the files, and per epoch the
+/// airport index of each id (None for new points).
+#[allow(clippy::type_complexity)]
+fn write_epochs(
+    dir: &Path,
+    seed: u64,
+    keep: f64,
+    sigma: f64,
+    moved: &[(usize, usize, [f64; 2])],
+) -> (Vec<PathBuf>, Vec<HashMap<String, Option<usize>>>) {
+    let truth = airports();
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    let plans = [
+        EpochPlan {
+            error: Similarity::IDENTITY,
+            local: false,
+        },
+        EpochPlan {
+            error: Similarity::from_params(1.0 + 40e-6, 0.002f64.to_radians(), 35.0, -20.0),
+            local: false,
+        },
+        EpochPlan {
+            // A local grid: rotated 71°, scaled, far from UTM.
+            error: Similarity::from_params(0.37, 71f64.to_radians(), 120_000.0, -4_000_000.0)
+                .inverse(),
+            local: true,
+        },
+        EpochPlan {
+            error: Similarity::from_params(1.0 - 25e-6, -0.003f64.to_radians(), -50.0, 42.0),
+            local: false,
+        },
+    ];
+    let (lo, hi) = truth
+        .iter()
+        .fold(([f64::MAX; 2], [f64::MIN; 2]), |(lo, hi), p| {
+            (
+                [lo[0].min(p[0]), lo[1].min(p[1])],
+                [hi[0].max(p[0]), hi[1].max(p[1])],
+            )
+        });
+    let n = truth.len() as f64;
+    let c = truth
+        .iter()
+        .fold([0.0, 0.0], |s, p| [s[0] + p[0] / n, s[1] + p[1] / n]);
+    let place = |plan: &EpochPlan, p: [f64; 2]| {
+        if plan.local {
+            plan.error.apply(p)
+        } else {
+            let q = plan.error.apply([p[0] - c[0], p[1] - c[1]]);
+            [q[0] + c[0], q[1] + c[1]]
+        }
+    };
+    let mut files = Vec::new();
+    let mut maps = Vec::new();
+    for (k, plan) in plans.iter().enumerate() {
+        let noise = Normal::new(0.0, sigma.max(1e-300)).unwrap();
+        let mut text = String::from("id,x,y\n");
+        let mut map = HashMap::new();
+        let mut n_new = 0;
+        for (i, p) in truth.iter().enumerate() {
+            if rng.gen::<f64>() >= keep {
+                continue;
+            }
+            let mut q = *p;
+            for (e, a, d) in moved {
+                if *e == k && *a == i {
+                    q = [q[0] + d[0], q[1] + d[1]];
+                }
+            }
+            if sigma > 0.0 {
+                q = [q[0] + noise.sample(&mut rng), q[1] + noise.sample(&mut rng)];
+            }
+            let w = place(plan, q);
+            let id = format!("E{k}-{i}");
+            text += &format!("{id},{:.6},{:.6}\n", w[0], w[1]);
+            map.insert(id, Some(i));
+            if rng.gen::<f64>() < 0.1 {
+                let p = [rng.gen_range(lo[0]..hi[0]), rng.gen_range(lo[1]..hi[1])];
+                let w = place(plan, p);
+                let id = format!("E{k}-N{n_new}");
+                n_new += 1;
+                text += &format!("{id},{:.6},{:.6}\n", w[0], w[1]);
+                map.insert(id, None);
+            }
+        }
+        let path = dir.join(format!("airports-epoch-{k}.csv"));
+        std::fs::write(&path, text).unwrap();
+        files.push(path);
+        maps.push(map);
+    }
+    (files, maps)
+}
+
+fn config(files: &[PathBuf], local: &[bool]) -> EpochsConfig {
+    let mut c = EpochsConfig::new(files.to_vec());
+    for (e, l) in c.epochs.iter_mut().zip(local) {
+        e.id = Some("id".into());
+        e.crs = Some(if *l { "local".into() } else { "EPSG:32616".into() });
+    }
+    // Control points up to 500 m apart (25 noise standard deviations of a pair): wide enough
+    // for a landmark that moved 200 m to stay paired, so that the moved test can see it.
+    c.fit.tolerance_m = Some(500.0);
+    c
+}
+
+const LOCAL: [bool; 4] = [false, false, true, false];
+
+/// The airport of each member of a track, if they all agree.
+fn airport_of(
+    track: &epochs::Track,
+    outcome: &epochs::EpochsOutcome,
+    maps: &[HashMap<String, Option<usize>>],
+) -> Option<usize> {
+    let mut found: Option<usize> = None;
+    for (k, m) in track.members.iter().enumerate() {
+        let Some(i) = m else { continue };
+        let id = &outcome.epochs[k].set.ids[*i as usize];
+        let a = maps[k][id]?;
+        if found.is_some_and(|f| f != a) {
+            return None;
+        }
+        found = Some(a);
+    }
+    found
+}
+
+/// Precision and recall of the kept tracks against the airports seen in at least `m` epochs.
+fn score(
+    outcome: &epochs::EpochsOutcome,
+    library: &epochs::Library,
+    maps: &[HashMap<String, Option<usize>>],
+    m: usize,
+) -> (f64, f64, usize) {
+    let mut seen: HashMap<usize, usize> = HashMap::new();
+    for map in maps {
+        for a in map.values().flatten() {
+            *seen.entry(*a).or_default() += 1;
+        }
+    }
+    let expected: HashSet<usize> = seen
+        .iter()
+        .filter(|(_, c)| **c >= m)
+        .map(|(a, _)| *a)
+        .collect();
+    let kept: Vec<&epochs::Track> = library
+        .tracks
+        .iter()
+        .filter(|t| t.status == TrackStatus::Kept)
+        .collect();
+    let right: HashSet<usize> = kept
+        .iter()
+        .filter_map(|t| airport_of(t, outcome, maps))
+        .filter(|a| expected.contains(a))
+        .collect();
+    let correct = kept
+        .iter()
+        .filter(|t| {
+            airport_of(t, outcome, maps).is_some_and(|a| {
+                expected.contains(&a)
+                    && t.epochs_seen() == seen[&a].min(maps.len())
+                    && t.epochs_seen() >= m
+            })
+        })
+        .count();
+    (
+        correct as f64 / kept.len().max(1) as f64,
+        right.len() as f64 / expected.len().max(1) as f64,
+        expected.len(),
+    )
+}
+
+#[test]
+fn tracks_in_all_epochs_and_in_three_are_found_and_a_moved_airport_is_reported() {
+    let tmp = tempfile::tempdir().unwrap();
+    // Airport 100 moved 200 m (10 σ) north-east in epoch 3.
+    let moved_airport = 100;
+    let (files, maps) = write_epochs(
+        tmp.path(),
+        20260,
+        0.85,
+        20.0,
+        &[(3, moved_airport, [141.0, 141.0])],
+    );
+    assert!(maps[3].contains_key(&format!("E3-{moved_airport}")));
+    assert!(maps[0].contains_key(&format!("E0-{moved_airport}")));
+    let cfg = config(&files, &LOCAL);
+    let outcome = epochs::run(&cfg, &tiemark::emit::epochs::COLUMNS, &Silent).unwrap();
+    assert!(outcome.library.unjoined().is_empty());
+    let (precision, recall, expected) = score(&outcome, &outcome.library, &maps, 4);
+    assert!(expected > 900, "{expected}");
+    assert!(
+        precision >= 0.99 && recall >= 0.95,
+        "all epochs: precision {precision} recall {recall}"
+    );
+    // The moved airport: reported as moved, not kept.
+    let t = outcome
+        .library
+        .tracks
+        .iter()
+        .find(|t| airport_of(t, &outcome, &maps) == Some(moved_airport))
+        .expect("the moved airport is linked");
+    assert_eq!(t.status, TrackStatus::Moved, "{t:?}");
+    assert!((t.largest_movement_m - 200.0).abs() < 100.0, "{t:?}");
+    assert!(outcome.library.counts.moved >= 1);
+    // Few false moves: at the test's level 0.001 about one in a thousand tracks.
+    assert!(
+        outcome.library.counts.moved <= 1 + outcome.library.counts.tracks / 200,
+        "{:?}",
+        outcome.library.counts
+    );
+    // --min-epochs 3 on the same matches.
+    let points: Vec<&[[f64; 2]]> = outcome.epochs.iter().map(|e| e.working.as_slice()).collect();
+    let three = epochs::combine(
+        &points,
+        0,
+        &outcome.pairs,
+        outcome.library.metres_per_unit,
+        &EpochOptions {
+            min_epochs: Some(3),
+            ..EpochOptions::default()
+        },
+        4,
+    );
+    let (precision, recall, expected) = score(&outcome, &three, &maps, 3);
+    assert!(expected > 1300, "{expected}");
+    assert!(
+        precision >= 0.99 && recall >= 0.95,
+        "three epochs: precision {precision} recall {recall}"
+    );
+    // The transforms: the local grid's is the inverse of its error.
+    let t2 = outcome.library.transforms[2].as_ref().unwrap();
+    assert!((t2.similarity.scale() / 0.37 - 1.0).abs() < 1e-4, "{t2:?}");
+    assert!((t2.similarity.rotation() - 71f64.to_radians()).abs() < 1e-4, "{t2:?}");
+    for c in &outcome.library.closures {
+        assert!(!c.flagged, "{c:?}");
+    }
+}
+
+#[test]
+fn joint_adjustment_equals_the_pairwise_fits_without_noise() {
+    let tmp = tempfile::tempdir().unwrap();
+    let (files, _) = write_epochs(tmp.path(), 77, 0.8, 0.0, &[]);
+    // The default tolerance (from the residual spread): on exact data no new landmark that
+    // happens to lie near a missing airport is taken as a control point.
+    let mut cfg = config(&files, &LOCAL);
+    cfg.fit.tolerance_m = None;
+    let outcome = epochs::run(&cfg, &[], &Silent).unwrap();
+    for p in outcome.pairs.iter().filter(|p| p.reference == 0) {
+        let pairwise = p.result.as_ref().unwrap().transform;
+        let joint = outcome.library.transforms[p.target].as_ref().unwrap();
+        // Compared where the epoch's landmarks are: the mapped positions of its extent agree
+        // to the rounding of the coordinates written (1e-6 units).
+        for q in &outcome.epochs[p.target].working {
+            let (a, b) = (pairwise.apply(*q), joint.similarity.apply(*q));
+            let d = (a[0] - b[0]).hypot(a[1] - b[1]);
+            assert!(d < 1e-4, "epoch {}: {d} m", p.target);
+        }
+    }
+}
+
+/// Synthetic tracks on the airports: `n` epochs with `errors[k]` (truth → epoch, centred),
+/// dropouts and noise.
+fn synthetic_tracks(
+    truth: &[[f64; 2]],
+    errors: &[CentredFit],
+    sigma: f64,
+    rng: &mut ChaCha8Rng,
+) -> Vec<Vec<Obs>> {
+    let noise = Normal::new(0.0, sigma).unwrap();
+    let inv = |f: &CentredFit, q: [f64; 2]| {
+        let [a, b, tx, ty] = f.theta;
+        let (x, y) = (q[0] - tx, q[1] - ty);
+        let d = a * a + b * b;
+        [(a * x + b * y) / d, (-b * x + a * y) / d]
+    };
+    truth
+        .iter()
+        .map(|q| {
+            let mut obs = Vec::new();
+            for (k, e) in errors.iter().enumerate() {
+                if rng.gen::<f64>() < 0.8 {
+                    let p = [q[0] + noise.sample(rng), q[1] + noise.sample(rng)];
+                    obs.push((k, inv(e, p)));
+                }
+            }
+            obs
+        })
+        .collect()
+}
+
+fn centred_airports() -> Vec<[f64; 2]> {
+    let a = airports();
+    let n = a.len() as f64;
+    let c = a
+        .iter()
+        .fold([0.0, 0.0], |s, p| [s[0] + p[0] / n, s[1] + p[1] / n]);
+    a.iter().map(|p| [p[0] - c[0], p[1] - c[1]]).collect()
+}
+
+fn errors() -> Vec<CentredFit> {
+    let f = |theta| CentredFit {
+        theta,
+        cov: [[0.0; 4]; 4],
+    };
+    vec![
+        CentredFit::IDENTITY,
+        f([1.00004, 0.00003, 35.0, -20.0]),
+        f([0.12, 0.35, 1000.0, 20.0]),
+        f([0.99997, -0.00005, -50.0, 42.0]),
+    ]
+}
+
+#[test]
+fn standard_errors_agree_with_a_monte_carlo() {
+    // 300 seeded runs of the same four epochs with fresh noise and dropouts: the spread of
+    // each estimated parameter against the mean standard error the adjustment reports. With
+    // 300 runs the spread itself is known to about 1/sqrt(600) = 4 %; agreement within a
+    // factor 1.2 either way.
+    let truth = centred_airports();
+    let errors = errors();
+    let runs = 300;
+    let mut est: Vec<Vec<[f64; 4]>> = vec![Vec::new(); 4];
+    let mut se = vec![[0.0; 4]; 4];
+    for run in 0..runs {
+        let mut rng = ChaCha8Rng::seed_from_u64(1000 + run);
+        let tracks = synthetic_tracks(&truth, &errors, 25.0, &mut rng);
+        let j = adjust::adjust(4, 0, &[true; 4], &tracks).unwrap();
+        for k in 1..4 {
+            let t = j.transforms[k].unwrap();
+            est[k].push(t.theta);
+            for (i, s) in se[k].iter_mut().enumerate() {
+                *s += t.cov[i][i].sqrt() / runs as f64;
+            }
+        }
+    }
+    for k in 1..4 {
+        for i in 0..4 {
+            let m = est[k].iter().map(|t| t[i]).sum::<f64>() / runs as f64;
+            let sd = (est[k].iter().map(|t| (t[i] - m).powi(2)).sum::<f64>()
+                / (runs - 1) as f64)
+                .sqrt();
+            let ratio = sd / se[k][i];
+            assert!(
+                (1.0 / 1.2..=1.2).contains(&ratio),
+                "epoch {k} parameter {i}: Monte Carlo {sd:e}, reported {:e}",
+                se[k][i]
+            );
+            // Unbiased: the mean within 5 standard errors of the mean of the truth.
+            let bias = (m - errors[k].theta[i]).abs();
+            assert!(
+                bias < 5.0 * sd / (runs as f64).sqrt(),
+                "epoch {k} parameter {i}: bias {bias:e}"
+            );
+        }
+    }
+}
+
+#[test]
+fn a_perturbed_transform_is_flagged_by_closure_and_consistent_ones_are_not() {
+    // Pairwise fits j → i, i → base, j → base on simulated control points of the airports;
+    // in 200 seeded runs the closure statistic exceeds its 99 % point about 1 % of the time,
+    // and with the j → i transform perturbed (rotated by 10 of its standard errors) always.
+    let truth = centred_airports();
+    let e = errors();
+    let threshold = adjust::chi2_quantile_even(epochs::CLOSURE_ALPHA, 4);
+    let noise = Normal::new(0.0, 25.0).unwrap();
+    let (mut false_alarms, mut caught) = (0, 0);
+    let runs = 200;
+    for run in 0..runs {
+        let mut rng = ChaCha8Rng::seed_from_u64(5000 + run);
+        let obs: Vec<[[f64; 2]; 3]> = truth
+            .iter()
+            .map(|q| {
+                let mut o = [[0.0; 2]; 3];
+                for (slot, k) in [0usize, 1, 2].into_iter().enumerate() {
+                    let p = [q[0] + noise.sample(&mut rng), q[1] + noise.sample(&mut rng)];
+                    // Epoch k's coordinates: the inverse of its error.
+                    let [a, b, tx, ty] = e[k].theta;
+                    let (x, y) = (p[0] - tx, p[1] - ty);
+                    let d = a * a + b * b;
+                    o[slot] = [(a * x + b * y) / d, (-b * x + a * y) / d];
+                }
+                o
+            })
+            .collect();
+        // Each pair on its own random two thirds of the airports.
+        let pick = |rng: &mut ChaCha8Rng, from: usize, to: usize| {
+            let sel: Vec<&[[f64; 2]; 3]> = obs.iter().filter(|_| rng.gen::<f64>() < 0.67).collect();
+            let f: Vec<[f64; 2]> = sel.iter().map(|o| o[from]).collect();
+            let t: Vec<[f64; 2]> = sel.iter().map(|o| o[to]).collect();
+            (adjust::fit_pairs(&f, &t).unwrap().0, f)
+        };
+        let (ji, at_pts) = pick(&mut rng, 2, 1);
+        let (ib, _) = pick(&mut rng, 1, 0);
+        let (jb, _) = pick(&mut rng, 2, 0);
+        let n = at_pts.len() as f64;
+        let at = at_pts
+            .iter()
+            .fold([0.0, 0.0], |s, p| [s[0] + p[0] / n, s[1] + p[1] / n]);
+        if adjust::closure(&ji, &ib, &jb, at).statistic > threshold {
+            false_alarms += 1;
+        }
+        // Perturbed: rotate j → i by 10 standard errors of its b coefficient.
+        let mut bad = ji;
+        let db = 10.0 * ji.cov[1][1].sqrt();
+        bad.theta[1] += db;
+        if adjust::closure(&bad, &ib, &jb, at).statistic > threshold {
+            caught += 1;
+        }
+    }
+    assert_eq!(caught, runs, "perturbed transform not always flagged");
+    // 1 % expected if the fits were independent; they share landmarks (and their noise) on
+    // overlapping subsets, as the pairs of a real run do: at most 3.5 %.
+    assert!(false_alarms <= 7, "false alarms {false_alarms} of {runs}");
+}
