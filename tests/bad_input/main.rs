@@ -21,6 +21,7 @@ use std::path::{Path, PathBuf};
 use std::process::{Command, Stdio};
 
 mod checkpoints;
+mod epochs;
 mod ingest;
 mod messages;
 mod rasters;
