@@ -83,6 +83,7 @@
 //! This file is built as the `generate-sample-data` example of the tiemark crate but uses only
 //! gdal, proj, rand, rand_chacha, serde_json and std (never the tiemark library).
 
+mod epochs;
 mod scene;
 
 use std::collections::HashMap;
@@ -2290,6 +2291,9 @@ fn main() -> Res<()> {
 
     // ---- the raster scene (orthophoto 2019, drone mosaic 2026) --------------------------------
     scene::write_scene(&out, seed, scene::Size::Small)?;
+
+    // ---- survey epochs of one district (tiemark epochs) ----------------------------------------
+    epochs::write_epochs(&out, seed, &ref_ids, &ref_c)?;
 
     eprintln!("wrote {}", out.display());
     Ok(())
