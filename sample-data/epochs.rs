@@ -83,9 +83,10 @@ pub fn write_epochs(out: &Path, seed: u64, ref_ids: &[String], ref_c: &[Pt]) -> 
                     rng.gen_range(rect.lo.0..rect.hi.0),
                     rng.gen_range(rect.lo.1..rect.hi.1),
                 );
-                let clear = world.iter().zip(&standing).all(|((_, q), s)| {
-                    !*s || (q.0 - p.0).hypot(q.1 - p.1) >= 12.0
-                });
+                let clear = world
+                    .iter()
+                    .zip(&standing)
+                    .all(|((_, q), s)| !*s || (q.0 - p.0).hypot(q.1 - p.1) >= 12.0);
                 if clear {
                     new_n += 1;
                     world.push((format!("N-{new_n:04}"), p));

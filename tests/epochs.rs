@@ -145,7 +145,11 @@ fn config(files: &[PathBuf], local: &[bool]) -> EpochsConfig {
     let mut c = EpochsConfig::new(files.to_vec());
     for (e, l) in c.epochs.iter_mut().zip(local) {
         e.id = Some("id".into());
-        e.crs = Some(if *l { "local".into() } else { "EPSG:32616".into() });
+        e.crs = Some(if *l {
+            "local".into()
+        } else {
+            "EPSG:32616".into()
+        });
     }
     // Control points up to 500 m apart (25 noise standard deviations of a pair): wide enough
     // for a landmark that moved 200 m to stay paired, so that the moved test can see it.
@@ -259,7 +263,11 @@ fn tracks_in_all_epochs_and_in_three_are_found_and_a_moved_airport_is_reported()
         outcome.library.counts
     );
     // --min-epochs 3 on the same matches.
-    let points: Vec<&[[f64; 2]]> = outcome.epochs.iter().map(|e| e.working.as_slice()).collect();
+    let points: Vec<&[[f64; 2]]> = outcome
+        .epochs
+        .iter()
+        .map(|e| e.working.as_slice())
+        .collect();
     let three = epochs::combine(
         &points,
         0,
@@ -280,7 +288,10 @@ fn tracks_in_all_epochs_and_in_three_are_found_and_a_moved_airport_is_reported()
     // The transforms: the local grid's is the inverse of its error.
     let t2 = outcome.library.transforms[2].as_ref().unwrap();
     assert!((t2.similarity.scale() / 0.37 - 1.0).abs() < 1e-4, "{t2:?}");
-    assert!((t2.similarity.rotation() - 71f64.to_radians()).abs() < 1e-4, "{t2:?}");
+    assert!(
+        (t2.similarity.rotation() - 71f64.to_radians()).abs() < 1e-4,
+        "{t2:?}"
+    );
     for c in &outcome.library.closures {
         assert!(!c.flagged, "{c:?}");
     }
@@ -370,7 +381,7 @@ fn standard_errors_agree_with_a_monte_carlo() {
     let errors = errors();
     let runs = 300;
     let mut est: Vec<Vec<[f64; 4]>> = vec![Vec::new(); 4];
-    let mut se = vec![[0.0; 4]; 4];
+    let mut se = [[0.0; 4]; 4];
     for run in 0..runs {
         let mut rng = ChaCha8Rng::seed_from_u64(1000 + run);
         let tracks = synthetic_tracks(&truth, &errors, 25.0, &mut rng);
@@ -386,9 +397,8 @@ fn standard_errors_agree_with_a_monte_carlo() {
     for k in 1..4 {
         for i in 0..4 {
             let m = est[k].iter().map(|t| t[i]).sum::<f64>() / runs as f64;
-            let sd = (est[k].iter().map(|t| (t[i] - m).powi(2)).sum::<f64>()
-                / (runs - 1) as f64)
-                .sqrt();
+            let sd =
+                (est[k].iter().map(|t| (t[i] - m).powi(2)).sum::<f64>() / (runs - 1) as f64).sqrt();
             let ratio = sd / se[k][i];
             assert!(
                 (1.0 / 1.2..=1.2).contains(&ratio),

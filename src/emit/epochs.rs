@@ -2,7 +2,7 @@
 //!
 //! **In:** an [`EpochsOutcome`] whose epochs were all joined to the base, a checked
 //! [`Destination`] and the report text. **Out:** in the output folder, all or none (the
-//! staging machinery of [`super::atomic`]):
+//! staging machinery of `emit/atomic.rs`):
 //!
 //! - `persistent-control-points.csv`: one row per kept track —
 //!   `track,<epoch>…,epochs_seen,x,y,sd_x_m,sd_y_m,largest_movement_m,grade`: a column per
@@ -151,7 +151,13 @@ fn write_csv(
                 })
                 .collect();
             let [x, y] = mean.expect("every track has a mean");
-            write!(w, "{},{},{},{x:.d$},{y:.d$}", t.id, ids.join(","), t.epochs_seen())?;
+            write!(
+                w,
+                "{},{},{},{x:.d$},{y:.d$}",
+                t.id,
+                ids.join(","),
+                t.epochs_seen()
+            )?;
             if moved {
                 writeln!(
                     w,
@@ -268,7 +274,8 @@ fn write_gpkg(
             let m = t.members[*k].expect("a position has a member");
             let mut f = Feature::new(layer.defn()).map_err(&e)?;
             f.set_field_string(0, &t.id).map_err(&e)?;
-            f.set_field_string(1, &outcome.epochs[*k].name).map_err(&e)?;
+            f.set_field_string(1, &outcome.epochs[*k].name)
+                .map_err(&e)?;
             f.set_field_string(2, &outcome.epochs[*k].set.ids[m as usize])
                 .map_err(&e)?;
             f.set_field_double(3, crate::spatial::dist2(*working, t.mean).sqrt() * mpu)
@@ -333,7 +340,10 @@ pub fn document(outcome: &EpochsOutcome) -> serde_json::Value {
         .pairs
         .iter()
         .map(|p| {
-            let (name_r, name_t) = (&outcome.epochs[p.reference].name, &outcome.epochs[p.target].name);
+            let (name_r, name_t) = (
+                &outcome.epochs[p.reference].name,
+                &outcome.epochs[p.target].name,
+            );
             match &p.result {
                 Ok(c) => json!({"reference": name_r, "target": name_t, "accepted": true,
                     "control_points": c.points.len(), "rmse_m": c.rmse_m}),
@@ -398,7 +408,10 @@ pub fn summary(outcome: &EpochsOutcome) -> String {
     );
     s += "Pairs matched:\n";
     for p in &outcome.pairs {
-        let (a, b) = (&outcome.epochs[p.reference].name, &outcome.epochs[p.target].name);
+        let (a, b) = (
+            &outcome.epochs[p.reference].name,
+            &outcome.epochs[p.target].name,
+        );
         match &p.result {
             Ok(c) => {
                 s += &format!(

@@ -158,11 +158,7 @@ pub fn fit_pairs(from: &[[f64; 2]], to: &[[f64; 2]]) -> Option<(CentredFit, f64)
             (m[0] - q[0]).powi(2) + (m[1] - q[1]).powi(2)
         })
         .sum();
-    let s2 = if n > 2 {
-        ssr / (2 * n - 4) as f64
-    } else {
-        0.0
-    };
+    let s2 = if n > 2 { ssr / (2 * n - 4) as f64 } else { 0.0 };
     let mut cov = [[0.0; 4]; 4];
     for i in 0..4 {
         for j in 0..4 {
@@ -242,7 +238,12 @@ fn component_variances(
         .map(|k| (red[k] > 0.5).then(|| ssr[k] / red[k]))
         .collect();
     let tiny = 1e-20 * size2;
-    let mut known: Vec<f64> = est.iter().flatten().copied().filter(|v| *v > tiny).collect();
+    let mut known: Vec<f64> = est
+        .iter()
+        .flatten()
+        .copied()
+        .filter(|v| *v > tiny)
+        .collect();
     if known.is_empty() {
         // Noise-free data (or none to estimate from): equal weights.
         return (sigma2.to_vec(), false);
@@ -273,7 +274,11 @@ fn mean_of(
 ) -> ([f64; 2], Vec<[f64; 2]>) {
     let u: Vec<[f64; 2]> = used
         .iter()
-        .map(|(k, p)| transforms[*k].expect("a usable epoch has a transform").apply(*p))
+        .map(|(k, p)| {
+            transforms[*k]
+                .expect("a usable epoch has a transform")
+                .apply(*p)
+        })
         .collect();
     let mut sw = 0.0;
     let mut m = [0.0, 0.0];
@@ -285,6 +290,9 @@ fn mean_of(
     }
     ([m[0] / sw, m[1] / sw], u)
 }
+
+/// One observation in the assembly: epoch, weight, design rows, position.
+type Block = (usize, f64, [[f64; 4]; 2], [f64; 2]);
 
 /// One weighted adjustment (weights 1/σ_k²).
 fn adjust_weighted(
@@ -316,7 +324,7 @@ fn adjust_weighted(
         observations += used.len();
         used_tracks += 1;
         let w_total: f64 = used.iter().map(|(k, _)| 1.0 / sigma2[*k]).sum();
-        let blocks: Vec<(usize, f64, [[f64; 4]; 2], [f64; 2])> = used
+        let blocks: Vec<Block> = used
             .iter()
             .map(|(k, p)| (*k, 1.0 / sigma2[*k], design(*p), *p))
             .collect();
@@ -409,7 +417,7 @@ fn adjust_weighted(
 /// freedom: e^(−x/2)·Σ_{i<dof/2} (x/2)^i / i! (closed form for even degrees of freedom, e.g.
 /// Abramowitz & Stegun, Handbook of Mathematical Functions, 26.4.21 — from memory).
 pub fn chi2_sf_even(x: f64, dof: usize) -> f64 {
-    debug_assert!(dof >= 2 && dof % 2 == 0);
+    debug_assert!(dof >= 2 && dof.is_multiple_of(2));
     if x <= 0.0 {
         return 1.0;
     }
@@ -476,7 +484,12 @@ fn add_jcj(out: &mut [[f64; 4]; 4], j: &[[f64; 4]; 4], c: &[[f64; 4]; 4]) {
 }
 
 /// Places 2×2 blocks into a 4×4 Jacobian: rows (m, v), columns (a b, tx ty).
-fn jac(mm: [[f64; 2]; 2], mt: [[f64; 2]; 2], vm: [[f64; 2]; 2], vt: [[f64; 2]; 2]) -> [[f64; 4]; 4] {
+fn jac(
+    mm: [[f64; 2]; 2],
+    mt: [[f64; 2]; 2],
+    vm: [[f64; 2]; 2],
+    vt: [[f64; 2]; 2],
+) -> [[f64; 4]; 4] {
     let mut j = [[0.0; 4]; 4];
     for r in 0..2 {
         for c in 0..2 {

@@ -231,8 +231,8 @@ impl EpochsConfig {
             target: self.epochs[j].clone(),
             frame: self.frame.clone(),
             signatures: self.signatures.clone(),
-            matching: self.matching.clone(),
-            fit: self.fit.clone(),
+            matching: self.matching,
+            fit: self.fit,
             keypoints: self.keypoints.clone(),
             refine: Default::default(),
         }
@@ -577,6 +577,9 @@ pub fn epoch_names(inputs: &[SurveyInput], reserved: &[&str]) -> Vec<String> {
     out
 }
 
+/// An epoch placed in the base's frame: working points, own CRS, local grid unit.
+type Placed = (Vec<[f64; 2]>, Option<Crs>, Option<GridUnit>);
+
 /// Runs an epochs job: reads every epoch, matches the planned pairs, links and adjusts.
 /// Writes nothing. `reserved`: column names the epoch names must avoid.
 pub fn run(
@@ -601,11 +604,14 @@ pub fn run(
         message: e
             .to_string()
             .replace("reference.crs", "the base epoch's crs")
-            .replace("target.crs", "this epoch's crs (crs in its [[epoch]] block)")
+            .replace(
+                "target.crs",
+                "this epoch's crs (crs in its [[epoch]] block)",
+            )
             .replace("the reference", "the base epoch")
             .replace("the target", "this epoch"),
     };
-    let mut placed: Vec<Option<(Vec<[f64; 2]>, Option<Crs>, Option<GridUnit>)>> = vec![None; n];
+    let mut placed: Vec<Option<Placed>> = vec![None; n];
     let mut base_frame: Option<WorkingFrame> = None;
     for k in (0..n).filter(|k| *k != base) {
         let f = frame::working_frame(
@@ -615,9 +621,22 @@ pub fn run(
             config.epochs[k].crs.as_deref(),
             &config.frame,
         )
-        .map_err(|e| frame_error(if matches!(e, frame::FrameError::LocalReference) { base } else { k }, e))?;
+        .map_err(|e| {
+            frame_error(
+                if matches!(e, frame::FrameError::LocalReference) {
+                    base
+                } else {
+                    k
+                },
+                e,
+            )
+        })?;
         let mut f = f;
-        placed[k] = Some((std::mem::take(&mut f.target), f.target_crs.clone(), f.target_unit));
+        placed[k] = Some((
+            std::mem::take(&mut f.target),
+            f.target_crs.clone(),
+            f.target_unit,
+        ));
         if base_frame.is_none() {
             placed[base] = Some((
                 std::mem::take(&mut f.reference),
@@ -865,7 +884,10 @@ pub fn combine(
         let (stat, dof) = track_statistic(obs, &joint);
         let p_value = adjust::chi2_sf_even(stat, dof);
         let pts: Vec<[f64; 2]> = positions.iter().flatten().copied().collect();
-        let w: Vec<f64> = obs.iter().map(|(k, _)| 1.0 / joint.sigma[*k].max(1e-300).powi(2)).collect();
+        let w: Vec<f64> = obs
+            .iter()
+            .map(|(k, _)| 1.0 / joint.sigma[*k].max(1e-300).powi(2))
+            .collect();
         let sw: f64 = w.iter().sum();
         let mean = pts.iter().zip(&w).fold([0.0, 0.0], |a, (p, w)| {
             [a[0] + w * p[0] / sw, a[1] + w * p[1] / sw]
@@ -873,7 +895,11 @@ pub fn combine(
         let m = pts.len() as f64;
         let plain = centroid(&pts);
         let sd = |axis: usize| {
-            (pts.iter().map(|p| (p[axis] - plain[axis]).powi(2)).sum::<f64>() / (m - 1.0)).sqrt()
+            (pts.iter()
+                .map(|p| (p[axis] - plain[axis]).powi(2))
+                .sum::<f64>()
+                / (m - 1.0))
+                .sqrt()
                 * mpu
         };
         let mut largest = 0.0f64;
@@ -945,7 +971,9 @@ pub fn combine(
             let g_scale = [a / s, b / s];
             let g_rot = [-b / (s * s), a / (s * s)];
             let quad = |g: [f64; 2]| {
-                (g[0] * g[0] * c.cov[0][0] + 2.0 * g[0] * g[1] * c.cov[0][1] + g[1] * g[1] * c.cov[1][1])
+                (g[0] * g[0] * c.cov[0][0]
+                    + 2.0 * g[0] * g[1] * c.cov[0][1]
+                    + g[1] * g[1] * c.cov[1][1])
                     .max(0.0)
                     .sqrt()
             };
@@ -956,9 +984,16 @@ pub fn combine(
                 origin: origins[k],
                 se_scale: quad(g_scale),
                 se_rotation: quad(g_rot),
-                se_position_m: [c.cov[2][2].max(0.0).sqrt() * mpu, c.cov[3][3].max(0.0).sqrt() * mpu],
+                se_position_m: [
+                    c.cov[2][2].max(0.0).sqrt() * mpu,
+                    c.cov[3][3].max(0.0).sqrt() * mpu,
+                ],
                 landmarks: count,
-                rms_m: if count > 0 { (sum / (2 * count) as f64).sqrt() } else { 0.0 },
+                rms_m: if count > 0 {
+                    (sum / (2 * count) as f64).sqrt()
+                } else {
+                    0.0
+                },
                 sigma_m: joint.sigma[k] * mpu,
             })
         })
@@ -996,7 +1031,14 @@ fn track_statistic(obs: &[Obs], joint: &adjust::Joint) -> (f64, usize) {
         .filter_map(|(k, p)| {
             let t = joint.transforms[*k]?;
             let s = joint.sigma[*k];
-            Some((t.apply(*p), if s > 0.0 { 1.0 / (s * s) } else { f64::INFINITY }))
+            Some((
+                t.apply(*p),
+                if s > 0.0 {
+                    1.0 / (s * s)
+                } else {
+                    f64::INFINITY
+                },
+            ))
         })
         .collect();
     if u.len() < 2 || u.iter().any(|(_, w)| !w.is_finite()) {
@@ -1057,16 +1099,15 @@ fn closure_checks(
         let at = centroid(&ji.1);
         let c = adjust::closure(&ji.0, &ib.0, &jb.0, at);
         let chain = |q: [f64; 2]| ib.0.apply(ji.0.apply(q));
-        let largest = ji
-            .1
-            .iter()
-            .map(|q| crate::spatial::dist2(chain(*q), jb.0.apply(*q)).sqrt())
-            .fold(0.0, f64::max);
-        let chain_m = [
-            c.delta[0] + jb.0.theta[0],
-            c.delta[1] + jb.0.theta[1],
-        ];
-        let (dm_s, dm_r) = (jb.0.theta[0].hypot(jb.0.theta[1]), jb.0.theta[1].atan2(jb.0.theta[0]));
+        let largest =
+            ji.1.iter()
+                .map(|q| crate::spatial::dist2(chain(*q), jb.0.apply(*q)).sqrt())
+                .fold(0.0, f64::max);
+        let chain_m = [c.delta[0] + jb.0.theta[0], c.delta[1] + jb.0.theta[1]];
+        let (dm_s, dm_r) = (
+            jb.0.theta[0].hypot(jb.0.theta[1]),
+            jb.0.theta[1].atan2(jb.0.theta[0]),
+        );
         let rot = chain_m[1].atan2(chain_m[0]) - dm_r;
         out.push(ClosureCheck {
             epochs: [base, i, j],
@@ -1098,7 +1139,10 @@ mod tests {
         );
         assert_eq!(plan_pairs(5, 0, PairPlan::All).len(), 10);
         for n in 2..12 {
-            assert_eq!(plan_pairs(n, 0, PairPlan::BaseAndNeighbours).len(), 2 * n - 3);
+            assert_eq!(
+                plan_pairs(n, 0, PairPlan::BaseAndNeighbours).len(),
+                2 * n - 3
+            );
         }
     }
 

@@ -147,7 +147,10 @@ mod tests {
         assert_eq!(t.agreeing, 1);
         assert_eq!(
             t.tracks,
-            vec![vec![Some(0), Some(0), Some(0)], vec![Some(1), None, Some(1)]]
+            vec![
+                vec![Some(0), Some(0), Some(0)],
+                vec![Some(1), None, Some(1)]
+            ]
         );
     }
 

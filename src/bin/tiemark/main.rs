@@ -171,11 +171,11 @@ fn run_epochs(
         Ok(d) => d,
         Err(e) => return error(&e),
     };
-    let outcome = match tiemark::epochs::run(config, &emit::epochs::COLUMNS, &bars::Bars::new(quiet))
-    {
-        Ok(o) => o,
-        Err(e) => return error(&e),
-    };
+    let outcome =
+        match tiemark::epochs::run(config, &emit::epochs::COLUMNS, &bars::Bars::new(quiet)) {
+            Ok(o) => o,
+            Err(e) => return error(&e),
+        };
     let summary = render(&emit::epochs::summary(&outcome));
     if !outcome.library.unjoined().is_empty() {
         print(&summary);
