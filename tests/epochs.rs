@@ -473,3 +473,75 @@ fn a_perturbed_transform_is_flagged_by_closure_and_consistent_ones_are_not() {
     // overlapping subsets, as the pairs of a real run do: at most 3.5 %.
     assert!(false_alarms <= 7, "false alarms {false_alarms} of {runs}");
 }
+
+#[test]
+fn the_sample_library_is_written_and_its_tracks_are_true() {
+    // The bundled sample epochs (sample-data/epochs.rs) through the binary, with a pipeline
+    // file like pipelines/control-point-library.toml writing into a temporary folder.
+    let tmp = tempfile::tempdir().unwrap();
+    let sample = root().join("sample-data");
+    let mut toml = String::new();
+    for (stem, crs) in [
+        ("epoch-2019", "EPSG:32633"),
+        ("epoch-2021", "EPSG:32633"),
+        ("epoch-2023", "EPSG:32633"),
+        ("epoch-2024-site-grid", "local:m"),
+        ("epoch-2026", "EPSG:32633"),
+    ] {
+        toml += &format!(
+            "[[epoch]]\npath = {:?}\nid = \"point\"\ncrs = \"{crs}\"\n\n",
+            sample.join(format!("{stem}.csv"))
+        );
+    }
+    toml += "[epochs]\nmin_epochs = 4\n\n[output]\ndir = \"library\"\n";
+    let pipeline = tmp.path().join("library.toml");
+    std::fs::write(&pipeline, toml).unwrap();
+    let out = std::process::Command::new(env!("CARGO_BIN_EXE_tiemark"))
+        .args(["run", pipeline.to_str().unwrap(), "--quiet"])
+        .output()
+        .unwrap();
+    let stdout = String::from_utf8_lossy(&out.stdout);
+    assert_eq!(out.status.code(), Some(0), "{stdout}");
+    assert!(stdout.contains("verified against independent checkpoints"));
+    let dir = tmp.path().join("library");
+    for f in tiemark::emit::epochs::FILES {
+        assert!(dir.join(f).is_file(), "{f}");
+    }
+    // Every kept track is one building of the truth, seen in at least four epochs.
+    let truth = std::fs::read_to_string(sample.join("epochs-true-tracks.csv")).unwrap();
+    let mut building_of: HashMap<String, String> = HashMap::new();
+    for line in truth.lines().skip(1) {
+        let f: Vec<&str> = line.split(',').collect();
+        for id in &f[1..] {
+            if !id.is_empty() {
+                building_of.insert(id.to_string(), f[0].to_string());
+            }
+        }
+    }
+    let csv = std::fs::read_to_string(dir.join("persistent-control-points.csv")).unwrap();
+    let mut lines = csv.lines();
+    assert_eq!(
+        lines.next().unwrap(),
+        "track,epoch-2019,epoch-2021,epoch-2023,epoch-2024-site-grid,epoch-2026,epochs_seen,x,y,sd_x_m,sd_y_m,largest_movement_m,grade"
+    );
+    let (mut rows, mut true_rows) = (0, 0);
+    for line in lines {
+        let f: Vec<&str> = line.split(',').collect();
+        let ids: Vec<&str> = f[1..6].iter().copied().filter(|s| !s.is_empty()).collect();
+        assert!(ids.len() >= 4 && f[6] == ids.len().to_string(), "{line}");
+        let buildings: HashSet<&String> = ids.iter().map(|i| &building_of[*i]).collect();
+        rows += 1;
+        if buildings.len() == 1 {
+            true_rows += 1;
+        }
+    }
+    assert!(rows > 200, "{rows}");
+    assert!(
+        true_rows as f64 >= 0.99 * rows as f64,
+        "{true_rows} of {rows}"
+    );
+    let doc: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(dir.join("epochs.json")).unwrap()).unwrap();
+    assert_eq!(doc["counts"]["kept"].as_u64().unwrap() as usize, rows);
+    assert_eq!(doc["epochs"].as_array().unwrap().len(), 5);
+}
