@@ -545,3 +545,79 @@ fn the_sample_library_is_written_and_its_tracks_are_true() {
     assert_eq!(doc["counts"]["kept"].as_u64().unwrap() as usize, rows);
     assert_eq!(doc["epochs"].as_array().unwrap().len(), 5);
 }
+
+/// The speed benchmark (not run in CI; `cargo test --release --test epochs -- --ignored
+/// --nocapture ten_epochs`): ten epochs of 100,000 landmarks (`TIEMARK_BENCH_EPOCH_SIZE` to
+/// change) from CSV files to the written library, in this process; prints the time of each
+/// part and the peak memory (VmHWM).
+#[test]
+#[ignore]
+fn ten_epochs_of_100000_landmarks() {
+    let size: usize = std::env::var("TIEMARK_BENCH_EPOCH_SIZE")
+        .ok()
+        .and_then(|s| s.parse().ok())
+        .unwrap_or(100_000);
+    let tmp = tempfile::tempdir().unwrap();
+    let mut rng = ChaCha8Rng::seed_from_u64(10);
+    // A uniform pattern at about 30 m spacing.
+    let side = (size as f64).sqrt() * 30.0;
+    let truth: Vec<[f64; 2]> = (0..size)
+        .map(|_| {
+            [
+                455_000.0 + rng.gen_range(0.0..side),
+                5_200_000.0 + rng.gen_range(0.0..side),
+            ]
+        })
+        .collect();
+    let noise = Normal::new(0.0, 0.1).unwrap();
+    let mut files = Vec::new();
+    for k in 0..10 {
+        let shift = [rng.gen_range(-3.0..3.0), rng.gen_range(-3.0..3.0)];
+        let mut text = String::from("id,x,y\n");
+        for (i, p) in truth.iter().enumerate() {
+            if rng.gen::<f64>() < 0.1 {
+                continue;
+            }
+            text += &format!(
+                "E{k}-{i},{:.3},{:.3}\n",
+                p[0] + shift[0] + noise.sample(&mut rng),
+                p[1] + shift[1] + noise.sample(&mut rng)
+            );
+        }
+        let path = tmp.path().join(format!("epoch-{k:02}.csv"));
+        std::fs::write(&path, text).unwrap();
+        files.push(path);
+    }
+    let mut cfg = EpochsConfig::new(files);
+    for e in &mut cfg.epochs {
+        e.id = Some("id".into());
+        e.crs = Some("EPSG:32633".into());
+    }
+    let start = std::time::Instant::now();
+    let outcome = epochs::run(&cfg, &tiemark::emit::epochs::COLUMNS, &Silent).unwrap();
+    let computed = start.elapsed();
+    let out = tiemark::emit::check_output_dir(
+        &tmp.path().join("library"),
+        false,
+        &tiemark::emit::epochs::FILES,
+        &[],
+    )
+    .unwrap();
+    let summary = tiemark::emit::epochs::summary(&outcome);
+    tiemark::emit::epochs::write_all(&outcome, &out, &summary).unwrap();
+    let total = start.elapsed();
+    let status = std::fs::read_to_string("/proc/self/status").unwrap_or_default();
+    let peak = status
+        .lines()
+        .find(|l| l.starts_with("VmHWM"))
+        .unwrap_or("VmHWM: ?");
+    println!(
+        "ten epochs of {size}: {} pairs matched, {} tracks, {} kept; read+match+adjust {:.1} s, with writing {:.1} s; {peak}",
+        outcome.pairs.len(),
+        outcome.library.counts.tracks,
+        outcome.library.counts.kept,
+        computed.as_secs_f64(),
+        total.as_secs_f64()
+    );
+    assert!(outcome.library.unjoined().is_empty());
+}
