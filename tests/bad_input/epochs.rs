@@ -126,3 +126,35 @@ fn the_output_onto_an_input() {
         &["reference.geojson", "never writes onto its inputs"],
     );
 }
+
+#[test]
+fn an_epoch_no_match_joins_exits_1_and_writes_nothing() {
+    // The valid pair joins; a third epoch of unrelated random points cannot be joined to the
+    // base: exit 1, the summary says which epoch and what to do, nothing written.
+    let site = Site::new();
+    let _ = site.valid_pair();
+    let mut rng = Lcg(99);
+    let rows: Vec<(String, String, String)> = (0..300)
+        .map(|i| {
+            (
+                format!("u{i}"),
+                format!("{:.3}", 5000.0 * rng.next()),
+                format!("{:.3}", 5000.0 * rng.next()),
+            )
+        })
+        .collect();
+    site.write("unrelated.csv", csv_text(&rows));
+    site.write(
+        "library.toml",
+        "[[epoch]]\npath = \"reference.geojson\"\n\n[[epoch]]\npath = \"target.csv\"\ncrs = \"local\"\n\n[[epoch]]\npath = \"unrelated.csv\"\ncrs = \"local\"\n\n[output]\ndir = \"library\"\n",
+    );
+    site.expect_failure(
+        &["run", "library.toml"],
+        1,
+        &[
+            "unrelated: NOT JOINED",
+            "leave it out",
+            "Nothing was written",
+        ],
+    );
+}
