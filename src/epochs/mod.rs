@@ -235,6 +235,9 @@ impl EpochsConfig {
             fit: self.fit,
             keypoints: self.keypoints.clone(),
             refine: Default::default(),
+            // The epochs' accuracy is the joint adjustment's; the pairwise matches state
+            // theirs from leave-one-out residuals (no checkpoints, no hold-out).
+            accuracy: Default::default(),
         }
     }
 }
