@@ -7,6 +7,7 @@
 
 use super::similarity::{fit_similarity_indexed, Similarity, SimilarityFit};
 use crate::spatial::PointIndex;
+use rayon::prelude::*;
 
 /// One control point: a reference and a target landmark paired by the final transform.
 #[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
@@ -31,9 +32,16 @@ pub struct Frames<'a> {
     pub target_index: &'a PointIndex,
 }
 
+/// Target landmarks one rayon task pairs.
+const LANDMARKS_PER_TASK: usize = 4096;
+
 /// Mutual nearest pairs under `s` within `tolerance`, for the target landmarks `subset`
 /// (all when `None`), and the number of those landmarks whose nearest reference landmark lies
 /// within `coverage` (the trials of the significance test). Pairs come in `subset` order.
+///
+/// The landmarks are shared between the threads of the current rayon pool in runs of
+/// consecutive ones, and the runs' pairs put back in order: the result does not depend on the
+/// number of threads.
 pub fn mutual_pairs(
     frames: &Frames,
     s: &Similarity,
@@ -44,33 +52,45 @@ pub fn mutual_pairs(
     let inv = s.inverse();
     let tol2 = tolerance * tolerance;
     let cov2 = coverage * coverage;
-    let mut pairs = Vec::new();
-    let mut covered = 0;
-    let mut visit = |t: u32| {
+    // Landmark `t`: its pair, if any, pushed to `pairs`; true when it is covered.
+    let visit = |t: u32, pairs: &mut Vec<Pair>| -> bool {
         let p = s.apply(frames.target[t as usize]);
         let Some((r, d2)) = frames.reference_index.nearest(p) else {
-            return;
+            return false;
         };
-        if d2 < cov2 {
-            covered += 1;
-        }
-        if d2 >= tol2 {
-            return;
-        }
-        let q = inv.apply(frames.reference[r as usize]);
-        if let Some((back, _)) = frames.target_index.nearest(q) {
-            if back == t {
-                pairs.push(Pair {
-                    reference: r,
-                    target: t,
-                    residual: d2.sqrt(),
-                });
+        if d2 < tol2 {
+            let q = inv.apply(frames.reference[r as usize]);
+            if let Some((back, _)) = frames.target_index.nearest(q) {
+                if back == t {
+                    pairs.push(Pair {
+                        reference: r,
+                        target: t,
+                        residual: d2.sqrt(),
+                    });
+                }
             }
         }
+        d2 < cov2
     };
-    match subset {
-        Some(ids) => ids.iter().for_each(|&t| visit(t)),
-        None => (0..frames.target.len() as u32).for_each(&mut visit),
+    let total = subset.map_or(frames.target.len(), <[u32]>::len);
+    let at = |i: usize| subset.map_or(i as u32, |ids| ids[i]);
+    let runs: Vec<(Vec<Pair>, usize)> = (0..total.div_ceil(LANDMARKS_PER_TASK))
+        .into_par_iter()
+        .map(|run| {
+            let mut pairs = Vec::new();
+            let mut covered = 0;
+            let end = ((run + 1) * LANDMARKS_PER_TASK).min(total);
+            for i in run * LANDMARKS_PER_TASK..end {
+                covered += usize::from(visit(at(i), &mut pairs));
+            }
+            (pairs, covered)
+        })
+        .collect();
+    let mut pairs = Vec::with_capacity(runs.iter().map(|r| r.0.len()).sum());
+    let mut covered = 0;
+    for (p, c) in runs {
+        pairs.extend_from_slice(&p);
+        covered += c;
     }
     (pairs, covered)
 }

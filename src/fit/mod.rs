@@ -27,6 +27,7 @@ use crate::matching::Candidate;
 use crate::signatures::Signatures;
 use crate::spatial::PointIndex;
 use guided::{guided_match, Frames};
+use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 use significance::Significance;
 
@@ -747,33 +748,42 @@ fn decoy_chance_rate(
         let p = frames.target[i as usize];
         [a[0] + p[0] / n, a[1] + p[1] / n]
     });
-    let mut worst: f64 = 0.0;
-    for d in 0..DECOYS {
-        let axis = std::f64::consts::PI * (d as f64 + rng.gen::<f64>()) / DECOYS as f64;
-        let (cos2, sin2) = ((2.0 * axis).cos(), (2.0 * axis).sin());
-        let mirrored: Vec<[f64; 2]> = subset
-            .iter()
-            .map(|&i| {
-                let p = frames.target[i as usize];
-                let (x, y) = (p[0] - c[0], p[1] - c[1]);
-                [c[0] + cos2 * x + sin2 * y, c[1] + sin2 * x - cos2 * y]
-            })
-            .collect();
-        let Some(index) = PointIndex::new(&mirrored) else {
-            continue;
-        };
-        let decoy = Frames {
-            reference: frames.reference,
-            target: &mirrored,
-            reference_index: frames.reference_index,
-            target_index: &index,
-        };
-        let g = guided_match(&decoy, *s, tolerance, coverage, None, 10);
-        if g.covered > 0 {
-            worst = worst.max(g.pairs.len() as f64 / g.covered as f64);
-        }
-    }
-    worst
+    // The mirror axes are drawn first, in decoy order, from the one seeded stream; then the
+    // decoys run in parallel, each on its own axis, and the highest rate is kept. The rate is
+    // the same whatever the number of threads.
+    let axes: Vec<f64> = (0..DECOYS)
+        .map(|d| std::f64::consts::PI * (d as f64 + rng.gen::<f64>()) / DECOYS as f64)
+        .collect();
+    let rates: Vec<f64> = axes
+        .par_iter()
+        .map(|&axis| {
+            let (cos2, sin2) = ((2.0 * axis).cos(), (2.0 * axis).sin());
+            let mirrored: Vec<[f64; 2]> = subset
+                .iter()
+                .map(|&i| {
+                    let p = frames.target[i as usize];
+                    let (x, y) = (p[0] - c[0], p[1] - c[1]);
+                    [c[0] + cos2 * x + sin2 * y, c[1] + sin2 * x - cos2 * y]
+                })
+                .collect();
+            let Some(index) = PointIndex::new(&mirrored) else {
+                return 0.0;
+            };
+            let decoy = Frames {
+                reference: frames.reference,
+                target: &mirrored,
+                reference_index: frames.reference_index,
+                target_index: &index,
+            };
+            let g = guided_match(&decoy, *s, tolerance, coverage, None, 10);
+            if g.covered > 0 {
+                g.pairs.len() as f64 / g.covered as f64
+            } else {
+                0.0
+            }
+        })
+        .collect();
+    rates.into_iter().fold(0.0, f64::max)
 }
 
 #[cfg(test)]

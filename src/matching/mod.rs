@@ -7,7 +7,9 @@
 //! The reference keys go into a kiddo k-d tree of the keys' dimension (per harmonic 2 in the
 //! unit disc, 3 on the unit sphere: 2, 3, 4 or 6); every target key asks for its nearest few.
 //! Queries run in Morton order of the keys' first two coordinates, so that consecutive queries
-//! touch nearby leaves.
+//! touch nearby leaves, shared between the threads of the current rayon pool in runs of
+//! consecutive queries; the candidates are the same, in the same order, whatever the number of
+//! threads.
 
 mod params;
 
@@ -17,6 +19,7 @@ use crate::signatures::Signatures;
 use crate::spatial::morton_order;
 use kiddo::kd_tree::ConstructionError;
 use kiddo::{ImmutableKdTree, SquaredEuclidean};
+use rayon::prelude::*;
 use std::num::NonZero;
 
 /// Why the candidates could not be found.
@@ -154,11 +157,11 @@ pub fn candidates(
     Ok(out)
 }
 
-fn as_points<const K: usize>(s: &Signatures) -> Vec<[f64; K]> {
-    s.keys
-        .chunks_exact(K)
-        .map(|c| std::array::from_fn(|d| c[d]))
-        .collect()
+/// Key `i` of `s` as a point of the key space.
+#[inline]
+fn key_point<const K: usize>(s: &Signatures, i: usize) -> [f64; K] {
+    let k = &s.keys[i * K..(i + 1) * K];
+    std::array::from_fn(|d| k[d])
 }
 
 /// The arguments of one [`candidates`] call.
@@ -168,6 +171,9 @@ struct Query<'a> {
     per_query: usize,
     rank: Rank,
 }
+
+/// Target signatures one rayon task queries.
+const QUERIES_PER_TASK: usize = 8192;
 
 fn candidates_k<const K: usize>(
     q: &Query,
@@ -181,15 +187,22 @@ fn candidates_k<const K: usize>(
     let (Some(n), false) = (NonZero::new(fetch), reference.is_empty()) else {
         return Ok(Vec::new());
     };
-    let rkeys = as_points::<K>(reference);
-    let tree = ImmutableKdTree::<f64, K>::new_from_slice(&rkeys)
-        .map_err(|e| MatchingError::from_kiddo(e, K, rkeys.len()))?;
-    let tkeys = as_points::<K>(target);
-    let first_two: Vec<[f64; 2]> = tkeys.iter().map(|k| [k[0], k[1]]).collect();
-    let mut out = Vec::with_capacity(target.len() * per_query);
-    for (i, &t) in morton_order(&first_two).iter().enumerate() {
+    // The tree keeps its own copy of the keys: the flat copy it is built from goes at once.
+    let tree = {
+        let rkeys: Vec<[f64; K]> = (0..reference.len())
+            .map(|i| key_point(reference, i))
+            .collect();
+        ImmutableKdTree::<f64, K>::new_from_slice(&rkeys)
+            .map_err(|e| MatchingError::from_kiddo(e, K, rkeys.len()))?
+    };
+    let order = {
+        let first_two: Vec<[f64; 2]> = target.keys.chunks_exact(K).map(|k| [k[0], k[1]]).collect();
+        morton_order(&first_two)
+    };
+    // One query: its candidates appended to `out`.
+    let query = |t: u32, out: &mut Vec<Candidate>| {
         let found = tree
-            .query(&tkeys[t as usize])
+            .query(&key_point::<K>(target, t as usize))
             .nearest_n::<SquaredEuclidean<f64>>(n)
             .execute();
         let start = out.len();
@@ -208,11 +221,28 @@ fn candidates_k<const K: usize>(
             mine.sort_by(|a, b| a.score.total_cmp(&b.score));
             out.truncate(start + per_query);
         }
-        if i % 65536 == 65535 {
-            progress(i + 1);
+    };
+    // Queries in Morton order, in tasks of consecutive queries, one batch of tasks per thread
+    // at a time; the tasks' candidates are appended in task order, so the result does not
+    // depend on the number of threads.
+    let mut out = Vec::with_capacity(target.len() * per_query);
+    let batch = QUERIES_PER_TASK * rayon::current_num_threads().max(1);
+    let mut done = 0;
+    for queries in order.chunks(batch) {
+        let found: Vec<Vec<Candidate>> = queries
+            .par_chunks(QUERIES_PER_TASK)
+            .map(|ids| {
+                let mut mine = Vec::with_capacity(ids.len() * per_query);
+                ids.iter().for_each(|&t| query(t, &mut mine));
+                mine
+            })
+            .collect();
+        for f in found {
+            out.extend_from_slice(&f);
         }
+        done += queries.len();
+        progress(done);
     }
-    progress(target.len());
     Ok(out)
 }
 

@@ -21,6 +21,7 @@ pub use fourier::KeySpace;
 pub use neighbourhood::VertexOrder;
 
 use crate::spatial::Survey;
+use rayon::prelude::*;
 use rustfft::num_complex::Complex64;
 use serde::{Deserialize, Serialize};
 
@@ -438,7 +439,12 @@ impl SignatureParams {
 /// per-signature noise sensitivity ([`Signatures::sensitivity`]) is computed only when
 /// `with_sensitivity` is set (a ranking that reads it); otherwise it is left empty.
 ///
-/// `progress` is called with the number of landmarks done so far, in chunks.
+/// The landmarks are taken in chunks of [`CHUNK_LANDMARKS`] (of `survey.order`); the chunks
+/// of a batch, one per thread of the current rayon pool, are built in parallel and appended in
+/// chunk order, so the signatures are the same, in the same order, whatever the number of
+/// threads (run inside [`rayon::ThreadPool::install`] to choose it).
+///
+/// `progress` is called with the number of landmarks done so far, after each batch.
 pub fn compute(
     role: &str,
     survey: &Survey,
@@ -446,21 +452,35 @@ pub fn compute(
     with_sensitivity: bool,
     progress: &mut dyn FnMut(usize),
 ) -> Result<Signatures, SignatureError> {
-    let (points, index) = (survey.points, survey.index);
+    let points = survey.points;
     params.validate()?;
     let k = params.neighbours;
     let n = k + 1;
     if points.len() < n + params.leave_out {
         return Err(too_few(role, points.len(), None, params));
     }
-    let mut plan = fourier::RatioPlan::new(n, &params.harmonics);
     let per = params.harmonics.len();
-    let perm = params.permuted.then(|| permutation::fixed_permutation(n));
-    const CHUNK: usize = CHUNK_LANDMARKS;
+    let pool = k + params.leave_out;
+    let subsets = subsets(pool, params.leave_out);
+    let builder = ChunkBuilder {
+        role,
+        survey,
+        params,
+        with_sensitivity,
+        n,
+        per,
+        key_dims: params.key_space.dims() * per,
+        pool,
+        // Most signatures one landmark yields: every subset, each walk branching up to
+        // MAX_ORDERS.
+        most_per_landmark: subsets.len() * neighbourhood::MAX_ORDERS,
+        subsets,
+        perm: params.permuted.then(|| permutation::fixed_permutation(n)),
+    };
     let mut sigs = Signatures {
         vertices_per_polygon: n,
         polygons: Vec::new(),
-        key_dims: params.key_space.dims() * per,
+        key_dims: builder.key_dims,
         keys: Vec::new(),
         sensitivity: Vec::new(),
     };
@@ -472,95 +492,188 @@ pub fn compute(
         points.len().saturating_mul(sigs.key_dims),
         role,
     )?;
-    let pool = k + params.leave_out;
-    let subsets = subsets(pool, params.leave_out);
-    // Most signatures one landmark yields: every subset, each walk branching up to MAX_ORDERS.
-    let most_per_landmark = subsets.len() * neighbourhood::MAX_ORDERS;
-    let mut key = Vec::with_capacity(3 * per);
-    let mut found = Vec::with_capacity(pool + 1);
-    let mut nbrs = Vec::with_capacity(pool);
-    let mut subset = Vec::with_capacity(k);
-    let mut buffer: Vec<Complex64> = Vec::with_capacity(CHUNK * n);
-    let mut ratios = Vec::with_capacity(CHUNK * per);
-    let mut sens = Vec::with_capacity(CHUNK);
-    let mut chunk_polys: Vec<u32> = Vec::with_capacity(CHUNK * n);
-    let mut vertices: Vec<Complex64> = Vec::with_capacity(n);
-    let mut scratch = Vec::with_capacity(n);
-    for (done, chunk) in survey.order.chunks(CHUNK).enumerate() {
-        buffer.clear();
-        ratios.clear();
-        sens.clear();
-        chunk_polys.clear();
+    let batch = CHUNK_LANDMARKS * rayon::current_num_threads().max(1);
+    let mut done = 0;
+    for landmarks in survey.order.chunks(batch) {
+        let built: Vec<Result<ChunkSignatures, SignatureError>> = landmarks
+            .par_chunks(CHUNK_LANDMARKS)
+            .map_init(
+                || ChunkScratch::new(n, &params.harmonics),
+                |scratch, chunk| builder.build(scratch, chunk),
+            )
+            .collect();
+        for chunk in built {
+            let chunk = chunk?;
+            reserve(&mut sigs.keys, chunk.keys.len(), role)?;
+            reserve(&mut sigs.polygons, chunk.polygons.len(), role)?;
+            reserve(&mut sigs.sensitivity, chunk.sensitivity.len(), role)?;
+            sigs.keys.extend_from_slice(&chunk.keys);
+            sigs.polygons.extend_from_slice(&chunk.polygons);
+            sigs.sensitivity.extend_from_slice(&chunk.sensitivity);
+        }
+        done += landmarks.len();
+        progress(done);
+    }
+    Ok(sigs)
+}
+
+/// What [`compute`] needs to build the signatures of one chunk of landmarks (shared, read
+/// only, by the threads).
+struct ChunkBuilder<'a> {
+    role: &'a str,
+    survey: &'a Survey<'a>,
+    params: &'a SignatureParams,
+    with_sensitivity: bool,
+    /// Vertices per polygon (k + 1).
+    n: usize,
+    /// Harmonics.
+    per: usize,
+    key_dims: usize,
+    /// Neighbours fetched per landmark (k + leave-out).
+    pool: usize,
+    most_per_landmark: usize,
+    subsets: Vec<Vec<usize>>,
+    perm: Option<Vec<usize>>,
+}
+
+/// One chunk's signatures, in the layout of [`Signatures`].
+struct ChunkSignatures {
+    keys: Vec<f64>,
+    polygons: Vec<u32>,
+    sensitivity: Vec<f32>,
+}
+
+/// One thread's working buffers, kept from chunk to chunk.
+struct ChunkScratch {
+    plan: fourier::RatioPlan,
+    key: Vec<f64>,
+    found: Vec<(u32, f64)>,
+    nbrs: Vec<u32>,
+    subset: Vec<u32>,
+    buffer: Vec<Complex64>,
+    ratios: Vec<Complex64>,
+    sens: Vec<f32>,
+    polys: Vec<u32>,
+    vertices: Vec<Complex64>,
+    scratch: Vec<Complex64>,
+}
+
+impl ChunkScratch {
+    fn new(n: usize, harmonics: &[usize]) -> ChunkScratch {
+        ChunkScratch {
+            plan: fourier::RatioPlan::new(n, harmonics),
+            key: Vec::new(),
+            found: Vec::new(),
+            nbrs: Vec::new(),
+            subset: Vec::new(),
+            buffer: Vec::new(),
+            ratios: Vec::new(),
+            sens: Vec::new(),
+            polys: Vec::new(),
+            vertices: Vec::new(),
+            scratch: Vec::new(),
+        }
+    }
+}
+
+impl ChunkBuilder<'_> {
+    /// The signatures of the landmarks `chunk`, in its order.
+    fn build(
+        &self,
+        s: &mut ChunkScratch,
+        chunk: &[u32],
+    ) -> Result<ChunkSignatures, SignatureError> {
+        let (points, index, params, role) = (
+            self.survey.points,
+            self.survey.index,
+            self.params,
+            self.role,
+        );
+        let (n, per, pool) = (self.n, self.per, self.pool);
+        s.buffer.clear();
+        s.ratios.clear();
+        s.sens.clear();
+        s.polys.clear();
         for &c in chunk {
-            index.nearest_n(points[c as usize], pool + 1, &mut found);
-            nbrs.clear();
-            nbrs.extend(found.iter().map(|x| x.0).filter(|&i| i != c).take(pool));
-            if nbrs.len() < pool {
+            index.nearest_n(points[c as usize], pool + 1, &mut s.found);
+            s.nbrs.clear();
+            s.nbrs
+                .extend(s.found.iter().map(|x| x.0).filter(|&i| i != c).take(pool));
+            if s.nbrs.len() < pool {
                 continue;
             }
             let o = points[c as usize];
-            reserve(&mut chunk_polys, most_per_landmark * n, role)?;
-            reserve(&mut buffer, most_per_landmark * n, role)?;
-            for omit in &subsets {
-                subset.clear();
-                subset.extend(
-                    nbrs.iter()
+            reserve(&mut s.polys, self.most_per_landmark * n, role)?;
+            reserve(&mut s.buffer, self.most_per_landmark * n, role)?;
+            for omit in &self.subsets {
+                s.subset.clear();
+                s.subset.extend(
+                    s.nbrs
+                        .iter()
                         .enumerate()
                         .filter(|(i, _)| !omit.contains(i))
                         .map(|(_, &v)| v),
                 );
-                let start = chunk_polys.len();
+                let start = s.polys.len();
                 neighbourhood::order_polygons(
                     params.order,
                     points,
                     c,
-                    &subset,
+                    &s.subset,
                     params.ambiguity,
-                    &mut chunk_polys,
+                    &mut s.polys,
                 );
-                for poly in chunk_polys[start..].chunks_exact(n) {
-                    vertices.clear();
-                    vertices.extend(poly.iter().map(|&v| {
+                for poly in s.polys[start..].chunks_exact(n) {
+                    s.vertices.clear();
+                    s.vertices.extend(poly.iter().map(|&v| {
                         Complex64::new(points[v as usize][0] - o[0], points[v as usize][1] - o[1])
                     }));
-                    if let Some(p) = &perm {
-                        permutation::apply(p, &mut vertices, &mut scratch);
+                    if let Some(p) = &self.perm {
+                        permutation::apply(p, &mut s.vertices, &mut s.scratch);
                     }
-                    buffer.extend_from_slice(&vertices);
+                    s.buffer.extend_from_slice(&s.vertices);
                 }
             }
         }
-        let polygons = buffer.len() / n;
-        reserve(&mut ratios, polygons * per, role)?;
-        if with_sensitivity {
-            reserve(&mut sens, polygons, role)?;
-            plan.ratios_and_sensitivity(&mut buffer, params.key_space, &mut ratios, &mut sens);
+        let polygons = s.buffer.len() / n;
+        reserve(&mut s.ratios, polygons * per, role)?;
+        if self.with_sensitivity {
+            reserve(&mut s.sens, polygons, role)?;
+            s.plan.ratios_and_sensitivity(
+                &mut s.buffer,
+                params.key_space,
+                &mut s.ratios,
+                &mut s.sens,
+            );
         } else {
-            plan.ratios(&mut buffer, &mut ratios);
+            s.plan.ratios(&mut s.buffer, &mut s.ratios);
         }
-        let made = ratios.len() / per;
-        reserve(&mut sigs.keys, made * sigs.key_dims, role)?;
-        reserve(&mut sigs.polygons, made * n, role)?;
-        if with_sensitivity {
-            reserve(&mut sigs.sensitivity, made, role)?;
+        let made = s.ratios.len() / per;
+        let mut out = ChunkSignatures {
+            keys: Vec::new(),
+            polygons: Vec::new(),
+            sensitivity: Vec::new(),
+        };
+        reserve(&mut out.keys, made * self.key_dims, role)?;
+        reserve(&mut out.polygons, made * n, role)?;
+        if self.with_sensitivity {
+            reserve(&mut out.sensitivity, made, role)?;
         }
-        for (i, rs) in ratios.chunks_exact(per).enumerate() {
-            key.clear();
+        for (i, rs) in s.ratios.chunks_exact(per).enumerate() {
+            s.key.clear();
             for &r in rs {
-                params.key_space.push(r, &mut key);
+                params.key_space.push(r, &mut s.key);
             }
-            if key.iter().all(|v| v.is_finite()) {
-                sigs.keys.extend_from_slice(&key);
-                if with_sensitivity {
-                    sigs.sensitivity.push(sens[i]);
+            if s.key.iter().all(|v| v.is_finite()) {
+                out.keys.extend_from_slice(&s.key);
+                if self.with_sensitivity {
+                    out.sensitivity.push(s.sens[i]);
                 }
-                sigs.polygons
-                    .extend_from_slice(&chunk_polys[i * n..(i + 1) * n]);
+                out.polygons.extend_from_slice(&s.polys[i * n..(i + 1) * n]);
             }
         }
-        progress(((done + 1) * CHUNK).min(points.len()));
+        Ok(out)
     }
-    Ok(sigs)
 }
 
 /// Reserves room for `additional` more elements in `v`, or says that the machine has no
