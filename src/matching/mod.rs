@@ -187,14 +187,10 @@ fn candidates_k<const K: usize>(
     let (Some(n), false) = (NonZero::new(fetch), reference.is_empty()) else {
         return Ok(Vec::new());
     };
-    // The tree keeps its own copy of the keys: the flat copy it is built from goes at once.
-    let tree = {
-        let rkeys: Vec<[f64; K]> = (0..reference.len())
-            .map(|i| key_point(reference, i))
-            .collect();
-        ImmutableKdTree::<f64, K>::new_from_slice(&rkeys)
-            .map_err(|e| MatchingError::from_kiddo(e, K, rkeys.len()))?
-    };
+    // The tree is built from the keys where they lie (no copy of them as points first).
+    let (rkeys, _) = reference.keys.as_chunks::<K>();
+    let tree = ImmutableKdTree::<f64, K>::new_from_slice(rkeys)
+        .map_err(|e| MatchingError::from_kiddo(e, K, rkeys.len()))?;
     let order = {
         let first_two: Vec<[f64; 2]> = target.keys.chunks_exact(K).map(|k| [k[0], k[1]]).collect();
         morton_order(&first_two)

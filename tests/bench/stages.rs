@@ -11,7 +11,8 @@
 //! changed by `TIEMARK_K`, `TIEMARK_LEAVE_OUT`, `TIEMARK_H` and `TIEMARK_KEY_SPACE`
 //! (`tests/common/overrides.rs`); `TIEMARK_MISSING`, `TIEMARK_EXTRA`, `TIEMARK_NOISE` the
 //! surveys;
-//! `TIEMARK_BENCH_VERBOSE=1` prints the robust fit's steps with their times.
+//! `TIEMARK_BENCH_VERBOSE=1` prints the robust fit's steps with their times, and the peak memory
+//! at the end of each stage.
 
 #[path = "../common/overrides.rs"]
 mod overrides;
@@ -45,6 +46,12 @@ impl Progress for StageClock {
     }
     fn end(&self) {
         if let Some((stage, t)) = self.started.borrow_mut().take() {
+            if self.verbose {
+                eprintln!(
+                    "  {stage}: done, peak memory so far {:.0} MB",
+                    peak_rss_mb()
+                );
+            }
             *self.seconds.borrow_mut().entry(stage).or_default() += t.elapsed().as_secs_f64();
         }
     }
