@@ -15,6 +15,7 @@
 //! | 5 | [`fit`] | candidates, positions | [`fit::Solution`] (transform, control points, significance) or [`fit::Rejection`] |
 //! | 5a | [`accuracy`] (pure) | point pairs, residual vectors (m) | [`accuracy::TransformStatement`] at the centroid; [`accuracy::Accuracy`]: RMSE, NSSDA 95 %, ASPRS RMSE_H |
 //! | 6 | [`emit`], [`report`] | an [`outcome::MatchOutcome`] | control-point files, transform, report |
+//! | drift | [`drift`] | an accepted [`outcome::MatchOutcome`], a tolerance | [`drift::Drift`]: verdict, global drift at the centroid, largest drift over the overlap, local drift areas |
 //!
 //! [`epochs`] builds a library of persistent control points from N surveys of one site: it
 //! runs the engine's matches on pairs of epochs, links landmarks into tracks and adjusts one
@@ -38,6 +39,7 @@
 
 pub mod accuracy;
 pub mod config;
+pub mod drift;
 pub mod emit;
 pub mod engine;
 pub mod epochs;
