@@ -10,7 +10,7 @@
 //!
 //! A pipeline file ([`PipelineFile`]) is TOML with the tables `[reference]`, `[target]`,
 //! `[output]`, `[frame]`, `[signatures]`, `[matching]`, `[fit]`, `[keypoints]`, `[refine]` and
-//! `[accuracy]`; every key is listed in the
+//! `[accuracy]` (and `[drift]` for a drift check); every key is listed in the
 //! README ("Pipeline files"). Unknown keys are an error with line and column; relative paths
 //! are taken from the pipeline file's folder. Errors name options by their pipeline-file key
 //! (`fit.search_radius_m`); the command line renders those as its flags.
@@ -110,6 +110,10 @@ pub struct PipelineFile {
     /// control points kept out of the fit).
     #[serde(default)]
     pub accuracy: AccuracyParams,
+    /// `[drift]`: with it, `tiemark run` makes the drift check (`tiemark drift`) instead of a
+    /// plain match.
+    #[serde(default)]
+    pub drift: Option<crate::drift::DriftParams>,
 }
 
 /// A configuration could not be used.
@@ -261,6 +265,7 @@ impl PipelineFile {
             keypoints,
             refine,
             accuracy,
+            drift: _,
         } = self;
         let config = MatchConfig {
             reference,

@@ -63,12 +63,8 @@ fn a_planted_global_drift_is_recovered_within_its_standard_errors() {
     // -0.3 m north (at the origin), 30 arc-seconds, +100 ppm. The synthetic generator takes the
     // target → reference truth, the inverse.
     for seed in [11u64, 12, 13] {
-        let drift = Similarity::from_params(
-            1.0 + 100e-6,
-            (30.0f64 / 3600.0).to_radians(),
-            0.5,
-            -0.3,
-        );
+        let drift =
+            Similarity::from_params(1.0 + 100e-6, (30.0f64 / 3600.0).to_radians(), 0.5, -0.3);
         let p = make_pair(&SynthParams {
             landmarks: 2000,
             missing: 0.15,
@@ -94,7 +90,10 @@ fn a_planted_global_drift_is_recovered_within_its_standard_errors() {
                 got.value,
                 got.se
             );
-            assert!(got.significant, "seed {seed}, parameter {k} not significant");
+            assert!(
+                got.significant,
+                "seed {seed}, parameter {k} not significant"
+            );
         }
         assert!(a.global.significant, "seed {seed}: {:?}", a.global);
         assert!(a.areas.is_empty(), "seed {seed}: {} areas", a.areas.len());
@@ -201,7 +200,12 @@ fn a_block_shifted_locally_is_found_and_located_on_the_airport_pattern() {
         })
         .collect();
     let a = drift_of(&reference, &target, 5).expect("a transform");
-    assert_eq!(a.areas.len(), 1, "{:?}", a.areas.iter().map(|x| x.members.len()).collect::<Vec<_>>());
+    assert_eq!(
+        a.areas.len(),
+        1,
+        "{:?}",
+        a.areas.iter().map(|x| x.members.len()).collect::<Vec<_>>()
+    );
     let area = &a.areas[0];
     let members: Vec<u32> = area.members.iter().map(|p| p.reference).collect();
     // Pairs are the true ones (target i is reference i).
@@ -229,9 +233,6 @@ fn a_block_shifted_locally_is_found_and_located_on_the_airport_pattern() {
     }
     assert!(area.p_value <= 0.05);
     // The rest follows the global transform: no global drift flagged, the block kept out.
-    assert!(a
-        .stable
-        .iter()
-        .all(|p| !members.contains(&p.reference)));
+    assert!(a.stable.iter().all(|p| !members.contains(&p.reference)));
     assert!(!a.global.significant, "{:?}", a.global);
 }

@@ -138,7 +138,13 @@ impl GlobalTest {
             s.scale_ppm,
         ]
         .iter()
-        .map(|e| if e.se > 0.0 { (e.value / e.se).powi(2) } else { 0.0 })
+        .map(|e| {
+            if e.se > 0.0 {
+                (e.value / e.se).powi(2)
+            } else {
+                0.0
+            }
+        })
         .sum();
         // Survival function of χ² with 4 degrees of freedom.
         let p_value = (-statistic / 2.0).exp() * (1.0 + statistic / 2.0);
@@ -187,7 +193,7 @@ pub struct Analysis {
 
 /// Radius of the wider guided pass: max(½ × median spacing, the search tolerance).
 pub fn search_radius(reference_spacing: f64, solution: &Solution) -> f64 {
-    (0.5 * reference_spacing).max(solution.search_tolerance)
+    (0.5 * reference_spacing).max(solution.search_radius)
 }
 
 /// Runs the analysis; `None` when too few landmarks follow the global transform to state it
@@ -203,7 +209,7 @@ pub fn analyse(input: &FieldInput) -> Option<Analysis> {
         target_index: &ti,
     };
     let t0 = solution.fit.transform;
-    let tol = solution.inlier_tolerance;
+    let tol = solution.max_residual;
     let radius = search_radius(input.reference_spacing, solution);
 
     // 1. The nodes: the control points, and the wider pass's pairs whose neighbourhood agrees.
@@ -516,7 +522,10 @@ fn null_maxima(graph: &[Vec<u32>], seed: u64) -> Vec<f64> {
     (0..DRAWS)
         .map(|_| {
             for m in moves.iter_mut() {
-                *m = [StandardNormal.sample(&mut rng), StandardNormal.sample(&mut rng)];
+                *m = [
+                    StandardNormal.sample(&mut rng),
+                    StandardNormal.sample(&mut rng),
+                ];
             }
             grow(&moves, graph, 1.0)
                 .iter()

@@ -61,7 +61,7 @@ pub enum DriftError {
     #[error("drift.tolerance_m must be a positive number of metres, the largest movement allowed (got {0})")]
     InvalidTolerance(f64),
     /// The target is a local grid.
-    #[error("{0}: is a local grid (target.crs = local); drift compares two georeferenced surveys of one place; give the target's CRS with target.crs, or use match for a site calibration")]
+    #[error("{0}: the target is an unreferenced local grid; drift compares two georeferenced surveys of one place: give the target's CRS (target.crs), or use match for a site calibration")]
     LocalGrid(String),
     /// The match found no transform.
     #[error("no transform was accepted, so there is no drift to state")]
@@ -404,7 +404,10 @@ impl Drift {
                 }
             )
         };
-        let _ = writeln!(o, "drift (movement of the target relative to the reference)");
+        let _ = writeln!(
+            o,
+            "drift (movement of the target relative to the reference)"
+        );
         let _ = writeln!(
             o,
             "  at             x {:.3}, y {:.3} (reference CRS; the centroid of the {} control points that follow the global transform)",

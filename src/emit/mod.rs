@@ -42,6 +42,7 @@ pub(crate) mod atomic;
 pub mod csv;
 pub mod destination;
 pub mod epochs;
+pub mod drift;
 pub mod gpkg;
 pub mod json;
 pub mod raster;
@@ -198,6 +199,20 @@ pub fn write_all(
     warp: Option<raster::Resampling>,
     progress: &dyn Progress,
 ) -> Result<Vec<PathBuf>, EmitError> {
+    write_all_with(outcome, out, report, warp, progress, &|_| Ok(Vec::new()))
+}
+
+/// As [`write_all`], and `extra` writes a front end's own files into the staging folder it is
+/// given (returning their names), so that they are put in place with the match's files, all
+/// or none (the drift check's files, [`drift`]).
+pub fn write_all_with(
+    outcome: &MatchOutcome,
+    out: &Destination,
+    report: &str,
+    warp: Option<raster::Resampling>,
+    progress: &dyn Progress,
+    extra: &dyn Fn(&Path) -> Result<Vec<&'static str>, EmitError>,
+) -> Result<Vec<PathBuf>, EmitError> {
     let solution = outcome.solution().ok_or(EmitError::NothingAccepted)?;
     // Again, after the work: another run may have written there meanwhile.
     destination::check_dir_state(out)?;
@@ -224,7 +239,9 @@ pub fn write_all(
                 gpkg.and(others)
             })
         })?;
-        raster_outputs(outcome, solution, &staging.path, warp)
+        let mut names = raster_outputs(outcome, solution, &staging.path, warp)?;
+        names.extend(extra(&staging.path)?);
+        Ok(names)
     })();
     // A full disk is said of the output folder (the staging folder is gone by then).
     let extra = written.map_err(|e| match e {

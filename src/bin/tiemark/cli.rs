@@ -23,6 +23,14 @@ pub fn after_help() -> String {
     )
 }
 
+/// Exit codes of `drift` and the caution, after its help.
+pub fn drift_after_help() -> String {
+    format!(
+        "Exit codes: 0 drift within the tolerance; 3 tolerance exceeded (globally somewhere over the overlap, or by an area that moved); 1 no consistent transform found (nothing written); 2 bad input or error.\n\n{}",
+        tiemark::report::CAUTION
+    )
+}
+
 #[derive(Parser)]
 #[command(
     name = "tiemark",
@@ -43,6 +51,16 @@ pub enum Command {
     /// Match a target survey to a reference survey and write control points, transform and report.
     #[command(after_help = after_help())]
     Match(Box<MatchArgs>),
+    /// Check the target against the reference for drift: match them, state how the target moved (globally and in local areas) and whether that exceeds --tolerance; writes the match's files plus drift.json and drift-areas.gpkg.
+    #[command(
+        after_help = drift_after_help(),
+        mut_arg("tolerance", |a| a
+            .help("The drift tolerance in metres: the largest movement allowed, globally anywhere over the overlap of the two surveys and for any area that moved")
+            .value_name("M")
+            .hide(false)
+            .required(true))
+    )]
+    Drift(Box<MatchArgs>),
     /// Run a pipeline file (TOML; its keys are listed in the README, "Pipeline files").
     #[command(after_help = after_help())]
     Run {
@@ -264,6 +282,14 @@ impl KeypointArgs {
 }
 
 impl MatchArgs {
+    /// For `drift`: the match, where its outputs go, and the drift options (`--tolerance` is
+    /// the drift tolerance there, and sets no fit option).
+    pub fn into_drift(mut self) -> (MatchConfig, OutputOptions, tiemark::drift::DriftParams) {
+        let tolerance_m = self.tolerance.take().unwrap_or(f64::NAN);
+        let (config, output) = self.into_config();
+        (config, output, tiemark::drift::DriftParams { tolerance_m })
+    }
+
     /// The match and where its outputs go.
     pub fn into_config(self) -> (MatchConfig, OutputOptions) {
         let config = MatchConfig {
@@ -460,6 +486,7 @@ const FLAGS: &[(&str, &str)] = &[
     ("fit.max_scale_ppm", "--max-scale-error"),
     ("accuracy.checkpoints", "--checkpoints"),
     ("accuracy.holdout", "--holdout"),
+    ("drift.tolerance_m", "--tolerance"),
     ("output.dir", "--out"),
     ("output.force", "--force"),
 ];
@@ -534,6 +561,33 @@ mod tests {
                 "{bad}"
             );
         }
+    }
+
+    #[test]
+    fn drift_takes_the_match_options_and_a_required_tolerance() {
+        let cli = Cli::try_parse_from([
+            "tiemark",
+            "drift",
+            "a",
+            "b",
+            "--out",
+            "o",
+            "--tolerance",
+            "0.05",
+            "--seed",
+            "7",
+        ])
+        .unwrap();
+        let Command::Drift(args) = cli.command else {
+            panic!("not drift")
+        };
+        let (config, _, drift) = args.into_drift();
+        assert_eq!(drift.tolerance_m, 0.05);
+        assert_eq!(config.fit.seed, 7);
+        let mut plain = MatchConfig::new("a".into(), "b".into());
+        plain.fit.seed = 7;
+        assert_eq!(config, plain, "--tolerance sets no fit option under drift");
+        assert!(Cli::try_parse_from(["tiemark", "drift", "a", "b", "--out", "o"]).is_err());
     }
 
     #[test]

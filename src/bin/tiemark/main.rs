@@ -1,6 +1,7 @@
 //! The `tiemark` command: parses arguments, calls the library, writes what the library
 //! computed, and turns the outcome into an exit code. Exit codes: 0 control points written,
-//! 1 no consistent transform (nothing written), 2 bad input or any other error.
+//! 1 no consistent transform (nothing written), 2 bad input or any other error; `drift` (and a
+//! pipeline with a `[drift]` table) also 3: the drift exceeds the tolerance (0: within it).
 
 mod bars;
 mod cli;
@@ -98,6 +99,94 @@ fn run_match(
         Ok(files) => {
             print(&report::with_files(&summary, &files));
             ExitCode::SUCCESS
+        }
+        Err(e) => error(&e),
+    }
+}
+
+/// `tiemark drift` (or a pipeline with a `[drift]` table): the match, then the drift check;
+/// writes the match's files plus drift.json and drift-areas.gpkg, all or nothing. Exit codes:
+/// 0 within the tolerance, 3 exceeded, 1 no consistent transform (nothing written), 2 error.
+fn run_drift(
+    config: &MatchConfig,
+    output: &OutputOptions,
+    params: &tiemark::drift::DriftParams,
+    pipeline: Option<&Path>,
+    quiet: bool,
+    source: Source,
+) -> ExitCode {
+    use tiemark::drift::{self, Verdict};
+    let error = |e: &dyn std::fmt::Display| fail(&source.render(&e.to_string()));
+    // Refused before any work, so that a long run cannot end in these errors.
+    if let Err(e) = params.validate() {
+        return error(&e);
+    }
+    if config
+        .target
+        .crs
+        .as_deref()
+        .is_some_and(|c| c.trim().to_ascii_lowercase().starts_with("local"))
+    {
+        return error(&drift::DriftError::LocalGrid(
+            config.target.path.display().to_string(),
+        ));
+    }
+    let mut inputs = vec![
+        config.reference.path.as_path(),
+        config.target.path.as_path(),
+    ];
+    inputs.extend(pipeline);
+    inputs.extend(config.accuracy.checkpoints.as_deref());
+    let warp = match output
+        .warp
+        .as_deref()
+        .map(emit::raster::Resampling::from_name)
+    {
+        None => None,
+        Some(Some(r)) => Some(r),
+        Some(None) => {
+            return error(&format!(
+                "output.warp = {:?} is not a resampling; choose one of {}",
+                output.warp.as_deref().unwrap_or_default(),
+                emit::raster::Resampling::NAMES.join(", ")
+            ))
+        }
+    };
+    let names: Vec<&str> = emit::FILES
+        .iter()
+        .chain(&emit::RASTER_FILES)
+        .chain(&emit::drift::DRIFT_FILES)
+        .copied()
+        .collect();
+    let out = match emit::check_output_dir(&output.dir, output.force, &names, &inputs) {
+        Ok(d) => d,
+        Err(e) => return error(&e),
+    };
+    let bars = bars::Bars::new(quiet);
+    let outcome = match engine::match_surveys(config, &bars) {
+        Ok(o) => o,
+        Err(e) => return error(&e),
+    };
+    let summary = source.render(&report::summary(&outcome));
+    if outcome.solution().is_none() {
+        print(&summary);
+        print("\ndrift: NO VERDICT: no consistent transform between the surveys, so their drift cannot be stated; nothing was written (exit code 1)\n");
+        return ExitCode::from(1);
+    }
+    let found = match drift::analyse(&outcome, params) {
+        Ok(d) => d,
+        Err(e) => return error(&e),
+    };
+    let summary = format!("{summary}\n{}", found.summary());
+    let wkt = outcome.frame.reference_crs.wkt.clone();
+    let extra = |dir: &Path| emit::drift::write_drift_files(&found, &wkt, dir);
+    match emit::write_all_with(&outcome, &out, &summary, warp, &bars, &extra) {
+        Ok(files) => {
+            print(&report::with_files(&summary, &files));
+            match found.verdict {
+                Verdict::Within => ExitCode::SUCCESS,
+                Verdict::Exceeded => ExitCode::from(3),
+            }
         }
         Err(e) => error(&e),
     }
@@ -250,7 +339,30 @@ fn main() -> ExitCode {
             let (config, output) = a.into_config();
             run_epochs(&config, &output, None, cli.quiet, true)
         }
+        Command::Drift(args) => {
+            let (config, output, drift) = args.into_drift();
+            run_drift(
+                &config,
+                &output,
+                &drift,
+                None,
+                cli.quiet,
+                Source::CommandLine,
+            )
+        }
         Command::Run { pipeline } => match PipelineFile::read(&pipeline) {
+            Ok(file) if file.drift.is_some() => {
+                let drift = file.drift.expect("checked");
+                let (config, output) = file.into_parts();
+                run_drift(
+                    &config,
+                    &output,
+                    &drift,
+                    Some(&pipeline),
+                    cli.quiet,
+                    Source::PipelineFile,
+                )
+            }
             Ok(file) => {
                 let (config, output) = file.into_parts();
                 run_match(

@@ -1,0 +1,252 @@
+//! The drift check's files: `drift.json` and `drift-areas.gpkg`.
+//!
+//! **In:** a [`Drift`] (from [`crate::drift::analyse`]), the reference CRS's WKT, and a path
+//! in the staging folder (the front end writes them with the match's files through
+//! [`super::write_all_with`], all or nothing).
+//! **Out:**
+//!
+//! - `drift.json`: `tool`, `version`, then the [`Drift`]'s fields: `verdict` (`within` |
+//!   `exceeded`), `verdict_line`, `tolerance_m`, `centroid_x`, `centroid_y` (reference CRS),
+//!   `shift_east_m`, `shift_north_m`, `rotation_arcsec` (counter-clockwise), `scale_ppm` (each
+//!   `{value, se, significant}`, significance at 95 % two-sided), `global_test` (χ² of the four
+//!   with 4 degrees of freedom), `max_drift_m` with `max_drift_x`, `max_drift_y`, `overlap`
+//!   (the polygon it is taken over), `accuracy` (`rmse_x_m`, `rmse_y_m`, `rmse_r_m`,
+//!   `nssda_95_m`, `n`, `independent`, `source`), `control_points`, `local_areas` (each: `id`,
+//!   `x`, `y`, `outline`, `shift_east_m`, `shift_north_m`, `shift_m`, `shift_se_m`,
+//!   `movement_east_m`, `movement_north_m`, `movement_m`, `exceeds_tolerance`, `statistic`,
+//!   `p_value`, `significant`, `landmarks`), `local_test` (method, level, draws, candidates,
+//!   search radius), `caution`.
+//! - `drift-areas.gpkg`, reference CRS: layer `drift_areas` (one polygon per flagged area, its
+//!   outline; fields `area_id`, `landmarks`, `shift_east_m`, `shift_north_m`, `shift_m`,
+//!   `shift_se_m`, `movement_m`, `exceeds_tolerance` (0/1), `p_value`) and layer
+//!   `moved_landmarks` (the areas' landmarks as points at their reference positions; fields
+//!   `area_id`, `reference_id`, `target_id`, `shift_east_m`, `shift_north_m`). Both layers exist
+//!   (empty) when no area was flagged.
+
+use super::{io_err, EmitError};
+use crate::drift::Drift;
+use gdal::spatial_ref::{AxisMappingStrategy, SpatialRef};
+use gdal::vector::{
+    Feature, FieldDefn, Geometry, LayerAccess, LayerOptions, OGRFieldType, OGRwkbGeometryType,
+};
+use gdal::{Dataset, DriverManager};
+use std::path::Path;
+
+/// `drift.json`.
+pub const DRIFT_JSON: &str = "drift.json";
+/// `drift-areas.gpkg`.
+pub const DRIFT_GPKG: &str = "drift-areas.gpkg";
+/// The files the drift check adds to a match's.
+pub const DRIFT_FILES: [&str; 2] = [DRIFT_JSON, DRIFT_GPKG];
+
+/// The JSON document of `drift.json`.
+pub fn drift_document(drift: &Drift) -> serde_json::Value {
+    let mut doc = serde_json::Map::new();
+    doc.insert("tool".into(), "tiemark".into());
+    doc.insert("version".into(), env!("CARGO_PKG_VERSION").into());
+    if let serde_json::Value::Object(fields) =
+        serde_json::to_value(drift).expect("a drift serialises")
+    {
+        doc.extend(fields);
+    }
+    serde_json::Value::Object(doc)
+}
+
+/// Writes `drift.json`.
+pub fn write_drift_json(drift: &Drift, path: &Path) -> Result<(), EmitError> {
+    let text = serde_json::to_string_pretty(&drift_document(drift)).expect("JSON values serialise");
+    std::fs::write(path, text + "\n").map_err(io_err(path))
+}
+
+fn gdal_err(path: &Path) -> impl Fn(gdal::errors::GdalError) -> EmitError + '_ {
+    move |source| {
+        let detail = source.to_string();
+        if super::atomic::disk_full_text(&detail) {
+            EmitError::DiskFull {
+                path: path.to_path_buf(),
+                detail,
+            }
+        } else {
+            EmitError::Gdal {
+                path: path.to_path_buf(),
+                source,
+            }
+        }
+    }
+}
+
+/// Clears the thread's `OGR_CURRENT_DATE` on drop.
+struct DateFixed;
+
+impl Drop for DateFixed {
+    fn drop(&mut self) {
+        let _ = gdal::config::clear_thread_local_config_option("OGR_CURRENT_DATE");
+    }
+}
+
+fn ring(points: &[[f64; 2]]) -> gdal::errors::Result<Geometry> {
+    let mut r = Geometry::empty(OGRwkbGeometryType::wkbLinearRing)?;
+    for p in points {
+        r.add_point_2d((p[0], p[1]));
+    }
+    if let Some(p) = points.first() {
+        r.add_point_2d((p[0], p[1]));
+    }
+    let mut g = Geometry::empty(OGRwkbGeometryType::wkbPolygon)?;
+    g.add_geometry(r)?;
+    Ok(g)
+}
+
+fn point(p: [f64; 2]) -> gdal::errors::Result<Geometry> {
+    let mut g = Geometry::empty(OGRwkbGeometryType::wkbPoint)?;
+    g.add_point_2d((p[0], p[1]));
+    Ok(g)
+}
+
+/// One field value.
+enum Value<'a> {
+    Int(i32),
+    Real(f64),
+    Text(&'a str),
+}
+
+fn add_layer(
+    ds: &mut Dataset,
+    name: &str,
+    ty: OGRwkbGeometryType::Type,
+    srs: &SpatialRef,
+    fields: &[(&str, OGRFieldType::Type)],
+    rows: Vec<(Vec<Value>, Geometry)>,
+    path: &Path,
+) -> Result<(), EmitError> {
+    let e = gdal_err(path);
+    let layer = ds
+        .create_layer(LayerOptions {
+            name,
+            srs: Some(srs),
+            ty,
+            options: None,
+        })
+        .map_err(&e)?;
+    for (n, t) in fields {
+        FieldDefn::new(n, *t)
+            .and_then(|d| d.add_to_layer(&layer))
+            .map_err(&e)?;
+    }
+    for (values, geometry) in rows {
+        let mut f = Feature::new(layer.defn()).map_err(&e)?;
+        for (i, v) in values.iter().enumerate() {
+            match v {
+                Value::Int(x) => f.set_field_integer(i, *x),
+                Value::Real(x) => f.set_field_double(i, *x),
+                Value::Text(x) => f.set_field_string(i, x),
+            }
+            .map_err(&e)?;
+        }
+        f.set_geometry(geometry).map_err(&e)?;
+        f.create(&layer).map_err(&e)?;
+    }
+    Ok(())
+}
+
+/// Writes `drift-areas.gpkg` in the reference CRS (`reference_wkt`).
+pub fn write_drift_areas(drift: &Drift, reference_wkt: &str, path: &Path) -> Result<(), EmitError> {
+    use OGRFieldType::{OFTInteger, OFTReal, OFTString};
+    let e = gdal_err(path);
+    let mut srs = SpatialRef::from_wkt(reference_wkt).map_err(&e)?;
+    srs.set_axis_mapping_strategy(AxisMappingStrategy::TraditionalGisOrder);
+    // A fixed timestamp in gpkg_contents (GDAL's GPKG driver option OGR_CURRENT_DATE), so that
+    // the same drift gives the same bytes.
+    gdal::config::set_thread_local_config_option("OGR_CURRENT_DATE", "2000-01-01T00:00:00.000Z")
+        .map_err(&e)?;
+    let _fixed = DateFixed;
+    let driver = DriverManager::get_driver_by_name("GPKG").map_err(&e)?;
+    let mut ds = driver.create_vector_only(path).map_err(&e)?;
+    {
+        let mut txn = ds.start_transaction().map_err(&e)?;
+        let mut areas = Vec::new();
+        let mut points = Vec::new();
+        for a in &drift.local_areas {
+            let id = a.id as i32;
+            areas.push((
+                vec![
+                    Value::Int(id),
+                    Value::Int(a.landmarks.len() as i32),
+                    Value::Real(a.shift_east_m),
+                    Value::Real(a.shift_north_m),
+                    Value::Real(a.shift_m),
+                    Value::Real(a.shift_se_m),
+                    Value::Real(a.movement_m),
+                    Value::Int(a.exceeds_tolerance as i32),
+                    Value::Real(a.p_value),
+                ],
+                ring(&a.outline).map_err(&e)?,
+            ));
+            for l in &a.landmarks {
+                points.push((
+                    vec![
+                        Value::Int(id),
+                        Value::Text(&l.reference_id),
+                        Value::Text(&l.target_id),
+                        Value::Real(l.shift_east_m),
+                        Value::Real(l.shift_north_m),
+                    ],
+                    point([l.x, l.y]).map_err(&e)?,
+                ));
+            }
+        }
+        add_layer(
+            &mut txn,
+            "drift_areas",
+            OGRwkbGeometryType::wkbPolygon,
+            &srs,
+            &[
+                ("area_id", OFTInteger),
+                ("landmarks", OFTInteger),
+                ("shift_east_m", OFTReal),
+                ("shift_north_m", OFTReal),
+                ("shift_m", OFTReal),
+                ("shift_se_m", OFTReal),
+                ("movement_m", OFTReal),
+                ("exceeds_tolerance", OFTInteger),
+                ("p_value", OFTReal),
+            ],
+            areas,
+            path,
+        )?;
+        add_layer(
+            &mut txn,
+            "moved_landmarks",
+            OGRwkbGeometryType::wkbPoint,
+            &srs,
+            &[
+                ("area_id", OFTInteger),
+                ("reference_id", OFTString),
+                ("target_id", OFTString),
+                ("shift_east_m", OFTReal),
+                ("shift_north_m", OFTReal),
+            ],
+            points,
+            path,
+        )?;
+        txn.commit().map_err(&e)?;
+    }
+    // GDAL builds the spatial index at close and may only print a failure: ask for it.
+    crate::ingest::clear_gdal_error();
+    ds.close().map_err(&e)?;
+    match crate::ingest::take_gdal_failure() {
+        Some(err) => Err(e(err)),
+        None => Ok(()),
+    }
+}
+
+/// Writes both drift files into the staging folder `dir`; their names.
+pub fn write_drift_files(
+    drift: &Drift,
+    reference_wkt: &str,
+    dir: &Path,
+) -> Result<Vec<&'static str>, EmitError> {
+    write_drift_json(drift, &dir.join(DRIFT_JSON))?;
+    write_drift_areas(drift, reference_wkt, &dir.join(DRIFT_GPKG))?;
+    Ok(DRIFT_FILES.to_vec())
+}
