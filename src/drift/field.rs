@@ -21,7 +21,10 @@
 //!    nearest, by reference position, within [`GRAPH_REACH`] median spacings): seeds are
 //!    movements unusual at 1 % (|m| > 3.035 σ̂, the 99 % point of a 2-D Gaussian length with
 //!    σ̂ per coordinate), largest first; a neighbour joins an area when its movement is within
-//!    2.448 σ̂ √(1 + 1/n) of the area's mean (95 %) and nearer to that mean than to zero.
+//!    2.448 σ̂ √(1 + 1/n) of the area's mean (95 %) and nearer to that mean than to zero;
+//!    neighbours turned down are tested again against the grown area's mean. Areas whose
+//!    means agree and that come within [`GRAPH_REACH`] median spacings of each other are
+//!    merged (one movement on both sides of a gap in the graph, such as a street).
 //!    Areas of fewer than [`MIN_AREA`] landmarks are dropped (one landmark is an outlier, not an
 //!    area).
 //! 4. **Significance** of an area of n landmarks with mean movement m̄: Q = n |m̄|² / σ̂² (a χ²
@@ -65,6 +68,8 @@ pub const MIN_AREA: usize = 3;
 pub const DRAWS: usize = 199;
 /// Family-wise level of the local test, and level of the global test.
 pub const LEVEL: f64 = 0.05;
+/// Growing passes per area (the last ones test turned-down neighbours again).
+const GROW_PASSES: usize = 4;
 /// Refits after taking flagged areas out.
 pub const MAX_PASSES: usize = 3;
 /// √(−2 ln 0.01): the 99 % point of the length of a 2-D Gaussian vector (σ = 1 per coordinate).
@@ -255,7 +260,8 @@ pub fn analyse(input: &FieldInput) -> Option<Analysis> {
         .iter()
         .map(|p| reference[p.reference as usize])
         .collect();
-    let graph = neighbour_graph(&positions, GRAPH_REACH * input.reference_spacing)?;
+    let reach = GRAPH_REACH * input.reference_spacing;
+    let graph = neighbour_graph(&positions, reach)?;
 
     // 2-5. Movements, areas, refit without the flagged ones.
     let mut flagged = vec![false; nodes.len()];
@@ -304,9 +310,9 @@ pub fn analyse(input: &FieldInput) -> Option<Analysis> {
                 )
             })
             .collect();
-        let found = grow(&moves, &graph, sigma);
+        let found = find_areas(&moves, &graph, &positions, reach, sigma);
         candidates = found.len();
-        let null = null_maxima(&graph, input.seed ^ pass as u64);
+        let null = null_maxima(&graph, &positions, reach, input.seed ^ pass as u64);
         areas = found
             .into_iter()
             .map(|(members, q)| {
@@ -475,8 +481,11 @@ fn grow(moves: &[[f64; 2]], graph: &[Vec<u32>], sigma: f64) -> Vec<(Vec<usize>, 
         .collect();
     seeds.sort_by(|&a, &b| len2(moves[b]).total_cmp(&len2(moves[a])).then(a.cmp(&b)));
     let mut assigned = vec![false; moves.len()];
-    // The region a node was last visited for (so that each region visits a node once).
-    let mut visited = vec![usize::MAX; moves.len()];
+    // The pass a node was last tested in (each pass tests a node once), and the region it is
+    // in (seed index).
+    let mut tested = vec![usize::MAX; moves.len()];
+    let mut member = vec![usize::MAX; moves.len()];
+    let mut pass = 0;
     let mut out = Vec::new();
     let mut queue = std::collections::VecDeque::new();
     for (k, &s) in seeds.iter().enumerate() {
@@ -485,23 +494,38 @@ fn grow(moves: &[[f64; 2]], graph: &[Vec<u32>], sigma: f64) -> Vec<(Vec<usize>, 
         }
         let mut region = vec![s];
         let mut sum = moves[s];
-        visited[s] = k;
+        member[s] = k;
         queue.clear();
         queue.extend(graph[s].iter().map(|&j| j as usize));
-        while let Some(j) = queue.pop_front() {
-            if assigned[j] || visited[j] == k {
-                continue;
+        // Grow; then test the neighbours that were turned down again against the final mean
+        // (an early mean is noisy), until nothing more joins.
+        for _ in 0..GROW_PASSES {
+            pass += 1;
+            let before = region.len();
+            while let Some(j) = queue.pop_front() {
+                if assigned[j] || member[j] == k || tested[j] == pass {
+                    continue;
+                }
+                tested[j] = pass;
+                let n = region.len() as f64;
+                let m = [sum[0] / n, sum[1] / n];
+                let off = dist2(moves[j], m);
+                let join2 = JOIN_K * JOIN_K * sigma * sigma * (1.0 + 1.0 / n);
+                if off <= join2 && off < len2(moves[j]) {
+                    region.push(j);
+                    member[j] = k;
+                    sum = [sum[0] + moves[j][0], sum[1] + moves[j][1]];
+                    queue.extend(graph[j].iter().map(|&i| i as usize));
+                }
             }
-            visited[j] = k;
-            let n = region.len() as f64;
-            let m = [sum[0] / n, sum[1] / n];
-            let off = dist2(moves[j], m);
-            let join2 = JOIN_K * JOIN_K * sigma * sigma * (1.0 + 1.0 / n);
-            if off <= join2 && off < len2(moves[j]) {
-                region.push(j);
-                sum = [sum[0] + moves[j][0], sum[1] + moves[j][1]];
-                queue.extend(graph[j].iter().map(|&i| i as usize));
+            if region.len() == before {
+                break;
             }
+            queue.extend(
+                region
+                    .iter()
+                    .flat_map(|&i| graph[i].iter().map(|&j| j as usize)),
+            );
         }
         if region.len() >= MIN_AREA {
             region.iter().for_each(|&i| assigned[i] = true);
@@ -514,9 +538,62 @@ fn grow(moves: &[[f64; 2]], graph: &[Vec<u32>], sigma: f64) -> Vec<(Vec<usize>, 
     out
 }
 
+/// Areas: [`grow`], then areas whose mean movements agree (within 2.448 σ̂ √(1/n₁ + 1/n₂))
+/// and that come within `reach` of each other are merged (one movement on both sides of a
+/// gap in the graph, such as a street), until no two can be; with their Q.
+fn find_areas(
+    moves: &[[f64; 2]],
+    graph: &[Vec<u32>],
+    positions: &[[f64; 2]],
+    reach: f64,
+    sigma: f64,
+) -> Vec<(Vec<usize>, f64)> {
+    let mut areas: Vec<(Vec<usize>, [f64; 2])> = grow(moves, graph, sigma)
+        .into_iter()
+        .map(|(members, _)| {
+            let sum = members
+                .iter()
+                .fold([0.0, 0.0], |a, &i| [a[0] + moves[i][0], a[1] + moves[i][1]]);
+            (members, sum)
+        })
+        .collect();
+    let near = |a: &[usize], b: &[usize]| {
+        a.iter().any(|&i| {
+            b.iter()
+                .any(|&j| dist2(positions[i], positions[j]) <= reach * reach)
+        })
+    };
+    'merging: loop {
+        for x in 0..areas.len() {
+            for y in x + 1..areas.len() {
+                let (nx, ny) = (areas[x].0.len() as f64, areas[y].0.len() as f64);
+                let mx = [areas[x].1[0] / nx, areas[x].1[1] / nx];
+                let my = [areas[y].1[0] / ny, areas[y].1[1] / ny];
+                let agree =
+                    dist2(mx, my) <= JOIN_K * JOIN_K * sigma * sigma * (1.0 / nx + 1.0 / ny);
+                if agree && near(&areas[x].0, &areas[y].0) {
+                    let (members, sum) = areas.swap_remove(y);
+                    areas[x].0.extend(members);
+                    areas[x].0.sort_unstable();
+                    areas[x].1 = [areas[x].1[0] + sum[0], areas[x].1[1] + sum[1]];
+                    continue 'merging;
+                }
+            }
+        }
+        break;
+    }
+    areas
+        .into_iter()
+        .map(|(members, sum)| {
+            let q = (sum[0] * sum[0] + sum[1] * sum[1]) / (members.len() as f64 * sigma * sigma);
+            (members, q)
+        })
+        .collect()
+}
+
 /// The survey-wide largest Q in [`DRAWS`] residual fields of independent standard Gaussian
 /// movements on `graph` (σ = 1: Q does not depend on σ).
-fn null_maxima(graph: &[Vec<u32>], seed: u64) -> Vec<f64> {
+fn null_maxima(graph: &[Vec<u32>], positions: &[[f64; 2]], reach: f64, seed: u64) -> Vec<f64> {
     let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
     let mut moves = vec![[0.0; 2]; graph.len()];
     (0..DRAWS)
@@ -527,7 +604,7 @@ fn null_maxima(graph: &[Vec<u32>], seed: u64) -> Vec<f64> {
                     StandardNormal.sample(&mut rng),
                 ];
             }
-            grow(&moves, graph, 1.0)
+            find_areas(&moves, graph, positions, reach, 1.0)
                 .iter()
                 .map(|a| a.1)
                 .fold(0.0, f64::max)
