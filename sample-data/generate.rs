@@ -84,6 +84,7 @@
 //! gdal, proj, rand, rand_chacha, serde_json and std (never the tiemark library).
 
 mod epochs;
+mod drift_epochs;
 mod scene;
 
 use std::collections::HashMap;
@@ -2288,6 +2289,8 @@ fn main() -> Res<()> {
     );
     write_json(&out.join("site-grid-truth.json"), &truth)?;
     write_pairs(&out.join("site-grid-true-pairs.csv"), &mut pairs)?;
+
+    drift_epochs::write_drift_epochs(&out, seed, &ref_ids, &ref_c, CENTRE)?;
 
     // ---- the raster scene (orthophoto 2019, drone mosaic 2026) --------------------------------
     scene::write_scene(&out, seed, scene::Size::Small)?;

@@ -284,3 +284,88 @@ fn a_tolerance_that_is_not_positive_is_refused_before_any_work() {
         assert!(!run.out.exists());
     }
 }
+
+#[test]
+fn the_monthly_drift_check_on_the_sample_epochs_finds_the_moved_block() {
+    // The pipeline as shipped, with its output redirected: a [drift] table makes `tiemark run`
+    // the drift check. Truth: sample-data/drift-epochs-truth.json (invented data).
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+    let dir = tempfile::tempdir().unwrap();
+    let text = std::fs::read_to_string(root.join("pipelines/site-drift-check.toml")).unwrap();
+    let data = root.join("sample-data");
+    let out = dir.path().join("out");
+    let text = text
+        .replace("../sample-data", data.to_str().unwrap())
+        .replace("../target/site-drift-output", out.to_str().unwrap());
+    let pipeline = dir.path().join("site-drift-check.toml");
+    std::fs::write(&pipeline, text).unwrap();
+    let o = Command::new(env!("CARGO_BIN_EXE_tiemark"))
+        .args(["run", "-q"])
+        .arg(&pipeline)
+        .output()
+        .unwrap();
+    let stdout = String::from_utf8_lossy(&o.stdout);
+    assert_eq!(
+        o.status.code(),
+        Some(3),
+        "{stdout}{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
+    let truth: Value = serde_json::from_str(
+        &std::fs::read_to_string(data.join("drift-epochs-truth.json")).unwrap(),
+    )
+    .unwrap();
+    let v: Value =
+        serde_json::from_str(&std::fs::read_to_string(out.join("drift.json")).unwrap()).unwrap();
+    assert_eq!(v["verdict"], truth["expected"]["verdict"]);
+    assert_eq!(v["tolerance_m"], truth["expected"]["tolerance_m"]);
+    // The global drift at the stated centroid, from the truth's pivot form.
+    let g = &truth["global_drift"];
+    let f = |k: &str| g[k].as_f64().unwrap();
+    let (px, py) = (f("pivot_x"), f("pivot_y"));
+    let (cx, cy) = (
+        v["centroid_x"].as_f64().unwrap(),
+        v["centroid_y"].as_f64().unwrap(),
+    );
+    let s = 1.0 + f("scale_ppm") * 1e-6;
+    let t = (f("rotation_arcsec") / 3600.0).to_radians();
+    let moved = [
+        px + s * (t.cos() * (cx - px) - t.sin() * (cy - py)) + f("shift_east_m"),
+        py + s * (t.sin() * (cx - px) + t.cos() * (cy - py)) + f("shift_north_m"),
+    ];
+    for (key, want) in [
+        ("shift_east_m", moved[0] - cx),
+        ("shift_north_m", moved[1] - cy),
+        ("rotation_arcsec", f("rotation_arcsec")),
+        ("scale_ppm", f("scale_ppm")),
+    ] {
+        let (got, se, _) = estimate(&v, key);
+        assert!(
+            (got - want).abs() < 3.5 * se,
+            "{key}: {got} ± {se} against {want}"
+        );
+    }
+    assert!(v["max_drift_m"].as_f64().unwrap() < 0.1);
+    // The block, to the building.
+    let areas = v["local_areas"].as_array().unwrap();
+    assert_eq!(areas.len(), 1, "{stdout}");
+    let mut found: Vec<&str> = areas[0]["landmarks"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|l| l["reference_id"].as_str().unwrap())
+        .collect();
+    found.sort_unstable();
+    let mut moved_ids: Vec<&str> = truth["block"]["moved_ids_in_both_epochs"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|x| x.as_str().unwrap())
+        .collect();
+    moved_ids.sort_unstable();
+    assert_eq!(found, moved_ids);
+    let b = &truth["block"];
+    let d = (areas[0]["x"].as_f64().unwrap() - b["centre_x"].as_f64().unwrap())
+        .hypot(areas[0]["y"].as_f64().unwrap() - b["centre_y"].as_f64().unwrap());
+    assert!(d < b["radius_m"].as_f64().unwrap() / 2.0, "{d}");
+}
