@@ -133,6 +133,7 @@ fn no_drift_is_flagged_no_more_often_than_the_level_allows() {
         global += a.global.significant as u64;
         local += !a.areas.is_empty() as u64;
     }
+    eprintln!("false alarms in {trials} trials: global {global}, local {local} (bounds {lower} < X < {upper})");
     assert_eq!(solved, trials, "every trial should find its transform");
     assert!(
         global < upper && global > lower,
