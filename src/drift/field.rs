@@ -280,7 +280,7 @@ pub fn analyse(input: &FieldInput) -> Option<Analysis> {
     let mut stable: Vec<usize> = stable_of(&flagged, &t0);
     let mut transform;
     let mut sigma;
-    let mut areas: Vec<(Vec<usize>, Vec<[f64; 2]>, f64, f64)>;
+    let mut areas: Vec<Candidate>;
     let mut candidates;
     let mut pass = 0;
     loop {
@@ -437,6 +437,9 @@ pub fn analyse(input: &FieldInput) -> Option<Analysis> {
         extra_pairs,
     })
 }
+
+/// A candidate area: its nodes, their movements, Q and the p-value.
+type Candidate = (Vec<usize>, Vec<[f64; 2]>, f64, f64);
 
 /// The movement t − D(r) of a pair relative to the drift D (reference → target).
 fn movement(t: [f64; 2], r: [f64; 2], d: &Similarity) -> [f64; 2] {
