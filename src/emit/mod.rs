@@ -25,13 +25,17 @@
 //! - `transform.json` ([`json`]): the similarity, its standard errors, RMSE, counts, CRSs,
 //!   thresholds, seed and version.
 //! - `report.txt`: the text summary, with the cautions.
+//! - `report.html` ([`html`], figures by [`plot`]): one self-contained page to look at — the
+//!   verdict, key numbers, transform, accuracy, a map of the landmarks and residual vectors,
+//!   a residual histogram and the cautions; every number tagged with its value in
+//!   `transform.json`.
 //!
 //! Before any work the output is resolved and checked ([`check_output_dir`],
 //! [`check_output_file`], module `destination`): new or empty (or `--force`), never an input of
 //! the run, writable. Nothing is written until everything is ready: the files are made in a
 //! hidden staging folder beside the output folder (on the same device) and put in place at the
-//! end, all four or none (module `atomic`): a new output folder is renamed into place (and
-//! refused if another run made it meanwhile); in an existing one (`--force`) the previous four
+//! end, all five or none (module `atomic`): a new output folder is renamed into place (and
+//! refused if another run made it meanwhile); in an existing one (`--force`) the previous five
 //! files are moved into a hidden backup folder while the new ones go in, and put back if
 //! anything fails. Other files in the output folder are never touched. On any error, and on
 //! SIGINT, SIGTERM or SIGHUP, the staging folder is removed and the output folder is left as it
@@ -44,7 +48,9 @@ pub mod destination;
 pub mod epochs;
 pub mod drift;
 pub mod gpkg;
+pub mod html;
 pub mod json;
+pub mod plot;
 pub mod raster;
 
 use crate::fit::Solution;
@@ -64,11 +70,12 @@ pub const RASTER_FILES: [&str; 3] = [
 ];
 
 /// Names of the files a match writes.
-pub const FILES: [&str; 4] = [
+pub const FILES: [&str; 5] = [
     "control-points.csv",
     "control-points.gpkg",
     "transform.json",
     "report.txt",
+    html::FILE,
 ];
 
 /// Writing failed.
@@ -226,7 +233,8 @@ pub fn write_all_with(
                     csv::write_control_points(outcome, solution, &staging.path.join(FILES[0]))?;
                     json::write_transform(outcome, solution, &staging.path.join(FILES[2]))?;
                     let report_path = staging.path.join(FILES[3]);
-                    std::fs::write(&report_path, report).map_err(io_err(&report_path))
+                    std::fs::write(&report_path, report).map_err(io_err(&report_path))?;
+                    html::write_report(outcome, solution, &staging.path.join(FILES[4]))
                 });
                 pause_for_tests();
                 let gpkg = gpkg::write_control_points(

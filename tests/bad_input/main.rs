@@ -782,7 +782,7 @@ fn forced_output_folder_with_a_folder_under_a_tiemark_name() {
         );
     }
     let mut others = after.clone();
-    for f in previous.iter().chain(&["transform.json"]) {
+    for f in previous.iter().chain(&["transform.json", "report.html"]) {
         others.remove(&Path::new("out").join(f));
     }
     let mut others_before = before;

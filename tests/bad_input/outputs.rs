@@ -10,12 +10,13 @@ use std::time::{Duration, Instant};
 /// is being written and waits until the file is removed.
 const PAUSE: &str = "TIEMARK_TEST_PAUSE_WHILE_STAGING";
 
-/// The four files of a match.
-const FILES: [&str; 4] = [
+/// The files of a match.
+const FILES: [&str; 5] = [
     "control-points.csv",
     "control-points.gpkg",
     "transform.json",
     "report.txt",
+    "report.html",
 ];
 
 /// Starts tiemark in the site with the pause hook writing `flag`.
