@@ -337,7 +337,7 @@ p{margin:.35em 0}\n\
 .inputs p{margin:.1em 0;color:#333}\n\
 .verdict{border:2px solid #111;border-left-width:12px;padding:.5em 1em;margin:1em 0}\n\
 .verdict .word{font-weight:bold;letter-spacing:.06em}\n\
-.verdict.accepted,.verdict.within{border-color:#003a66}\n\
+.verdict.accepted,.verdict.within{border-color:#111}\n\
 .verdict.exceeded{border-color:#d55e00;border-style:double;border-left-style:solid}\n\
 table.numbers{border-collapse:collapse;margin:.3em 0 .6em}\n\
 table.numbers th{text-align:left;font-weight:normal;padding:.18em 1.2em .18em 0;vertical-align:top}\n\

@@ -687,7 +687,8 @@ fn draw_histogram(
         .light_line_style(TRANSPARENT)
         .bold_line_style(RGBColor(210, 210, 210))
         .draw()?;
-    let fill = REFERENCE_INK.colour();
+    // Grey bars (not a layer's ink, so that no colour means two things on the page).
+    let fill = RGBColor(0xc8, 0xc8, 0xc8);
     let edge = CONTROL_INK.colour();
     chart.draw_series(
         counts
