@@ -353,7 +353,7 @@ fn the_report_of_the_sample_town_renders_and_carries_the_json_numbers() {
         }
     }
     for key in [
-        "inliers",
+        "control_points",
         "rmse_m",
         "sigma_m",
         "scale",
@@ -362,10 +362,21 @@ fn the_report_of_the_sample_town_renders_and_carries_the_json_numbers() {
         "translation_y",
         "standard_errors.scale",
         "standard_errors.rotation_deg",
-        "thresholds.tolerance_m",
+        "thresholds.max_residual_m",
         "inputs.reference.landmarks",
         "inputs.target.landmarks",
         "seed",
+        // The accuracy statement (crate::accuracy, written by emit::json).
+        "at_centroid.shift_east_m.value",
+        "at_centroid.shift_north_m.se",
+        "at_centroid.rotation_arcsec.value",
+        "at_centroid.scale_ppm.value",
+        "accuracy.n",
+        "accuracy.rmse_x_m",
+        "accuracy.rmse_y_m",
+        "accuracy.rmse_r_m",
+        "accuracy.nssda_95_m",
+        "accuracy.asprs_rmse_h_m",
     ] {
         assert!(keys.contains(key), "{key} is not on the page");
     }
@@ -408,10 +419,10 @@ fn the_report_of_the_sample_town_renders_and_carries_the_json_numbers() {
         page_value("map.total.target"),
         count("inputs.target.landmarks")
     );
-    assert_eq!(page_value("map.total.controls"), count("inliers"));
-    assert_eq!(page_value("map.drawn.controls"), count("inliers"));
+    assert_eq!(page_value("map.total.controls"), count("control_points"));
+    assert_eq!(page_value("map.drawn.controls"), count("control_points"));
     assert_eq!(page_value("histogram.count"), n as f64);
-    assert_eq!(n as f64, count("inliers"));
+    assert_eq!(n as f64, count("control_points"));
 
     // The parts a surveyor looks for.
     for words in [

@@ -414,5 +414,5 @@ fn the_drone_mosaic_matches_the_orthophoto_within_a_third_of_a_mosaic_pixel_at_i
     }
     eprintln!("{text}\nworst corner error {worst:.4} mosaic px");
     assert!(worst <= 0.3, "corner error {worst:.3} px\n{text}");
-    assert!(got["inliers"].as_u64().unwrap() >= 50, "{got}");
+    assert!(got["control_points"].as_u64().unwrap() >= 50, "{got}");
 }

@@ -608,12 +608,24 @@ pub fn match_page(outcome: &MatchOutcome, solution: &Solution) -> Page {
         )),
     ];
 
+    let mut verdict_lines = Vec::new();
+    if lookup(d, "accuracy.nssda_95_m").is_some() {
+        let source = lookup(d, "accuracy.source_text")
+            .and_then(Value::as_str)
+            .unwrap_or("");
+        verdict_lines.push(
+            Line::new()
+                .text("Horizontal accuracy at 95% (NSSDA): ")
+                .num(num("accuracy.nssda_95_m", 3))
+                .text(format!(" m, from {source}.")),
+        );
+    }
     let verdict = Verdict {
         kind: VerdictKind::Accepted,
         headline: "a consistent transform was found; its control points are written beside this page.".into(),
         lines: vec![
             Line::new()
-                .num(num("inliers", 0))
+                .num(num("control_points", 0))
                 .text(" control points, RMSE ")
                 .num(num("rmse_m", 3))
                 .text(" m."),
@@ -621,15 +633,18 @@ pub fn match_page(outcome: &MatchOutcome, solution: &Solution) -> Page {
                 .text("Of ")
                 .num(num("significance.trials", 0))
                 .text(" target landmarks over the reference, ")
-                .num(num("significance.inliers", 0))
+                .num(num("significance.paired_within_search_radius", 0))
                 .text(" were paired within the search radius; chance alone would explain that with an expected number of false detections of at most ")
                 .power_of_ten(num("significance.log10_false_alarms", 1))
                 .text("."),
-        ],
+        ]
+        .into_iter()
+        .chain(verdict_lines)
+        .collect(),
     };
 
     let mut key_numbers: Vec<Row> = [
-        Row::of("control points", d, TRANSFORM, "inliers", 0, ""),
+        Row::of("control points", d, TRANSFORM, "control_points", 0, ""),
         Row::of("RMSE", d, TRANSFORM, "rmse_m", 3, "m").map(|r| {
             r.note(Line::new().text("radial, over the control points the transform was fitted on"))
         }),
@@ -638,7 +653,7 @@ pub fn match_page(outcome: &MatchOutcome, solution: &Solution) -> Page {
             "largest residual allowed",
             d,
             TRANSFORM,
-            "thresholds.tolerance_m",
+            "thresholds.max_residual_m",
             3,
             "m",
         ),
@@ -646,7 +661,7 @@ pub fn match_page(outcome: &MatchOutcome, solution: &Solution) -> Page {
             "search radius",
             d,
             TRANSFORM,
-            "thresholds.search_tolerance_m",
+            "thresholds.search_radius_m",
             3,
             "m",
         ),
@@ -790,7 +805,7 @@ pub fn match_page(outcome: &MatchOutcome, solution: &Solution) -> Page {
         map,
         map_notes,
         residuals_m: residuals,
-        residual_limit_m: Some(solution.inlier_tolerance * mpu),
+        residual_limit_m: Some(solution.max_residual * mpu),
         rmse_m: Some(solution.fit.rmse * mpu),
         areas: Vec::new(),
         cautions: cautions(),
@@ -959,7 +974,7 @@ pub fn accuracy_rows(d: &Value) -> (Vec<Row>, Vec<Line>) {
     .collect();
     let notes = vec![Line::new()
         .text("These figures come from the residuals of the ")
-        .num(num("inliers", 0))
+        .num(num("control_points", 0))
         .text(" control points the transform was fitted on, which overstates the accuracy; an accuracy that can be stated needs independent checkpoints.")];
     (rows, notes)
 }
@@ -979,7 +994,7 @@ mod tests {
     use super::*;
 
     fn page() -> Page {
-        let doc = json!({"rmse_m": 0.123456789, "inliers": 42, "chosen": {"shift_m": [1.5, -2.25]}, "name": "a<b"});
+        let doc = json!({"rmse_m": 0.123456789, "control_points": 42, "chosen": {"shift_m": [1.5, -2.25]}, "name": "a<b"});
         let reference: Vec<[f64; 2]> = (0..50)
             .map(|i| [(i % 10) as f64 * 5.0, (i / 10) as f64 * 5.0])
             .collect();
@@ -1080,7 +1095,7 @@ mod tests {
     fn the_accuracy_statement_is_shown_when_the_document_has_it() {
         let est = |v: f64, se: f64, s: bool| json!({"value": v, "se": se, "significant": s});
         let doc = json!({
-            "rmse_m": 0.2, "sigma_m": 0.14, "inliers": 40,
+            "rmse_m": 0.2, "sigma_m": 0.14, "control_points": 40,
             "at_centroid": {"reference_x": 455000.25, "reference_y": 5210000.5,
                 "shift_east_m": est(-15.62, 0.004, true), "shift_north_m": est(3.7, 0.004, true),
                 "rotation_arcsec": est(-1462.9, 0.6, true), "scale_ppm": est(-893.4, 2.1, true)},
@@ -1114,7 +1129,7 @@ mod tests {
         );
         assert!(line(&rot.note).contains("data-key=\"at_centroid.rotation_arcsec.significant\""));
 
-        let plain = json!({"rmse_m": 0.2, "sigma_m": 0.14, "inliers": 40});
+        let plain = json!({"rmse_m": 0.2, "sigma_m": 0.14, "control_points": 40});
         let (rows, notes) = accuracy_rows(&plain);
         assert_eq!(rows[0].number.key, "rmse_m");
         assert!(line(&notes[0]).contains("overstates"));

@@ -81,7 +81,7 @@ fn holdout_keeps_a_seeded_share_out_of_the_fit() {
     assert_eq!(a["source"]["kind"], "holdout");
     assert_eq!(a["source"]["share"], 0.25);
     let held = a["points_total"].as_u64().unwrap();
-    let fitted = doc["inliers"].as_u64().unwrap();
+    let fitted = doc["control_points"].as_u64().unwrap();
     let total = held + fitted;
     assert_eq!(held, (0.25 * total as f64).round() as u64);
     assert!(
@@ -116,7 +116,7 @@ fn without_checkpoints_the_figure_is_leave_one_out() {
     let a = &doc["accuracy"];
     assert_eq!(a["source"]["kind"], "leave_one_out");
     assert_eq!(a["independent"], false);
-    assert_eq!(a["n"], doc["inliers"]);
+    assert_eq!(a["n"], doc["control_points"]);
     // Each point left out of its own fit: larger than the fit's own residuals.
     assert!(a["rmse_r_m"].as_f64() > a["fit_residuals"]["rmse_r_m"].as_f64());
     assert!(out

@@ -285,7 +285,7 @@ fn match_once(n: usize) -> Run {
     Run {
         sizes,
         usage,
-        control_points: doc["inliers"].as_u64().unwrap_or(0),
+        control_points: doc["control_points"].as_u64().unwrap_or(0),
     }
 }
 
