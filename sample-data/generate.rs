@@ -83,8 +83,8 @@
 //! This file is built as the `generate-sample-data` example of the tiemark crate but uses only
 //! gdal, proj, rand, rand_chacha, serde_json and std (never the tiemark library).
 
-mod epochs;
 mod drift_epochs;
+mod epochs;
 mod scene;
 
 use std::collections::HashMap;

@@ -45,8 +45,8 @@
 pub(crate) mod atomic;
 pub mod csv;
 pub mod destination;
-pub mod epochs;
 pub mod drift;
+pub mod epochs;
 pub mod gpkg;
 pub mod html;
 pub mod json;
