@@ -250,3 +250,88 @@ pub fn write_drift_files(
     write_drift_areas(drift, reference_wkt, &dir.join(DRIFT_GPKG))?;
     Ok(DRIFT_FILES.to_vec())
 }
+
+/// Writes `report.html` of a drift check to `path` (over the match's page in the staging
+/// folder): the match's page with the drift verdict, the drift numbers (from `drift.json`'s
+/// document) and the flagged areas drawn on the map.
+pub fn write_drift_page(
+    outcome: &crate::outcome::MatchOutcome,
+    solution: &crate::fit::Solution,
+    drift: &Drift,
+    path: &Path,
+) -> Result<(), EmitError> {
+    use super::html::{self, AreaOutline, Line, Number, Row, VerdictKind};
+    let doc = serde_json::to_value(drift).expect("a drift serialises");
+    let source = DRIFT_JSON;
+    let num = |key: &str, decimals: usize| Number::of(&doc, source, key, decimals);
+    let mut page = html::match_page(outcome, solution);
+    page.title = "tiemark — drift check".into();
+    page.verdict.kind = match drift.verdict {
+        crate::drift::Verdict::Within => VerdictKind::Within,
+        crate::drift::Verdict::Exceeded => VerdictKind::Exceeded,
+    };
+    page.verdict.headline = drift.verdict_line.clone();
+    page.verdict.lines.insert(
+        0,
+        Line::new()
+            .text("Largest drift over the overlap of the two surveys ")
+            .num(num("max_drift_m", 3))
+            .text(" m against a tolerance of ")
+            .num(num("tolerance_m", 3))
+            .text(" m; ")
+            .num(Some(Number::page("areas", drift.local_areas.len(), 0)))
+            .text(" local drift area(s) flagged."),
+    );
+    let mut drift_rows: Vec<Row> = [
+        ("drift east at the centroid", "shift_east_m", 3, "m"),
+        ("drift north at the centroid", "shift_north_m", 3, "m"),
+        ("rotation", "rotation_arcsec", 2, "″"),
+        ("scale", "scale_ppm", 1, "ppm"),
+    ]
+    .into_iter()
+    .filter_map(|(label, key, d, unit)| {
+        Row::of(label, &doc, source, &format!("{key}.value"), d, unit)
+            .map(|r| r.se(&doc, source, &format!("{key}.se"), d))
+    })
+    .collect();
+    drift_rows.extend(Row::of(
+        "largest drift over the overlap",
+        &doc,
+        source,
+        "max_drift_m",
+        3,
+        "m",
+    ));
+    drift_rows.append(&mut page.transform);
+    page.transform = drift_rows;
+    // The areas' outlines are in the reference CRS; the map is drawn in the working frame.
+    let to_working =
+        crate::frame::crs::Converter::new(&outcome.frame.reference_crs, &outcome.frame.crs).ok();
+    for (i, area) in drift.local_areas.iter().enumerate() {
+        let outline: Option<Vec<[f64; 2]>> =
+            if outcome.frame.reference_crs.wkt == outcome.frame.crs.wkt {
+                Some(area.outline.clone())
+            } else {
+                to_working
+                    .as_ref()
+                    .and_then(|c| area.outline.iter().map(|&p| c.convert(p)).collect())
+            };
+        let key = |k: &str| format!("local_areas.{i}.{k}");
+        let rows: Vec<Row> = [
+            ("centre x", "x", 2, "m"),
+            ("centre y", "y", 2, "m"),
+            ("shift relative to the rest", "shift_m", 3, "m"),
+            ("movement relative to the reference", "movement_m", 3, "m"),
+            ("p-value", "p_value", 3, ""),
+        ]
+        .into_iter()
+        .filter_map(|(label, k, d, unit)| Row::of(label, &doc, source, &key(k), d, unit))
+        .collect();
+        page.areas.push(AreaOutline {
+            label: area.id.to_string(),
+            outline: outline.unwrap_or_default(),
+            rows,
+        });
+    }
+    std::fs::write(path, html::render(&page)).map_err(io_err(path))
+}

@@ -237,7 +237,6 @@ pub fn match_surveys(config: &MatchConfig, progress: &dyn Progress) -> Result<Ma
     };
     // Refined on the pixels, the target's positions are the working frame's (one CRS), and
     // every model is fitted again on the refined control points.
-    let mut target = target;
     if pixels.as_ref().is_some_and(|p| p.not_applied.is_none()) {
         target.points = frame.target.clone();
         if let Ok(solution) = fit.as_mut() {

@@ -179,7 +179,13 @@ fn run_drift(
     };
     let summary = format!("{summary}\n{}", found.summary());
     let wkt = outcome.frame.reference_crs.wkt.clone();
-    let extra = |dir: &Path| emit::drift::write_drift_files(&found, &wkt, dir);
+    let solution = outcome.solution().expect("an accepted match");
+    let extra = |dir: &Path| {
+        let names = emit::drift::write_drift_files(&found, &wkt, dir)?;
+        // The drift check's page replaces the match's: its verdict, its numbers, its areas.
+        emit::drift::write_drift_page(&outcome, solution, &found, &dir.join(emit::FILES[4]))?;
+        Ok(names)
+    };
     match emit::write_all_with(&outcome, &out, &summary, warp, &bars, &extra) {
         Ok(files) => {
             print(&report::with_files(&summary, &files));
