@@ -30,7 +30,7 @@
 //! scale given in metres on the ground; [`refine`] refines control points on the pixels by
 //! local image correlation, after the robust fit. [`progress`] is how stages report progress. The writers
 //! ([`emit`], [`report`]) sit on top of the outcome, never the other way round. [`synth`] makes
-//! seeded synthetic surveys for tests, benchmarks and experiments; [`experiment`] (cargo feature
+//! seeded synthetic surveys for tests, benchmarks and experiments; `experiment` (cargo feature
 //! `experiments`) measures the signature stage.
 //!
 //! Automatically found control points must be verified against independent checkpoints

@@ -249,6 +249,21 @@ fn a_block_moved_beyond_the_tolerance_is_found_and_exceeded() {
     let n_acc = v["accuracy"]["n"].as_u64().unwrap() as usize;
     assert!(n_acc + landmarks.len() <= b.len());
     assert!(v["control_points"].as_u64().unwrap() as usize == n_acc);
+    // The page says the verdict in words and carries the area's numbers as drift.json has
+    // them (each number a <data> element with its exact JSON value).
+    let page = std::fs::read_to_string(run.out.join("report.html")).unwrap();
+    assert!(page.contains("TOLERANCE EXCEEDED"));
+    let tag = "data-key=\"local_areas.0.shift_m\"";
+    let at = page.find(tag).expect("the area's shift on the page");
+    let element = &page[page[..at].rfind("<data").unwrap()..at];
+    let value: f64 = element
+        .split("value=\"")
+        .nth(1)
+        .and_then(|r| r.split('"').next())
+        .unwrap()
+        .parse()
+        .unwrap();
+    assert_eq!(value, a["shift_m"].as_f64().unwrap());
 }
 
 #[test]
