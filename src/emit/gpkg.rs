@@ -18,9 +18,9 @@
 //! `CreateSpatialIndex(table, column)` (the virtual table, the triggers that keep it up to date
 //! and the `gpkg_extensions` row, exactly as GDAL makes them), the index's triggers are set
 //! aside while the features go in, the tree is packed in one pass from the features' bounding
-//! boxes ([`PackedTree`]: sort-tile-recursive, full nodes) and stored straight into the R*Tree
+//! boxes (`PackedTree`: sort-tile-recursive, full nodes) and stored straight into the R*Tree
 //! module's shadow tables (`_node`, `_parent`, `_rowid`, whose layout is SQLite's, see
-//! [`PackedTree`]), and the triggers are put back as GDAL made them. The result is the index
+//! `PackedTree`), and the triggers are put back as GDAL made them. The result is the index
 //! the trigger-by-trigger way would have built, in another shape (SQLite's `rtreecheck()`
 //! passes on it, GDAL reports `HasSpatialIndex` and uses it for spatial filters), and later
 //! edits maintain it as usual.
