@@ -151,9 +151,11 @@ fn config(files: &[PathBuf], local: &[bool]) -> EpochsConfig {
             "EPSG:32616".into()
         });
     }
-    // Control points up to 500 m apart (25 noise standard deviations of a pair): wide enough
-    // for a landmark that moved 200 m to stay paired, so that the moved test can see it.
-    c.fit.tolerance_m = Some(500.0);
+    // Control points up to 500 m apart (25 noise standard deviations of a pair), searched
+    // that far: wide enough for a landmark that moved 200 m to stay paired, so that the moved
+    // test can see it.
+    c.fit.search_radius_m = Some(500.0);
+    c.fit.max_residual_m = Some(500.0);
     c
 }
 
@@ -301,10 +303,12 @@ fn tracks_in_all_epochs_and_in_three_are_found_and_a_moved_airport_is_reported()
 fn joint_adjustment_equals_the_pairwise_fits_without_noise() {
     let tmp = tempfile::tempdir().unwrap();
     let (files, _) = write_epochs(tmp.path(), 77, 0.8, 0.0, &[]);
-    // The default tolerance (from the residual spread): on exact data no new landmark that
-    // happens to lie near a missing airport is taken as a control point.
+    // The default search radius and largest residual (from the spacing and the residual
+    // spread): on exact data no new landmark that happens to lie near a missing airport is
+    // taken as a control point.
     let mut cfg = config(&files, &LOCAL);
-    cfg.fit.tolerance_m = None;
+    cfg.fit.search_radius_m = None;
+    cfg.fit.max_residual_m = None;
     let outcome = epochs::run(&cfg, &[], &Silent).unwrap();
     for p in outcome.pairs.iter().filter(|p| p.reference == 0) {
         let pairwise = p.result.as_ref().unwrap().transform;
