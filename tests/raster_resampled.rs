@@ -14,34 +14,10 @@
 
 use gdal::raster::Buffer;
 use gdal::{Dataset, DriverManager};
-use std::path::{Path, PathBuf};
-use std::process::Command;
-
-/// The georeferencing error given to the target: scale 1 + 500 ppm, 1.5° counter-clockwise
-/// about the image centre, then 47 m east-north-east.
-const SCALE: f64 = 1.0 + 500e-6;
-const ROTATION_DEG: f64 = 1.5;
-const SHIFT: [f64; 2] = [28.2, 37.6];
-
-fn landsat() -> PathBuf {
-    let p = Path::new(env!("CARGO_MANIFEST_DIR")).join("target/reference-data/L7_ETMs.tif");
-    assert!(
-        p.is_file(),
-        "{} is missing: run `bash .ci/setup` (it fetches Debian's r-cran-stars and extracts the file)",
-        p.display()
-    );
-    p
-}
-
-/// The error similarity (true map → the target's claimed map) about `centre`.
-fn error(centre: [f64; 2], p: [f64; 2]) -> [f64; 2] {
-    let (s, c) = ROTATION_DEG.to_radians().sin_cos();
-    let (x, y) = (p[0] - centre[0], p[1] - centre[1]);
-    [
-        centre[0] + SCALE * (c * x - s * y) + SHIFT[0],
-        centre[1] + SCALE * (s * x + c * y) + SHIFT[1],
-    ]
-}
+#[path = "common/landsat.rs"]
+mod landsat;
+use landsat::{error, landsat, tiemark};
+use std::path::Path;
 
 /// `gt` with the error applied about `centre`.
 fn with_error(gt: [f64; 6], centre: [f64; 2]) -> [f64; 6] {
@@ -85,22 +61,6 @@ fn write_tif(path: &Path, pixels: Vec<f32>, size: (usize, usize), gt: [f64; 6], 
         .unwrap()
         .write((0, 0), size, &mut buffer)
         .unwrap();
-}
-
-fn tiemark(dir: &Path, args: &[&str]) -> (Option<i32>, String) {
-    let out = Command::new(env!("CARGO_BIN_EXE_tiemark"))
-        .args(args)
-        .current_dir(dir)
-        .output()
-        .unwrap();
-    (
-        out.status.code(),
-        format!(
-            "{}{}",
-            String::from_utf8_lossy(&out.stdout),
-            String::from_utf8_lossy(&out.stderr)
-        ),
-    )
 }
 
 /// The transform tiemark wrote (target map → reference map).

@@ -1,0 +1,55 @@
+//! The real image and the known georeferencing error shared by the raster tests: the Landsat 7
+//! ETM+ scene that Debian's package r-cran-stars ships (USGS imagery, public domain; the
+//! package is Apache-2.0; `stars/tif/L7_ETMs.tif`, 349 × 352 px of 28.5 m — see
+//! tests/data/README.md; `bash .ci/setup` fetches it into `target/reference-data/`), and a
+//! runner of the binary.
+
+use std::path::{Path, PathBuf};
+use std::process::Command;
+
+/// The georeferencing error given to a target: scale 1 + 500 ppm, 1.5° counter-clockwise
+/// about the image centre, then 47 m east-north-east (the size of the error issue 8's
+/// feasibility check used).
+pub const SCALE: f64 = 1.0 + 500e-6;
+/// Its rotation, degrees counter-clockwise.
+pub const ROTATION_DEG: f64 = 1.5;
+/// Its shift, metres east and north.
+pub const SHIFT: [f64; 2] = [28.2, 37.6];
+
+/// The scene's path; a clear failure when `bash .ci/setup` has not fetched it.
+pub fn landsat() -> PathBuf {
+    let p = Path::new(env!("CARGO_MANIFEST_DIR")).join("target/reference-data/L7_ETMs.tif");
+    assert!(
+        p.is_file(),
+        "{} is missing: run `bash .ci/setup` (it fetches Debian's r-cran-stars and extracts the file)",
+        p.display()
+    );
+    p
+}
+
+/// The error similarity (true map → the target's claimed map) about `centre`.
+pub fn error(centre: [f64; 2], p: [f64; 2]) -> [f64; 2] {
+    let (s, c) = ROTATION_DEG.to_radians().sin_cos();
+    let (x, y) = (p[0] - centre[0], p[1] - centre[1]);
+    [
+        centre[0] + SCALE * (c * x - s * y) + SHIFT[0],
+        centre[1] + SCALE * (s * x + c * y) + SHIFT[1],
+    ]
+}
+
+/// Runs the binary in `dir`: its exit code and stdout + stderr.
+pub fn tiemark(dir: &Path, args: &[&str]) -> (Option<i32>, String) {
+    let out = Command::new(env!("CARGO_BIN_EXE_tiemark"))
+        .args(args)
+        .current_dir(dir)
+        .output()
+        .unwrap();
+    (
+        out.status.code(),
+        format!(
+            "{}{}",
+            String::from_utf8_lossy(&out.stdout),
+            String::from_utf8_lossy(&out.stderr)
+        ),
+    )
+}
