@@ -18,7 +18,7 @@ use tiemark::signatures::{size_rule, KeySpace, VertexOrder};
 /// Exit codes and the caution, after every command's help.
 pub fn after_help() -> String {
     format!(
-        "Exit codes: 0 control points written; 1 no consistent transform found, or an ambiguous one (nothing written); 2 bad input or error.\n\n{}",
+        "Exit codes: 0 control points written; 1 no consistent transform found, or an ambiguous one (nothing written); 2 bad input or error; 3 (a drift check, also through `tiemark run`) tolerance exceeded.\n\n{}",
         tiemark::report::CAUTION
     )
 }
