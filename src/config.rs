@@ -113,7 +113,7 @@ pub struct PipelineFile {
     /// `[drift]`: with it, `tiemark run` makes the drift check (`tiemark drift`) instead of a
     /// plain match.
     #[serde(default)]
-    pub drift: Option<crate::drift::DriftParams>,
+    pub drift: Option<DriftParams>,
 }
 
 /// A configuration could not be used.
@@ -393,4 +393,13 @@ mod tests {
         assert!(e.contains("line 8"), "{e}");
         assert!(e.contains("cube") && e.contains("sphere"), "{e}");
     }
+}
+
+/// Options of the drift check (pipeline table `[drift]`; checked by `crate::drift`).
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct DriftParams {
+    /// The largest movement allowed, metres (globally anywhere over the overlap, and for any
+    /// flagged area).
+    pub tolerance_m: f64,
 }

@@ -11,6 +11,9 @@ use crate::frame::WorkingFrame;
 use crate::ingest::LandmarkSet;
 use crate::signatures::SignatureParams;
 
+/// The caution every report and every result carries.
+pub const CAUTION: &str = "Control points found automatically must be verified against independent checkpoints before use. Legal or engineering survey work defers to local regulations and licensed surveyors.";
+
 /// What the signature and matching stages produced, and with which options.
 #[derive(Debug, Clone)]
 pub struct Search {

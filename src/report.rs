@@ -15,8 +15,9 @@ use geo::{MultiPoint, MultiPolygon, Point};
 use std::fmt::Write;
 use std::path::PathBuf;
 
-/// The caution every report carries.
-pub const CAUTION: &str = "Control points found automatically must be verified against independent checkpoints before use. Legal or engineering survey work defers to local regulations and licensed surveyors.";
+/// The caution every report carries (defined with the outcome, which the library's own
+/// results such as the drift check also carry).
+pub use crate::outcome::CAUTION;
 
 /// The overlap of the two surveys in the working frame: the intersection of the convex hull
 /// of the reference landmarks with that of the target landmarks mapped by the transform.

@@ -29,19 +29,14 @@ pub mod geometry;
 
 use crate::accuracy::Estimate;
 use crate::outcome::MatchOutcome;
-use serde::{Deserialize, Serialize};
+use serde::Serialize;
 use std::fmt::Write;
 
 pub use field::{GlobalTest, DRAWS, LEVEL};
 
-/// Options of the drift check (pipeline table `[drift]`).
-#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct DriftParams {
-    /// The largest movement allowed, metres (globally anywhere over the overlap, and for any
-    /// flagged area).
-    pub tolerance_m: f64,
-}
+/// Options of the drift check (pipeline table `[drift]`); defined with the configuration,
+/// below this module, so that the module graph has no cycle.
+pub use crate::config::DriftParams;
 
 impl DriftParams {
     /// Checks the options alone.
@@ -346,7 +341,7 @@ pub fn analyse(outcome: &MatchOutcome, params: &DriftParams) -> Result<Drift, Dr
             extra_pairs: a.extra_pairs,
             sigma_m: a.sigma * mpu,
         },
-        caution: crate::report::CAUTION,
+        caution: crate::outcome::CAUTION,
     })
 }
 
