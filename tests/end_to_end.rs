@@ -332,19 +332,25 @@ fn unrelated_surveys_exit_1_and_write_nothing() {
     assert!(leftovers.is_empty());
 }
 
-#[test]
-fn landmarks_command_writes_what_it_reads() {
-    let tmp = tempfile::tempdir().unwrap();
-    let out = tmp.path().join("landmarks.csv");
+/// `tiemark landmarks` on the sample site grid (ids in `pt`), written to `out`.
+fn site_grid_landmarks(out: &Path) -> (i32, String, String) {
     let src = root().join("sample-data/site-grid.csv");
-    let (code, stdout, stderr) = tiemark(&[
+    tiemark(&[
         "landmarks",
         src.to_str().unwrap(),
         "--id",
         "pt",
         "--out",
         out.to_str().unwrap(),
-    ]);
+    ])
+}
+
+#[test]
+fn landmarks_command_writes_what_it_reads() {
+    let tmp = tempfile::tempdir().unwrap();
+    let out = tmp.path().join("landmarks.csv");
+    let src = root().join("sample-data/site-grid.csv");
+    let (code, stdout, stderr) = site_grid_landmarks(&out);
     assert_eq!(code, 0, "{stderr}");
     assert!(stdout.contains("250 landmarks"), "{stdout}");
     let text = std::fs::read_to_string(&out).unwrap();
@@ -373,15 +379,7 @@ fn landmarks_of_a_csv_with_no_crs_are_tagged_as_a_local_grid_in_a_geopackage() {
     // degrees; local coordinates must be tagged as an engineering (Cartesian) CRS instead.
     let tmp = tempfile::tempdir().unwrap();
     let out = tmp.path().join("site.gpkg");
-    let src = root().join("sample-data/site-grid.csv");
-    let (code, _, stderr) = tiemark(&[
-        "landmarks",
-        src.to_str().unwrap(),
-        "--id",
-        "pt",
-        "--out",
-        out.to_str().unwrap(),
-    ]);
+    let (code, _, stderr) = site_grid_landmarks(&out);
     assert_eq!(code, 0, "{stderr}");
     let ds = gdal::Dataset::open(&out).unwrap();
     use gdal::vector::LayerAccess;

@@ -40,17 +40,7 @@ fn write_band(band: usize, path: &Path, with_error: bool, mirrored: bool) -> [f6
             gt[0] + gt[1] * w as f64 / 2.0,
             gt[3] + gt[5] * h as f64 / 2.0,
         ];
-        let o = error(centre, [gt[0], gt[3]]);
-        let ex = error(centre, [gt[0] + gt[1], gt[3]]);
-        let ey = error(centre, [gt[0], gt[3] + gt[5]]);
-        [
-            o[0],
-            ex[0] - o[0],
-            ey[0] - o[0],
-            o[1],
-            ex[1] - o[1],
-            ey[1] - o[1],
-        ]
+        landsat::with_error(gt, centre)
     } else {
         gt
     };
@@ -80,33 +70,10 @@ fn two_bands_with_a_known_georeferencing_error_are_coregistered_within_a_third_o
     );
     assert_eq!(code, Some(0), "{text}");
     assert!(text.contains("on the pixels"), "{text}");
-    let t: serde_json::Value = serde_json::from_str(
-        &std::fs::read_to_string(dir.path().join("out/transform.json")).unwrap(),
-    )
-    .unwrap();
-    let f = |k: &str| t[k].as_f64().unwrap_or_else(|| panic!("{k} in {t}"));
-    let (s, th, tx, ty) = (
-        f("scale"),
-        f("rotation_deg").to_radians(),
-        f("translation_x"),
-        f("translation_y"),
-    );
     // transform.json maps target coordinates onto reference coordinates; the truth is the
-    // inverse of the error. Compare both at the target image's corners (true positions), in
-    // pixels of 28.5 m.
+    // inverse of the error; corner_error compares both at the target image's corners.
+    let (worst, t) = corner_error(&dir.path().join("out"), &gt);
     let (w, h) = (349.0, 352.0);
-    let centre = [gt[0] + gt[1] * w / 2.0, gt[3] + gt[5] * h / 2.0];
-    let mut worst: f64 = 0.0;
-    for (p, l) in [(0.0, 0.0), (w, 0.0), (0.0, h), (w, h)] {
-        let truth = [gt[0] + gt[1] * p, gt[3] + gt[5] * l];
-        let claimed = error(centre, truth);
-        let fitted = [
-            s * (th.cos() * claimed[0] - th.sin() * claimed[1]) + tx,
-            s * (th.sin() * claimed[0] + th.cos() * claimed[1]) + ty,
-        ];
-        let px = (fitted[0] - truth[0]).hypot(fitted[1] - truth[1]) / gt[1];
-        worst = worst.max(px);
-    }
     eprintln!("{text}\nworst corner error {worst:.4} px");
     assert!(worst <= 0.3, "corner error {worst:.3} px\n{text}");
     // GDAL (the reference library) reads both VRTs: the GCP list, one GCP a control point, in

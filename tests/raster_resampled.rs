@@ -16,23 +16,8 @@ use gdal::raster::Buffer;
 use gdal::{Dataset, DriverManager};
 #[path = "common/landsat.rs"]
 mod landsat;
-use landsat::{error, landsat, tiemark};
+use landsat::{error, landsat, tiemark, with_error};
 use std::path::Path;
-
-/// `gt` with the error applied about `centre`.
-fn with_error(gt: [f64; 6], centre: [f64; 2]) -> [f64; 6] {
-    let o = error(centre, [gt[0], gt[3]]);
-    let ex = error(centre, [gt[0] + gt[1], gt[3]]);
-    let ey = error(centre, [gt[0], gt[3] + gt[5]]);
-    [
-        o[0],
-        ex[0] - o[0],
-        ey[0] - o[0],
-        o[1],
-        ex[1] - o[1],
-        ey[1] - o[1],
-    ]
-}
 
 /// Band `band` of the scene as `Float32` pixels, with the scene's size, geotransform and CRS.
 fn scene_band(band: usize) -> (Vec<f32>, (usize, usize), [f64; 6], String) {

@@ -23,13 +23,14 @@
 //!   `area_id`, `reference_id`, `target_id`, `shift_east_m`, `shift_north_m`). Both layers exist
 //!   (empty) when no area was flagged.
 
+use super::gpkg::{add_fields, close_checked, create_gpkg, gdal_err, point, srs_from_wkt};
 use super::{io_err, EmitError};
 use crate::drift::Drift;
-use gdal::spatial_ref::{AxisMappingStrategy, SpatialRef};
+use gdal::spatial_ref::SpatialRef;
 use gdal::vector::{
-    Feature, FieldDefn, Geometry, LayerAccess, LayerOptions, OGRFieldType, OGRwkbGeometryType,
+    Feature, Geometry, LayerAccess, LayerOptions, OGRFieldType, OGRwkbGeometryType,
 };
-use gdal::{Dataset, DriverManager};
+use gdal::Dataset;
 use std::path::Path;
 
 /// `drift.json`.
@@ -58,32 +59,6 @@ pub fn write_drift_json(drift: &Drift, path: &Path) -> Result<(), EmitError> {
     std::fs::write(path, text + "\n").map_err(io_err(path))
 }
 
-fn gdal_err(path: &Path) -> impl Fn(gdal::errors::GdalError) -> EmitError + '_ {
-    move |source| {
-        let detail = source.to_string();
-        if super::atomic::disk_full_text(&detail) {
-            EmitError::DiskFull {
-                path: path.to_path_buf(),
-                detail,
-            }
-        } else {
-            EmitError::Gdal {
-                path: path.to_path_buf(),
-                source,
-            }
-        }
-    }
-}
-
-/// Clears the thread's `OGR_CURRENT_DATE` on drop.
-struct DateFixed;
-
-impl Drop for DateFixed {
-    fn drop(&mut self) {
-        let _ = gdal::config::clear_thread_local_config_option("OGR_CURRENT_DATE");
-    }
-}
-
 fn ring(points: &[[f64; 2]]) -> gdal::errors::Result<Geometry> {
     let mut r = Geometry::empty(OGRwkbGeometryType::wkbLinearRing)?;
     for p in points {
@@ -94,12 +69,6 @@ fn ring(points: &[[f64; 2]]) -> gdal::errors::Result<Geometry> {
     }
     let mut g = Geometry::empty(OGRwkbGeometryType::wkbPolygon)?;
     g.add_geometry(r)?;
-    Ok(g)
-}
-
-fn point(p: [f64; 2]) -> gdal::errors::Result<Geometry> {
-    let mut g = Geometry::empty(OGRwkbGeometryType::wkbPoint)?;
-    g.add_point_2d((p[0], p[1]));
     Ok(g)
 }
 
@@ -128,11 +97,7 @@ fn add_layer(
             options: None,
         })
         .map_err(&e)?;
-    for (n, t) in fields {
-        FieldDefn::new(n, *t)
-            .and_then(|d| d.add_to_layer(&layer))
-            .map_err(&e)?;
-    }
+    add_fields(&layer, fields, path)?;
     for (values, geometry) in rows {
         let mut f = Feature::new(layer.defn()).map_err(&e)?;
         for (i, v) in values.iter().enumerate() {
@@ -153,15 +118,9 @@ fn add_layer(
 pub fn write_drift_areas(drift: &Drift, reference_wkt: &str, path: &Path) -> Result<(), EmitError> {
     use OGRFieldType::{OFTInteger, OFTReal, OFTString};
     let e = gdal_err(path);
-    let mut srs = SpatialRef::from_wkt(reference_wkt).map_err(&e)?;
-    srs.set_axis_mapping_strategy(AxisMappingStrategy::TraditionalGisOrder);
-    // A fixed timestamp in gpkg_contents (GDAL's GPKG driver option OGR_CURRENT_DATE), so that
-    // the same drift gives the same bytes.
-    gdal::config::set_thread_local_config_option("OGR_CURRENT_DATE", "2000-01-01T00:00:00.000Z")
-        .map_err(&e)?;
-    let _fixed = DateFixed;
-    let driver = DriverManager::get_driver_by_name("GPKG").map_err(&e)?;
-    let mut ds = driver.create_vector_only(path).map_err(&e)?;
+    let srs = srs_from_wkt(reference_wkt, path)?;
+    // The fixed timestamp makes the same drift give the same bytes.
+    let (mut ds, _fixed) = create_gpkg(path)?;
     {
         let mut txn = ds.start_transaction().map_err(&e)?;
         let mut areas = Vec::new();
@@ -231,13 +190,7 @@ pub fn write_drift_areas(drift: &Drift, reference_wkt: &str, path: &Path) -> Res
         )?;
         txn.commit().map_err(&e)?;
     }
-    // GDAL builds the spatial index at close and may only print a failure: ask for it.
-    crate::ingest::clear_gdal_error();
-    ds.close().map_err(&e)?;
-    match crate::ingest::take_gdal_failure() {
-        Some(err) => Err(e(err)),
-        None => Ok(()),
-    }
+    close_checked(ds, path)
 }
 
 /// Writes both drift files into the staging folder `dir`; their names.

@@ -37,6 +37,22 @@ pub fn error(centre: [f64; 2], p: [f64; 2]) -> [f64; 2] {
     ]
 }
 
+/// The geotransform `gt` with the error applied about `centre`: the target's claimed
+/// georeferencing when its pixels are the true scene's.
+pub fn with_error(gt: [f64; 6], centre: [f64; 2]) -> [f64; 6] {
+    let o = error(centre, [gt[0], gt[3]]);
+    let ex = error(centre, [gt[0] + gt[1], gt[3]]);
+    let ey = error(centre, [gt[0], gt[3] + gt[5]]);
+    [
+        o[0],
+        ex[0] - o[0],
+        ey[0] - o[0],
+        o[1],
+        ex[1] - o[1],
+        ey[1] - o[1],
+    ]
+}
+
 /// Runs the binary in `dir`: its exit code and stdout + stderr.
 pub fn tiemark(dir: &Path, args: &[&str]) -> (Option<i32>, String) {
     let out = Command::new(env!("CARGO_BIN_EXE_tiemark"))

@@ -44,6 +44,42 @@ impl Source {
     }
 }
 
+/// What `match` and `drift` check before any work, so that a long run cannot end in these
+/// errors: the resampling `output.warp` names, and the output folder (which may hold none of
+/// the inputs: the surveys, the pipeline file, the checkpoints). `extra_files`: the names the
+/// command writes besides the match's own.
+fn prepare_outputs(
+    config: &MatchConfig,
+    output: &OutputOptions,
+    pipeline: Option<&Path>,
+    extra_files: &[&str],
+) -> Result<(emit::Destination, Option<emit::raster::Resampling>), String> {
+    let warp = match output.warp.as_deref() {
+        None => None,
+        Some(name) => Some(emit::raster::Resampling::from_name(name).ok_or_else(|| {
+            format!(
+                "output.warp = {name:?} is not a resampling; choose one of {}",
+                emit::raster::Resampling::NAMES.join(", ")
+            )
+        })?),
+    };
+    let mut inputs = vec![
+        config.reference.path.as_path(),
+        config.target.path.as_path(),
+    ];
+    inputs.extend(pipeline);
+    inputs.extend(config.accuracy.checkpoints.as_deref());
+    let names: Vec<&str> = emit::FILES
+        .iter()
+        .chain(&emit::RASTER_FILES)
+        .chain(extra_files)
+        .copied()
+        .collect();
+    let out = emit::check_output_dir(&output.dir, output.force, &names, &inputs)
+        .map_err(|e| e.to_string())?;
+    Ok((out, warp))
+}
+
 /// Computes a match, writes its outputs if a transform was accepted, prints the summary.
 /// `pipeline`: the pipeline file it came from, an input too.
 fn run_match(
@@ -54,35 +90,8 @@ fn run_match(
     source: Source,
 ) -> ExitCode {
     let error = |e: &dyn std::fmt::Display| fail(&source.render(&e.to_string()));
-    // Refused before any work, so that a long run cannot end in this error.
-    let mut inputs = vec![
-        config.reference.path.as_path(),
-        config.target.path.as_path(),
-    ];
-    inputs.extend(pipeline);
-    inputs.extend(config.accuracy.checkpoints.as_deref());
-    let warp = match output
-        .warp
-        .as_deref()
-        .map(emit::raster::Resampling::from_name)
-    {
-        None => None,
-        Some(Some(r)) => Some(r),
-        Some(None) => {
-            return error(&format!(
-                "output.warp = {:?} is not a resampling; choose one of {}",
-                output.warp.as_deref().unwrap_or_default(),
-                emit::raster::Resampling::NAMES.join(", ")
-            ))
-        }
-    };
-    let names: Vec<&str> = emit::FILES
-        .iter()
-        .chain(&emit::RASTER_FILES)
-        .copied()
-        .collect();
-    let out = match emit::check_output_dir(&output.dir, output.force, &names, &inputs) {
-        Ok(d) => d,
+    let (out, warp) = match prepare_outputs(config, output, pipeline, &[]) {
+        Ok(prepared) => prepared,
         Err(e) => return error(&e),
     };
     let bars = bars::Bars::new(quiet);
@@ -131,35 +140,8 @@ fn run_drift(
             config.target.path.display().to_string(),
         ));
     }
-    let mut inputs = vec![
-        config.reference.path.as_path(),
-        config.target.path.as_path(),
-    ];
-    inputs.extend(pipeline);
-    inputs.extend(config.accuracy.checkpoints.as_deref());
-    let warp = match output
-        .warp
-        .as_deref()
-        .map(emit::raster::Resampling::from_name)
-    {
-        None => None,
-        Some(Some(r)) => Some(r),
-        Some(None) => {
-            return error(&format!(
-                "output.warp = {:?} is not a resampling; choose one of {}",
-                output.warp.as_deref().unwrap_or_default(),
-                emit::raster::Resampling::NAMES.join(", ")
-            ))
-        }
-    };
-    let names: Vec<&str> = emit::FILES
-        .iter()
-        .chain(&emit::RASTER_FILES)
-        .chain(&emit::drift::DRIFT_FILES)
-        .copied()
-        .collect();
-    let out = match emit::check_output_dir(&output.dir, output.force, &names, &inputs) {
-        Ok(d) => d,
+    let (out, warp) = match prepare_outputs(config, output, pipeline, &emit::drift::DRIFT_FILES) {
+        Ok(prepared) => prepared,
         Err(e) => return error(&e),
     };
     let bars = bars::Bars::new(quiet);
