@@ -29,6 +29,12 @@ points=$CARGO_TARGET_DIR/bench-end-to-end
 work=$CARGO_TARGET_DIR/bench-prototype
 venv=${PROTOTYPE_VENV:-$CARGO_TARGET_DIR/prototype-venv}
 mkdir -p "$work"
+for tool in /usr/bin/time:time ogr2ogr:gdal-bin ogrinfo:gdal-bin python3:python3-venv; do
+    if ! command -v "${tool%%:*}" >/dev/null; then
+        echo "run.sh: ${tool%%:*} is missing; install Debian's ${tool#*:} package (apt-get install ${tool#*:})" >&2
+        exit 2
+    fi
+done
 
 if [ ! -x "$venv/bin/python" ]; then
     python3 -m venv "$venv"
