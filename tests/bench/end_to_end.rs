@@ -21,6 +21,9 @@
 //! time (`ogr2ogr -f CSV … -lco GEOMETRY=AS_XY` of both inputs one after the other, or the
 //! same copy through GDAL's CSV driver when `ogr2ogr` is not on the PATH) and the ratio.
 
+mod child;
+
+use child::{load, run, Usage};
 use rand::SeedableRng;
 use std::path::{Path, PathBuf};
 use std::process::Command;
@@ -35,45 +38,6 @@ const SEED: u64 = 20_261_102;
 const SPACING: f64 = 20.0;
 /// Centre of the area, EPSG:32633.
 const CENTRE: [f64; 2] = [500_000.0, 5_300_000.0];
-
-/// Resources a finished child used (`wait4`).
-struct Usage {
-    wall: f64,
-    user: f64,
-    sys: f64,
-    peak_rss_bytes: f64,
-    success: bool,
-}
-
-/// Runs `cmd` and waits for it with `wait4`, which reports the child's own CPU times and peak
-/// resident set (Linux: `ru_maxrss` in kilobytes, getrusage(2)).
-#[allow(unsafe_code)]
-fn run(cmd: &mut Command) -> Usage {
-    let start = Instant::now();
-    let child = cmd.spawn().expect("the command starts");
-    let pid = child.id() as libc::pid_t;
-    let mut status: libc::c_int = 0;
-    // SAFETY: `rusage` is plain data that wait4 fills; `pid` is our child, not yet reaped
-    // (std's `Child` is never waited on: dropping it does not reap).
-    let mut usage: libc::rusage = unsafe { std::mem::zeroed() };
-    let got = unsafe { libc::wait4(pid, &mut status, 0, &mut usage) };
-    let wall = start.elapsed().as_secs_f64();
-    assert_eq!(
-        got,
-        pid,
-        "wait4 failed: {}",
-        std::io::Error::last_os_error()
-    );
-    drop(child);
-    let secs = |t: libc::timeval| t.tv_sec as f64 + t.tv_usec as f64 * 1e-6;
-    Usage {
-        wall,
-        user: secs(usage.ru_utime),
-        sys: secs(usage.ru_stime),
-        peak_rss_bytes: usage.ru_maxrss as f64 * 1024.0,
-        success: libc::WIFEXITED(status) && libc::WEXITSTATUS(status) == 0,
-    }
-}
 
 /// The benchmark's folder under the target folder.
 fn bench_dir() -> PathBuf {
@@ -303,12 +267,6 @@ fn print_run(r: &Run) {
         u.peak_rss_bytes / 1e6,
         u.peak_rss_bytes / landmarks
     );
-}
-
-fn load() -> String {
-    std::fs::read_to_string("/proc/loadavg")
-        .map(|l| l.split_whitespace().take(3).collect::<Vec<_>>().join(" "))
-        .unwrap_or_else(|_| "unknown".to_string())
 }
 
 /// Matches the pair of size `n` in this process, then times each writer alone.
