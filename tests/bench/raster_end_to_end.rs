@@ -195,10 +195,8 @@ fn stages(dir: &Path) {
             }
         }
     }
-    let config = tiemark::config::MatchConfig::new(
-        dir.join(scene::ORTHO_FILE),
-        dir.join(scene::DRONE_FILE),
-    );
+    let config =
+        tiemark::config::MatchConfig::new(dir.join(scene::ORTHO_FILE), dir.join(scene::DRONE_FILE));
     println!("stages of the match in this process:");
     let t = Instant::now();
     let outcome = tiemark::engine::match_surveys(&config, &Clock(RefCell::new(None)))
