@@ -132,3 +132,46 @@ fn a_200k_synthetic_pair_gives_the_same_answer_with_one_two_and_four_threads() {
         assert_eq!(parallel.3, serial.3, "fit with {threads} threads");
     }
 }
+
+/// The raster reader (GDAL decoding a read's blocks on the pool's threads, block means shared
+/// by rows) and the keypoint detector give the same samples and keypoints with 1, 2 and 4
+/// threads: the sample scene's drone mosaic (JPEG-compressed tiles, a dataset mask, overviews)
+/// read whole at full resolution, by 3 × 3 block means of the full resolution, and from its
+/// 1/2 overview; and its keypoints as a match finds them.
+#[test]
+fn raster_reads_and_keypoints_are_the_same_with_one_two_and_four_threads() {
+    use tiemark::ingest::{read_landmarks_with, RasterSource, SurveyInput};
+    use tiemark::keypoints::KeypointParams;
+    let drone = root().join("sample-data/scene-drone-2026.tif");
+    let run = |threads: usize| {
+        in_pool(threads, || {
+            let source = RasterSource::open(&drone, None).expect("the mosaic opens");
+            let reads: Vec<(Vec<u32>, Vec<bool>)> = [1, 3, 2]
+                .iter()
+                .map(|&d| {
+                    let img = source.read(d).expect("the mosaic reads");
+                    (img.pixels.iter().map(|v| v.to_bits()).collect(), img.valid)
+                })
+                .collect();
+            let input = SurveyInput::new(drone.clone());
+            let set = read_landmarks_with(&input, &KeypointParams::default(), Some(0.25))
+                .expect("keypoints");
+            (
+                reads,
+                format!("{:?}", set.raster.expect("a raster").keypoints),
+            )
+        })
+    };
+    let one = run(1);
+    assert!(one.0[0].1.iter().any(|&v| !v), "the mask is read");
+    for threads in [2, 4] {
+        let other = run(threads);
+        for (d, (a, b)) in [1, 3, 2].iter().zip(one.0.iter().zip(&other.0)) {
+            assert!(
+                a == b,
+                "decimation {d}: {threads} threads read other samples"
+            );
+        }
+        assert_eq!(one.1, other.1, "{threads} threads found other keypoints");
+    }
+}

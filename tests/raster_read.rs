@@ -424,6 +424,25 @@ fn a_cog_is_read_from_its_overviews() {
     }
     // No overview at a factor of 3: the full resolution, averaged.
     assert_eq!(src.plan(3).unwrap().level, ReadLevel::Averaged);
+    // The fastest decimation up to a factor: an overview's own factor above half of it when
+    // the factor itself would be read from the full resolution; else the factor.
+    for (most, fastest) in [
+        (1, 1),
+        (2, 2),
+        (3, 2),
+        (4, 4),
+        (5, 4),
+        (6, 6),
+        (7, 4),
+        (8, 8),
+    ] {
+        assert_eq!(src.fastest_decimation(most).unwrap(), fastest, "{most}");
+    }
+    // Without overviews every factor is its own.
+    let plain = open(&tif);
+    for most in 1..=8 {
+        assert_eq!(plain.fastest_decimation(most).unwrap(), most, "{most}");
+    }
 }
 
 // ---------------------------------------------------------------------------------------------

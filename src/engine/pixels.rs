@@ -158,6 +158,8 @@ pub(super) fn read_for_refinement(
         .max(1);
     let ref_pixel_m = rr.pixel_m * dr as f64;
     let dt = ((ref_pixel_m / tr.pixel_m).round() as usize).clamp(1, tr.width.min(tr.height).max(1));
+    // A finer target grid served by an overview instead of block means of the full resolution.
+    let dt = target.fastest_decimation(dt)?;
     Ok((reference.read(dr)?, target.read(dt)?))
 }
 

@@ -42,6 +42,12 @@
 //! is read in strips of rows ([`ReadPlan`]): no buffer holds more than [`STRIP_PIXELS`] pixels
 //! of the level read (or one strip row when a single row needs more), so a 30 000 × 30 000 px
 //! mosaic is never in memory whole at full resolution. Only the result is.
+//! [`RasterSource::fastest_decimation`] says when a somewhat finer grid, read from an
+//! overview as it is, serves a caller better than block means of the full resolution.
+//!
+//! **Threads.** A GeoTIFF's blocks are decoded by GDAL on the current rayon pool's threads, and
+//! the sums and means of each strip are shared between them by rows; the samples are the same
+//! with any number of threads (`tests/parallel.rs`).
 
 use super::open::open_source;
 use super::{IngestError, SourceKind};
@@ -380,6 +386,28 @@ impl RasterSource {
             .map_err(|e| gdal_error(&self.path, e))
     }
 
+    /// The decimation to read at when any from 1 to `most` would serve (a detector that
+    /// needs at least `most`-fold coarser samples than the image's is served as well by a
+    /// finer grid): `most`, unless reading it means decoding the full resolution
+    /// ([`ReadLevel::Averaged`]) while the file has an overview at a factor f with
+    /// `most / 2 < f < most`; then the largest such f, read from that overview as it is. A
+    /// 20,000 px JPEG mosaic with the usual halving overviews, asked for at most 5, is then read
+    /// from its 1/4 overview (1/16 of the pixels to decode) instead of decoding all of it for
+    /// 5 × 5 block means; the finer grid costs the detector at most four times the samples.
+    /// Errors: those of [`plan`](Self::plan).
+    pub fn fastest_decimation(&self, most: usize) -> Result<usize, IngestError> {
+        if self.plan(most)?.level != ReadLevel::Averaged {
+            return Ok(most);
+        }
+        for f in (most / 2 + 1..most).rev() {
+            let plan = self.plan(f)?;
+            if matches!(plan.level, ReadLevel::Overview { .. }) && plan.block == 1 {
+                return Ok(f);
+            }
+        }
+        Ok(most)
+    }
+
     /// How [`read`](Self::read) at this decimation proceeds (no pixels read). Errors: a
     /// decimation of 0, or one that leaves no whole sample.
     pub fn plan(&self, decimation: usize) -> Result<ReadPlan, IngestError> {
@@ -499,8 +527,45 @@ impl RasterSource {
         self.read_level(&plan, ReadLevel::FullResolution, (p0, l0), 1)
     }
 
+    /// A second read-only handle of a GeoTIFF through which GDAL decodes the blocks of one
+    /// read on as many threads as the current rayon pool has (the GTiff open option
+    /// `NUM_THREADS`, GDAL 3.6 and later; the decoded values are the same on any number of
+    /// threads). Only for contiguous (pixel-interleaved) or one-band files: GDAL 3.6-3.7.0's
+    /// threaded reader crashes on band-interleaved files read band by band (GDAL pull request
+    /// 7963). `None` otherwise, or when the file does not open again: the read goes on through
+    /// the handle already open.
+    fn threaded_handle(&self) -> Option<Dataset> {
+        use gdal::{DatasetOptions, GdalOpenFlags, Metadata};
+        let threads = rayon::current_num_threads();
+        let contiguous = self.info.band_count == 1
+            || self
+                .dataset
+                .metadata_item("INTERLEAVE", "IMAGE_STRUCTURE")
+                .is_some_and(|v| v.eq_ignore_ascii_case("PIXEL"));
+        if threads < 2 || self.info.driver != "GTiff" || !contiguous {
+            return None;
+        }
+        let option = format!("NUM_THREADS={threads}");
+        let _quiet = super::open::QuietGdal::new();
+        Dataset::open_ex(
+            &self.path,
+            DatasetOptions {
+                open_flags: GdalOpenFlags::GDAL_OF_RASTER | GdalOpenFlags::GDAL_OF_READONLY,
+                allowed_drivers: Some(&["GTiff"]),
+                open_options: Some(&[option.as_str()]),
+                sibling_files: None,
+            },
+        )
+        .ok()
+        .filter(|ds| ds.raster_size() == (self.info.width, self.info.height))
+    }
+
     /// Reads `plan.width × plan.height` samples of `level`, strip by strip, starting at level
-    /// pixel `origin`, each sample the mean of `d × d` level pixels.
+    /// pixel `origin`, each sample the mean of `d × d` level pixels. GDAL reads each strip
+    /// (decoding its blocks on several threads where [`threaded_handle`](Self::threaded_handle)
+    /// allows); the sums and means of a strip are shared between the cores by rows, each
+    /// computed in the same order as on one core, so the result does not depend on the number
+    /// of threads.
     fn read_level(
         &self,
         plan: &ReadPlan,
@@ -508,11 +573,17 @@ impl RasterSource {
         origin: (usize, usize),
         d: usize,
     ) -> Result<Image, IngestError> {
+        use rayon::prelude::*;
         let path = &self.path;
+        // Worth a second handle only for reads of more than a few blocks.
+        let threaded = (plan.width * plan.height * d * d > 4 * STRIP_PIXELS)
+            .then(|| self.threaded_handle())
+            .flatten();
+        let dataset = threaded.as_ref().unwrap_or(&self.dataset);
         let full: Vec<RasterBand<'_>> = self
             .bands
             .iter()
-            .map(|&b| self.band_handle(b))
+            .map(|&b| dataset.rasterband(b).map_err(|e| gdal_error(path, e)))
             .collect::<Result<_, _>>()?;
         let bands: Vec<RasterBand<'_>> = match level {
             ReadLevel::Overview { index } => full
@@ -541,8 +612,8 @@ impl RasterSource {
             &[1.0]
         };
         let cap = plan.strip_source_pixels;
-        let mut pixels = Vec::with_capacity(ow * oh);
-        let mut valid = Vec::with_capacity(ow * oh);
+        let mut pixels = vec![0f32; ow * oh];
+        let mut valid = vec![false; ow * oh];
         let mut values = vec![0f32; cap];
         let mut sum = vec![0f64; cap];
         let mut ok = vec![true; cap];
@@ -569,16 +640,22 @@ impl RasterSource {
                 height: self.info.height,
                 source,
             };
-            for (b, weight) in bands.iter().zip(weights) {
+            for (b, &weight) in bands.iter().zip(weights) {
                 b.read_into_slice::<f32>(window, (sw, sh), (sw, sh), &mut values[..n], None)
                     .map_err(unreadable)?;
-                for ((s, good), v) in sum[..n].iter_mut().zip(&mut ok[..n]).zip(&values[..n]) {
-                    if v.is_finite() {
-                        *s += weight * f64::from(*v);
-                    } else {
-                        *good = false;
-                    }
-                }
+                sum[..n]
+                    .par_chunks_mut(sw)
+                    .zip(ok[..n].par_chunks_mut(sw))
+                    .zip(values[..n].par_chunks(sw))
+                    .for_each(|((sum, ok), values)| {
+                        for ((s, good), v) in sum.iter_mut().zip(ok).zip(values) {
+                            if v.is_finite() {
+                                *s += weight * f64::from(*v);
+                            } else {
+                                *good = false;
+                            }
+                        }
+                    });
             }
             for &(i, alpha, _) in &masked {
                 let m = bands[i].open_mask_band().map_err(|e| gdal_error(path, e))?;
@@ -589,30 +666,35 @@ impl RasterSource {
                 }
             }
             drop(quiet);
-            for r in 0..k {
-                for c in 0..ow {
-                    let rows = r * d..(r + 1) * d;
-                    let cols = c * d..(c + 1) * d;
-                    let all = rows.clone().all(|y| {
-                        ok[y * sw + cols.start..y * sw + cols.end]
-                            .iter()
-                            .all(|&g| g)
-                    });
-                    let mean = if all {
-                        rows.map(|y| {
-                            sum[y * sw + cols.start..y * sw + cols.end]
+            let (sum, ok) = (&sum[..n], &ok[..n]);
+            pixels[r0 * ow..(r0 + k) * ow]
+                .par_chunks_mut(ow)
+                .zip(valid[r0 * ow..(r0 + k) * ow].par_chunks_mut(ow))
+                .enumerate()
+                .for_each(|(r, (prow, vrow))| {
+                    for c in 0..ow {
+                        let rows = r * d..(r + 1) * d;
+                        let cols = c * d..(c + 1) * d;
+                        let all = rows.clone().all(|y| {
+                            ok[y * sw + cols.start..y * sw + cols.end]
                                 .iter()
-                                .sum::<f64>()
-                        })
-                        .sum::<f64>()
-                            / block
-                    } else {
-                        0.0
-                    };
-                    pixels.push(mean as f32);
-                    valid.push(all);
-                }
-            }
+                                .all(|&g| g)
+                        });
+                        let mean = if all {
+                            rows.map(|y| {
+                                sum[y * sw + cols.start..y * sw + cols.end]
+                                    .iter()
+                                    .sum::<f64>()
+                            })
+                            .sum::<f64>()
+                                / block
+                        } else {
+                            0.0
+                        };
+                        prow[c] = mean as f32;
+                        vrow[c] = all;
+                    }
+                });
             r0 += k;
         }
         if valid.iter().all(|&v| v) {
