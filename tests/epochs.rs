@@ -3,7 +3,8 @@
 //! UTM 16N, observed in four epochs with independent dropouts, new landmarks, each epoch's own
 //! georeferencing error (one in a rotated, scaled local grid) and noise. Plus the joint
 //! adjustment against the pairwise fits on noise-free data, its standard errors against a
-//! Monte Carlo, the closure test on a perturbed transform, and a planted moved landmark.
+//! Monte Carlo, the closure test on a perturbed transform, a planted moved landmark, and the
+//! sample library's files (report.html's numbers against epochs.json).
 
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
@@ -548,6 +549,68 @@ fn the_sample_library_is_written_and_its_tracks_are_true() {
         serde_json::from_str(&std::fs::read_to_string(dir.join("epochs.json")).unwrap()).unwrap();
     assert_eq!(doc["counts"]["kept"].as_u64().unwrap() as usize, rows);
     assert_eq!(doc["epochs"].as_array().unwrap().len(), 5);
+
+    // report.html: the numbers it tags are epochs.json's, one row per epoch in the
+    // transform and residual tables, one per closure check, the kept tracks drawn by grade.
+    let html = std::fs::read_to_string(dir.join("report.html")).unwrap();
+    let tagged = |key: &str| -> serde_json::Value {
+        let at = html
+            .find(&format!("data-key=\"{key}\" data-source=\"epochs.json\""))
+            .unwrap_or_else(|| panic!("{key} is not on the page"));
+        let start = html[..at].rfind("<data value=\"").unwrap() + "<data value=\"".len();
+        let value = &html[start..at - 2];
+        serde_json::from_str(&value.replace("&quot;", "\"")).unwrap()
+    };
+    for key in [
+        "counts.kept",
+        "counts.moved",
+        "counts.tracks",
+        "counts.grades.0",
+        "counts.grades.1",
+        "epochs.3.to_base.scale",
+        "epochs.3.to_base.standard_errors.scale",
+        "epochs.3.to_base.rotation_deg",
+        "epochs.1.to_base.standard_errors.position_at_centroid_m.y",
+        "epochs.4.to_base.rms_residual_m",
+        "epochs.4.to_base.kept_rms_offset_m",
+        "adjustment.variance_factor",
+    ] {
+        let expected = key
+            .split('.')
+            .try_fold(&doc, |v, part| match part.parse::<usize>() {
+                Ok(i) if v.is_array() => v.get(i),
+                _ => v.get(part),
+            })
+            .unwrap();
+        assert_eq!(&tagged(key), expected, "{key}");
+    }
+    let section = |id: &str| -> &str {
+        let start = html.find(&format!("<section id=\"{id}\">")).unwrap();
+        &html[start..start + html[start..].find("</section>").unwrap()]
+    };
+    let body_rows = |id: &str| section(id).matches("<tr><th scope=\"row\">").count();
+    assert_eq!(body_rows("epoch-transforms"), 5);
+    assert_eq!(body_rows("epoch-residuals"), 5);
+    let checks = doc["closure"]["checks"].as_array().unwrap();
+    assert!(!checks.is_empty());
+    assert_eq!(body_rows("closure"), checks.len());
+    let warned = checks.iter().filter(|c| c["warning"] == true).count();
+    assert_eq!(section("closure").matches("WARNING").count(), warned);
+    assert_eq!(body_rows("pairs"), doc["pairs"].as_array().unwrap().len());
+    // Grade A tracks of the CSV are the map's grade A layer, as counted on the page.
+    let grade_a = csv.lines().skip(1).filter(|l| l.ends_with(",A")).count();
+    assert!(grade_a > 0);
+    assert!(html.contains(&format!(
+        "data-key=\"map.total.classes.grade_a\" data-source=\"page\">{grade_a}</data>"
+    )));
+    assert!(section("map").contains("<path class=\"grade-a\""));
+    for words in [
+        "independent checkpoints",
+        "licensed surveyors",
+        tiemark::emit::epochs::LATER_CAUTION,
+    ] {
+        assert!(html.contains(&words.replace('\'', "&#39;")), "{words}");
+    }
 }
 
 /// The speed benchmark (not run in CI; `cargo test --release --test epochs -- --ignored

@@ -1,5 +1,6 @@
 #![allow(missing_docs)]
-//! `report.html` in a real browser: a match on the sample town writes the page; headless
+//! `report.html` in a real browser: a match on the sample town writes the page (and an epochs
+//! run on the sample epochs its own, with the tracks by grade on the map); headless
 //! Chromium (Debian's `chromium` package; `bash .ci/setup` installs it) loads it from the file
 //! with no network, logs no console message, draws a screenshot that is not blank and shows
 //! the map's layers, and its rendered DOM carries the numbers of `transform.json` exactly.
@@ -431,6 +432,131 @@ fn the_report_of_the_sample_town_renders_and_carries_the_json_numbers() {
         "grid north of the working CRS",
         "lengthened",
         "Scale bar",
+        "independent checkpoints",
+        "licensed surveyors",
+    ] {
+        assert!(dom.stdout.contains(words), "the page lacks {words:?}");
+    }
+}
+
+/// The epochs library's page: the five sample epochs (sample-data/epochs.rs) through
+/// `tiemark run` on a pipeline like pipelines/control-point-library.toml; the page renders
+/// without a console line, shows the tracks of each grade in their inks, and every number it
+/// tags from epochs.json equals the file's.
+#[test]
+fn the_report_of_the_sample_epochs_renders_and_carries_the_json_numbers() {
+    let tmp = tempfile::tempdir().unwrap();
+    let sample = root().join("sample-data");
+    let mut toml = String::new();
+    for (stem, crs) in [
+        ("epoch-2019", "EPSG:32633"),
+        ("epoch-2021", "EPSG:32633"),
+        ("epoch-2023", "EPSG:32633"),
+        ("epoch-2024-site-grid", "local:m"),
+        ("epoch-2026", "EPSG:32633"),
+    ] {
+        toml += &format!(
+            "[[epoch]]\npath = {:?}\nid = \"point\"\ncrs = \"{crs}\"\n\n",
+            sample.join(format!("{stem}.csv"))
+        );
+    }
+    // Down to two epochs, so that every grade has tracks to draw.
+    toml += "[epochs]\nmin_epochs = 2\n\n[output]\ndir = \"library\"\n";
+    let pipeline = tmp.path().join("library.toml");
+    std::fs::write(&pipeline, toml).unwrap();
+    let run = Command::new(env!("CARGO_BIN_EXE_tiemark"))
+        .args(["run", pipeline.to_str().unwrap(), "--quiet"])
+        .stdin(Stdio::null())
+        .output()
+        .unwrap();
+    assert_eq!(run.status.code(), Some(0), "{run:#?}");
+    let out = tmp.path().join("library");
+    let page = out.join("report.html");
+    let html = std::fs::read_to_string(&page).unwrap();
+    for banned in ["<script", "<link", "<img", "src=", "href=", "https://"] {
+        assert!(!html.contains(banned), "report.html has {banned}");
+    }
+    let doc: Value =
+        serde_json::from_str(&std::fs::read_to_string(out.join("epochs.json")).unwrap()).unwrap();
+    let grades = &doc["counts"]["grades"];
+    for g in 0..3 {
+        assert!(
+            grades[g].as_u64().unwrap() > 0,
+            "no grade {g} tracks: {grades}"
+        );
+    }
+
+    let (shot, px) = screenshot(&page, 1200, 4200, &tmp.path().join("epochs.png"));
+    assert!(shot.console.is_empty(), "console lines: {:?}", shot.console);
+    let (var, inked) = ink_stats(&px);
+    assert!(var > 200.0, "nearly uniform (grey variance {var})");
+    assert!((0.03..0.6).contains(&inked), "{:.1}% drawn", 100.0 * inked);
+    // The grades' inks (tiemark::emit::epochs::GRADE_INKS) on screen: the dots and squares
+    // have solid centres; the rings are thin, so their colour is looser and fewer.
+    for (what, rgb, tol, least) in [
+        ("grade A dots", [0x00, 0x3a, 0x66], 20, 1000),
+        ("grade B squares", [0x00, 0x9e, 0x73], 20, 40),
+        ("grade C rings", [0x56, 0xb4, 0xe9], 40, 20),
+    ] {
+        let n = count_colour(&px, rgb, tol);
+        eprintln!("{what}: {n} pixels of their colour");
+        assert!(n >= least, "{what}: only {n} pixels of their colour");
+    }
+
+    let dom = browse(&page, &["--dump-dom".to_string()]);
+    assert!(dom.console.is_empty(), "console lines: {:?}", dom.console);
+    let tags = data_elements(&dom.stdout);
+    let mut keys = std::collections::HashSet::new();
+    for (value, key, source, text) in &tags {
+        let v: Value = serde_json::from_str(value)
+            .unwrap_or_else(|e| panic!("{key}: value {value:?} is not JSON: {e}"));
+        if let Some(x) = v.as_f64() {
+            assert!(shown_matches(text, x), "{key}: shows {text:?} for {x}");
+        }
+        if source == "epochs.json" {
+            let expected =
+                lookup(&doc, key).unwrap_or_else(|| panic!("{key} is not in epochs.json"));
+            assert_eq!(&v, expected, "{key}");
+            keys.insert(key.clone());
+        }
+    }
+    for key in [
+        "counts.kept",
+        "counts.moved",
+        "counts.grades.0",
+        "epochs.1.to_base.scale",
+        "epochs.1.to_base.standard_errors.scale",
+        "epochs.3.to_base.rotation_deg",
+        "epochs.3.to_base.standard_errors.rotation_arcsec",
+        "epochs.4.to_base.standard_errors.position_at_centroid_m.x",
+        "epochs.2.to_base.rms_residual_m",
+        "epochs.2.to_base.kept_largest_offset_m",
+        "closure.checks.0.chi2",
+        "adjustment.variance_factor",
+        "seed",
+    ] {
+        assert!(keys.contains(key), "{key} is not on the page");
+    }
+    let kept = doc["counts"]["kept"].as_f64().unwrap();
+    let drawn: f64 = ["grade_a", "grade_b", "grade_c"]
+        .iter()
+        .map(|g| {
+            let key = format!("map.total.classes.{g}");
+            tags.iter()
+                .find(|t| t.1 == key)
+                .unwrap()
+                .0
+                .parse::<f64>()
+                .unwrap()
+        })
+        .sum();
+    assert_eq!(drawn, kept, "the map's tracks are the kept ones");
+    for words in [
+        "ACCEPTED",
+        "Transforms to the base",
+        "Closure of chained transforms",
+        "Residuals per epoch",
+        "grid north of the working CRS",
         "independent checkpoints",
         "licensed surveyors",
     ] {

@@ -3,11 +3,14 @@
 //!
 //! **In:** a [`Page`] — what to say, made of plain data so that every front end can fill one:
 //! [`match_page`] fills it from an accepted [`MatchOutcome`] (through the same document as
-//! `transform.json`), and a drift check adds its flagged areas ([`AreaOutline`]) and its
-//! verdict. **Out:** the HTML text ([`render`]), or the file ([`write_report`]).
+//! `transform.json`), a drift check adds its flagged areas ([`AreaOutline`]) and its
+//! verdict, and an epochs library (`emit::epochs`) fills one of its own: tables of one row per
+//! epoch ([`Grid`]) and its tracks as point classes on the map. **Out:** the HTML text
+//! ([`render`]), or the file ([`write_report`]).
 //!
 //! The page has, in order: the inputs; the verdict ([`Verdict`]); the key numbers; the
-//! transform; the accuracy statement; the map ([`super::plot::map`]: reference landmarks,
+//! transform; the tables ([`Grid`], when given); the accuracy statement (a section with
+//! nothing in it is left out); the map ([`super::plot::map`]: reference landmarks,
 //! target landmarks transformed, control points and their vectors lengthened by a stated
 //! factor, a scale bar of round length, a north arrow that is the working CRS's grid north,
 //! and the flagged areas when there are any); the residual histogram; the flagged areas'
@@ -223,6 +226,22 @@ pub struct AreaOutline {
     pub rows: Vec<Row>,
 }
 
+/// A table with a row per item (an epoch, a closure check) and a column per figure, under a
+/// heading of its own; each cell is a [`Line`] (text and tagged numbers).
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct Grid {
+    /// The section's `id` (e.g. `epoch-transforms`).
+    pub id: String,
+    /// Its heading.
+    pub title: String,
+    /// The column heads.
+    pub head: Vec<String>,
+    /// The rows, a cell a column.
+    pub rows: Vec<Vec<Line>>,
+    /// Notes under the table.
+    pub notes: Vec<Line>,
+}
+
 /// Everything the page shows.
 #[derive(Debug, Clone)]
 pub struct Page {
@@ -238,6 +257,9 @@ pub struct Page {
     pub transform: Vec<Row>,
     /// Notes under the transform (conventions).
     pub transform_notes: Vec<Line>,
+    /// Tables shown after the transform, each its own section (an epochs library's
+    /// transforms, closure checks and residuals per epoch); empty for a match.
+    pub grids: Vec<Grid>,
     /// The accuracy statement.
     pub accuracy: Vec<Row>,
     /// Notes under it (where the figures come from, warnings).
@@ -246,7 +268,7 @@ pub struct Page {
     pub map: MapLayers,
     /// Notes under the map (besides the ones the page makes about what it drew).
     pub map_notes: Vec<Line>,
-    /// Residuals for the histogram, metres.
+    /// Residuals for the histogram, metres (no histogram when empty).
     pub residuals_m: Vec<f64>,
     /// The largest residual allowed, metres (a line on the histogram).
     pub residual_limit_m: Option<f64>,
@@ -321,6 +343,30 @@ fn table(rows: &[Row]) -> String {
     o
 }
 
+fn grid(g: &Grid) -> String {
+    let mut o = format!(
+        "<section id=\"{}\">\n<h2>{}</h2>\n<table class=\"grid\">\n<thead><tr>",
+        escape(&g.id),
+        escape(&g.title)
+    );
+    for h in &g.head {
+        let _ = write!(o, "<th scope=\"col\">{}</th>", escape(h));
+    }
+    o.push_str("</tr></thead>\n<tbody>\n");
+    for r in &g.rows {
+        o.push_str("<tr>");
+        for (i, c) in r.iter().enumerate() {
+            let tag = if i == 0 { "th scope=\"row\"" } else { "td" };
+            let _ = write!(o, "<{tag}>{}</{}>", line(c), &tag[..2]);
+        }
+        o.push_str("</tr>\n");
+    }
+    o.push_str("</tbody>\n</table>\n");
+    o.push_str(&paragraphs(&g.notes));
+    o.push_str("</section>\n");
+    o
+}
+
 fn paragraphs(lines: &[Line]) -> String {
     lines
         .iter()
@@ -344,6 +390,11 @@ table.numbers th{text-align:left;font-weight:normal;padding:.18em 1.2em .18em 0;
 table.numbers td{padding:.18em 1.2em .18em 0;vertical-align:top}\n\
 td.num{font-variant-numeric:tabular-nums;white-space:nowrap}\n\
 td.note{color:#444;font-size:.92em}\n\
+table.grid{border-collapse:collapse;margin:.3em 0 .6em;font-size:.94em}\n\
+table.grid th,table.grid td{border:1px solid #bbb;padding:.2em .6em;text-align:left;vertical-align:top}\n\
+table.grid thead th{background:#eee;font-weight:bold}\n\
+table.grid tbody th{font-weight:normal}\n\
+table.grid td{font-variant-numeric:tabular-nums}\n\
 figure{margin:.6em 0}\n\
 figure svg{width:100%;height:auto;border:1px solid #ccc}\n\
 figcaption{font-size:.92em;color:#333;margin-top:.3em}\n\
@@ -385,18 +436,26 @@ pub fn render(page: &Page) -> String {
         "<section id=\"key-numbers\">\n<h2>Key numbers</h2>\n{}</section>",
         table(&page.key_numbers)
     );
-    let _ = writeln!(
-        o,
-        "<section id=\"transform\">\n<h2>Transform</h2>\n{}{}</section>",
-        table(&page.transform),
-        paragraphs(&page.transform_notes)
-    );
-    let _ = writeln!(
-        o,
-        "<section id=\"accuracy\">\n<h2>Accuracy</h2>\n{}{}</section>",
-        table(&page.accuracy),
-        paragraphs(&page.accuracy_notes)
-    );
+    // A section with nothing in it is left out (an epochs page has no single transform).
+    if !(page.transform.is_empty() && page.transform_notes.is_empty()) {
+        let _ = writeln!(
+            o,
+            "<section id=\"transform\">\n<h2>Transform</h2>\n{}{}</section>",
+            table(&page.transform),
+            paragraphs(&page.transform_notes)
+        );
+    }
+    for g in &page.grids {
+        o.push_str(&grid(g));
+    }
+    if !(page.accuracy.is_empty() && page.accuracy_notes.is_empty()) {
+        let _ = writeln!(
+            o,
+            "<section id=\"accuracy\">\n<h2>Accuracy</h2>\n{}{}</section>",
+            table(&page.accuracy),
+            paragraphs(&page.accuracy_notes)
+        );
+    }
 
     // The map.
     let shapes: Vec<AreaShape> = page
@@ -418,31 +477,53 @@ pub fn render(page: &Page) -> String {
                     .num(Some(Number::page(&format!("map.total.{key}"), n, 0)))
                     .text(format!(" {what}"))
             };
-            let mut caption = vec![
-                Line::new().text("Drawn: "),
-                drawn(
+            // What was drawn, layer by layer (a layer with no points is not mentioned).
+            let mut parts: Vec<Line> = [
+                (
                     "reference",
                     fig.drawn.reference,
                     m.reference.len(),
-                    "reference landmarks (squares), ",
+                    "reference landmarks (squares)",
                 ),
-                drawn(
+                (
                     "target",
                     fig.drawn.target,
                     m.target.len(),
-                    "target landmarks transformed onto the reference (plus signs), ",
+                    "target landmarks transformed onto the reference (plus signs)",
                 ),
-                drawn(
+                (
                     "controls",
                     fig.drawn.controls,
                     m.controls.len(),
-                    "control points (dots).",
+                    "control points (dots)",
                 ),
-            ];
+            ]
+            .into_iter()
+            .filter(|(_, _, n, _)| *n > 0)
+            .map(|(key, k, n, what)| drawn(key, k, n, what))
+            .collect();
+            parts.extend(m.classes.iter().zip(&fig.drawn.classes).map(|(c, k)| {
+                drawn(
+                    &format!("classes.{}", c.key),
+                    *k,
+                    c.points.len(),
+                    &format!("{} ({}s)", c.label, c.ink.shape),
+                )
+            }));
             let thinned = fig.drawn.reference < m.reference.len()
                 || fig.drawn.target < m.target.len()
-                || fig.drawn.controls < m.controls.len();
-            let mut notes = vec![Line(caption.drain(..).flat_map(|l| l.0).collect())];
+                || fig.drawn.controls < m.controls.len()
+                || m.classes
+                    .iter()
+                    .zip(&fig.drawn.classes)
+                    .any(|(c, k)| *k < c.points.len());
+            let mut caption = Line::new().text("Drawn: ");
+            let last = parts.len().saturating_sub(1);
+            for (i, p) in parts.into_iter().enumerate() {
+                caption.0.extend(p.0);
+                caption = caption.text(if i == last { "." } else { ", " });
+            }
+            let mut notes = vec![caption];
             if thinned {
                 notes.push(
                     Line::new()
@@ -451,8 +532,14 @@ pub fn render(page: &Page) -> String {
                         .text(" markers: each layer was thinned in proportion to its size to a spatially even sample (every k-th point along a Morton curve). The files beside this page hold every point."),
                 );
             }
-            notes.push(
-                Line::new()
+            let scale_bar = Line::new()
+                .text("Scale bar: ")
+                .num(Some(Number::page("map.scale_bar_m", fig.scale_bar_m, 0)))
+                .text(" m.");
+            if m.controls.is_empty() {
+                notes.push(scale_bar);
+            } else {
+                let mut l = Line::new()
                     .text(format!(
                         "Each line runs from a control point along its {} vector, lengthened ",
                         if m.vector_label.is_empty() {
@@ -462,10 +549,10 @@ pub fn render(page: &Page) -> String {
                         }
                     ))
                     .num(Some(Number::page("map.exaggeration", fig.exaggeration, 0)))
-                    .text(" times. Scale bar: ")
-                    .num(Some(Number::page("map.scale_bar_m", fig.scale_bar_m, 0)))
-                    .text(" m."),
-            );
+                    .text(" times. ");
+                l.0.extend(scale_bar.0);
+                notes.push(l);
+            }
             notes.push(Line::new().text(format!(
                 "Up is grid north of the working CRS, {}; true north differs from it by the meridian convergence. Both axes have one scale.",
                 m.crs_label
@@ -486,7 +573,12 @@ pub fn render(page: &Page) -> String {
 
     // The histogram.
     let _ = writeln!(o, "<section id=\"residuals\">\n<h2>Residuals</h2>");
-    match plot::histogram(&page.residuals_m, page.residual_limit_m, page.rmse_m) {
+    let histogram = if page.residuals_m.is_empty() {
+        Err("there are no residuals".to_string())
+    } else {
+        plot::histogram(&page.residuals_m, page.residual_limit_m, page.rmse_m)
+    };
+    match histogram {
         Ok(h) => {
             let mut l = Line::new()
                 .num(Some(Number::page(
@@ -782,6 +874,7 @@ pub fn match_page(outcome: &MatchOutcome, solution: &Solution) -> Page {
         controls,
         vectors,
         vector_label: "residual".into(),
+        classes: Vec::new(),
     };
     let map_notes = vec![Line::new().text(
         "A residual vector points from the reference's landmark to where the transform puts the target's.",
@@ -800,6 +893,7 @@ pub fn match_page(outcome: &MatchOutcome, solution: &Solution) -> Page {
         key_numbers,
         transform,
         transform_notes,
+        grids: Vec::new(),
         accuracy,
         accuracy_notes,
         map,
@@ -1009,6 +1103,7 @@ mod tests {
             key_numbers: vec![Row::of("RMSE", &doc, TRANSFORM, "rmse_m", 3, "m").unwrap()],
             transform: vec![Row::of("name", &doc, TRANSFORM, "name", 0, "").unwrap()],
             transform_notes: vec![],
+            grids: vec![],
             accuracy: vec![],
             accuracy_notes: vec![],
             map: MapLayers {
@@ -1019,6 +1114,7 @@ mod tests {
                 vectors: vec![[0.01, 0.0]; 50],
                 reference,
                 vector_label: "drift".into(),
+                classes: vec![],
             },
             map_notes: vec![],
             residuals_m: vec![0.01, 0.02, 0.05],
@@ -1134,6 +1230,45 @@ mod tests {
         assert_eq!(rows[0].number.key, "rmse_m");
         assert!(line(&notes[0]).contains("overstates"));
         assert!(statement_rows(&plain).is_empty());
+    }
+
+    /// A grid is a table with its column heads and a row a line of cells, numbers tagged;
+    /// the empty transform and accuracy sections and an empty histogram are left out.
+    #[test]
+    fn grids_are_tables_and_empty_sections_are_left_out() {
+        let doc = json!({"epochs": [{"scale": 1.000002}, {"scale": 0.37}]});
+        let mut p = page();
+        p.transform.clear();
+        p.residuals_m.clear();
+        p.grids.push(Grid {
+            id: "epoch-transforms".into(),
+            title: "Transforms & co".into(),
+            head: vec!["epoch".into(), "scale".into()],
+            rows: (0..2)
+                .map(|k| {
+                    vec![
+                        Line::new().text(format!("e{k}")),
+                        Line::new().num(Number::of(
+                            &doc,
+                            "epochs.json",
+                            &format!("epochs.{k}.scale"),
+                            6,
+                        )),
+                    ]
+                })
+                .collect(),
+            notes: vec![Line::new().text("a note")],
+        });
+        let html = render(&p);
+        assert!(
+            !html.contains("<h2>Transform</h2>") && html.contains("<h2>Transforms &amp; co</h2>")
+        );
+        assert!(!html.contains("<h2>Accuracy</h2>"));
+        assert!(html.contains(
+            "<thead><tr><th scope=\"col\">epoch</th><th scope=\"col\">scale</th></tr></thead>"
+        ));
+        assert!(html.contains("<tr><th scope=\"row\">e1</th><td><data value=\"0.37\" data-key=\"epochs.1.scale\" data-source=\"epochs.json\">0.370000</data></td></tr>"));
+        assert!(html.contains("No residuals") || html.contains("no residuals"));
     }
 
     #[test]

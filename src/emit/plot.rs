@@ -2,7 +2,8 @@
 //! of the residuals, each an SVG document as text (inline in the page).
 //!
 //! **In:** [`MapLayers`] (points in one working frame, its metres per unit and its CRS's
-//! label, optional area outlines) and residuals in metres. **Out:** [`MapFigure`] and
+//! label, optional further point layers of their own ([`PointClass`]: an epochs library's
+//! tracks by stability grade), optional area outlines) and residuals in metres. **Out:** [`MapFigure`] and
 //! [`Histogram`]: the SVG text and what was drawn (how many points of each layer, the
 //! exaggeration of the vectors, the scale bar's length, the histogram's bin width), for the
 //! page to state.
@@ -13,7 +14,8 @@
 //! each), so they are drawn here as one `<path>` a layer (a zero-length subpath a dot, 10-15
 //! bytes a point) in the chart's own pixel coordinates, added to plotters' SVG at the end. The
 //! layers take their look from the page's CSS classes (`ref`, `tgt`, `cp`, `vec`, `area`),
-//! whose colours are [`INKS`].
+//! whose colours are [`INKS`]; a [`PointClass`] carries its own ink, written on its path. A
+//! layer with no points has no legend entry.
 //!
 //! **The colour scheme** reads in greyscale and for colour-blind readers in two ways at once:
 //! every layer has its own marker shape (square, plus, round dot, line, dashed outline), and
@@ -167,6 +169,24 @@ pub struct MapLayers {
     pub vectors: Vec<[f64; 2]>,
     /// What the vectors are, for the legend (e.g. "residual").
     pub vector_label: String,
+    /// Further point layers drawn over the others, each in its own ink and shape (an epochs
+    /// library's tracks by stability grade); empty for a match.
+    pub classes: Vec<PointClass>,
+}
+
+/// A point layer of its own: its points (working frame), its ink (marker shape: `dot`,
+/// `square`, `plus`, `ring` or `cross`) and what it is, for the legend and the page.
+#[derive(Debug, Clone)]
+pub struct PointClass {
+    /// A short key for the page's numbers (`map.drawn.classes.<key>`), e.g. `grade_a`.
+    pub key: String,
+    /// What the layer is, for the legend (e.g. "grade A tracks").
+    pub label: String,
+    /// Its colour and marker shape; drawn with inline attributes, so its `class` is only a
+    /// name for the path.
+    pub ink: Ink,
+    /// The points.
+    pub points: Vec<[f64; 2]>,
 }
 
 /// A flagged area on the map: its outline (working frame, not closed) and a short label.
@@ -179,7 +199,7 @@ pub struct AreaShape<'a> {
 }
 
 /// How many points of each layer a map drew.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+#[derive(Debug, Clone, PartialEq, Eq, Default)]
 pub struct Drawn {
     /// Reference landmarks drawn.
     pub reference: usize,
@@ -187,6 +207,8 @@ pub struct Drawn {
     pub target: usize,
     /// Control points (and vectors) drawn.
     pub controls: usize,
+    /// Points of each of [`MapLayers::classes`] drawn, in their order.
+    pub classes: Vec<usize>,
 }
 
 /// A drawn map.
@@ -239,12 +261,37 @@ pub fn even_sample(points: &[[f64; 2]], k: usize) -> Vec<usize> {
 
 /// How many markers of layers of `sizes` fit under [`MAX_MARKERS`]: all when the total fits,
 /// else each in proportion to its size.
-fn shares(sizes: [usize; 3]) -> [usize; 3] {
+fn shares(sizes: &[usize]) -> Vec<usize> {
     let total: usize = sizes.iter().sum();
     if total <= MAX_MARKERS {
-        return sizes;
+        return sizes.to_vec();
     }
-    sizes.map(|n| n * MAX_MARKERS / total)
+    sizes.iter().map(|n| n * MAX_MARKERS / total).collect()
+}
+
+/// The SVG path of one marker of `shape` centred at (`x`, `y`), pixels.
+fn marker(shape: &str, x: i64, y: i64) -> String {
+    match shape {
+        "plus" => format!("M{} {y}h6M{x} {}v6", x - 3, y - 3),
+        "cross" => format!("M{} {}l8 8M{} {}l8 -8", x - 4, y - 4, x - 4, y + 4),
+        "ring" => format!("M{} {y}a3 3 0 1 0 6 0a3 3 0 1 0 -6 0", x - 3),
+        // "square" and "dot": a zero-length stroke whose cap gives the shape.
+        _ => format!("M{x} {y}h0"),
+    }
+}
+
+/// The inline look of a [`PointClass`]'s path: its ink's colour, the stroke its shape needs.
+fn class_style(ink: &Ink) -> String {
+    let (width, cap) = match ink.shape {
+        "dot" => (4.2, "round"),
+        "square" => (4.6, "square"),
+        "ring" => (1.5, "butt"),
+        _ => (1.8, "butt"),
+    };
+    format!(
+        "fill=\"none\" stroke=\"{}\" stroke-width=\"{width}\" stroke-linecap=\"{cap}\"",
+        ink.hex()
+    )
 }
 
 /// The value below which `p` (0-1) of `values` lie (nearest rank), 0 when empty.
@@ -300,6 +347,7 @@ fn draw_map(
         .iter()
         .chain(&layers.target)
         .chain(&layers.controls)
+        .chain(layers.classes.iter().flat_map(|c| c.points.iter()))
         .chain(areas.iter().flat_map(|a| a.outline.iter()))
         .filter(|p| p[0].is_finite() && p[1].is_finite());
     let ext = crate::spatial::Extent::of(everything);
@@ -375,14 +423,24 @@ fn draw_map(
         };
 
         // The dense layers, as compact paths clipped to the plotting area.
-        let [kr, kt, kc] = shares([
+        let sizes: Vec<usize> = [
             layers.reference.len(),
             layers.target.len(),
             layers.controls.len(),
-        ]);
-        let pick_r = even_sample(&layers.reference, kr);
-        let pick_t = even_sample(&layers.target, kt);
-        let pick_c = even_sample(&layers.controls, kc);
+        ]
+        .into_iter()
+        .chain(layers.classes.iter().map(|c| c.points.len()))
+        .collect();
+        let k = shares(&sizes);
+        let pick_r = even_sample(&layers.reference, k[0]);
+        let pick_t = even_sample(&layers.target, k[1]);
+        let pick_c = even_sample(&layers.controls, k[2]);
+        let pick_classes: Vec<Vec<usize>> = layers
+            .classes
+            .iter()
+            .zip(&k[3..])
+            .map(|(c, k)| even_sample(&c.points, *k))
+            .collect();
         let _ = write!(
             drawn_svg,
             "<defs><clipPath id=\"map-clip\"><rect x=\"{}\" y=\"{}\" width=\"{}\" height=\"{}\"/></clipPath></defs>\n<g clip-path=\"url(#map-clip)\">\n",
@@ -391,9 +449,10 @@ fn draw_map(
             xr.end - xr.start,
             yr.end - yr.start
         );
-        let mut path = |class: &str, body: &str| {
+        // `look`: inline attributes (a point class's ink), or nothing (the page's CSS).
+        let mut path = |class: &str, look: &str, body: &str| {
             if !body.is_empty() {
-                let _ = writeln!(drawn_svg, "<path class=\"{class}\" d=\"{body}\"/>");
+                let _ = writeln!(drawn_svg, "<path class=\"{class}\"{look} d=\"{body}\"/>");
             }
         };
         let mut d = String::new();
@@ -401,13 +460,13 @@ fn draw_map(
             let (x, y) = px.at(layers.reference[i]);
             let _ = write!(d, "M{x} {y}h0");
         }
-        path(REFERENCE_INK.class, &d);
+        path(REFERENCE_INK.class, "", &d);
         d.clear();
         for &i in &pick_t {
             let (x, y) = px.at(layers.target[i]);
-            let _ = write!(d, "M{} {y}h6M{x} {}v6", x - 3, y - 3);
+            d.push_str(&marker(TARGET_INK.shape, x, y));
         }
-        path(TARGET_INK.class, &d);
+        path(TARGET_INK.class, "", &d);
         d.clear();
         for &i in &pick_c {
             let c = layers.controls[i];
@@ -420,13 +479,25 @@ fn draw_map(
                 let _ = write!(d, "M{x} {y}L{ex} {ey}");
             }
         }
-        path(VECTOR_INK.class, &d);
+        path(VECTOR_INK.class, "", &d);
         d.clear();
         for &i in &pick_c {
             let (x, y) = px.at(layers.controls[i]);
             let _ = write!(d, "M{x} {y}h0");
         }
-        path(CONTROL_INK.class, &d);
+        path(CONTROL_INK.class, "", &d);
+        for (class, pick) in layers.classes.iter().zip(&pick_classes) {
+            let mut d = String::new();
+            for &i in pick {
+                let (x, y) = px.at(class.points[i]);
+                d.push_str(&marker(class.ink.shape, x, y));
+            }
+            path(
+                class.ink.class,
+                &format!(" {}", class_style(&class.ink)),
+                &d,
+            );
+        }
         for area in areas {
             let mut d = String::new();
             for (j, p) in area.outline.iter().enumerate() {
@@ -435,7 +506,7 @@ fn draw_map(
             }
             if !d.is_empty() {
                 d.push('Z');
-                path(AREA_INK.class, &d);
+                path(AREA_INK.class, "", &d);
             }
         }
         drawn_svg.push_str("</g>\n");
@@ -476,26 +547,46 @@ fn draw_map(
             },
             exaggeration
         );
-        let mut entries: Vec<(Ink, String)> = vec![
-            (REFERENCE_INK, REFERENCE_INK.label.to_string()),
-            (TARGET_INK, TARGET_INK.label.to_string()),
-            (CONTROL_INK, CONTROL_INK.label.to_string()),
-            (VECTOR_INK, vector_label),
-        ];
+        // A layer with no points has no legend entry (an epochs map has only its classes).
+        let mut entries: Vec<(Ink, String, bool)> = [
+            (REFERENCE_INK, !layers.reference.is_empty()),
+            (TARGET_INK, !layers.target.is_empty()),
+            (CONTROL_INK, !layers.controls.is_empty()),
+        ]
+        .into_iter()
+        .filter(|(_, shown)| *shown)
+        .map(|(ink, _)| (ink, ink.label.to_string(), false))
+        .collect();
+        if !layers.controls.is_empty() {
+            entries.push((VECTOR_INK, vector_label, false));
+        }
+        entries.extend(
+            layers
+                .classes
+                .iter()
+                .map(|c| (c.ink, c.label.clone(), true)),
+        );
         if !areas.is_empty() {
-            entries.push((AREA_INK, AREA_INK.label.to_string()));
+            entries.push((AREA_INK, AREA_INK.label.to_string(), false));
         }
         let mut y = 60;
-        for (ink, label) in &entries {
+        for (ink, label, inline) in &entries {
             let (x, yy) = (bx as i64 + 22, by as i64 + y as i64);
             let sample = match ink.shape {
-                "square" => format!("M{x} {yy}h0"),
-                "plus" => format!("M{} {yy}h6M{x} {}v6", x - 3, yy - 3),
-                "dot" => format!("M{x} {yy}h0"),
                 "line" => format!("M{} {}L{} {}", x - 10, yy + 5, x + 10, yy - 5),
-                _ => format!("M{} {}h20v12h-20Z", x - 10, yy - 6),
+                "dashed outline" => format!("M{} {}h20v12h-20Z", x - 10, yy - 6),
+                shape => marker(shape, x, yy),
             };
-            let _ = writeln!(drawn_svg, "<path class=\"{}\" d=\"{sample}\"/>", ink.class);
+            let look = if *inline {
+                format!(" {}", class_style(ink))
+            } else {
+                String::new()
+            };
+            let _ = writeln!(
+                drawn_svg,
+                "<path class=\"{}\"{look} d=\"{sample}\"/>",
+                ink.class
+            );
             right.draw_text(
                 label,
                 &text.clone().pos(Pos::new(HPos::Left, VPos::Center)),
@@ -584,6 +675,7 @@ fn draw_map(
                 reference: pick_r.len(),
                 target: pick_t.len(),
                 controls: pick_c.len(),
+                classes: pick_classes.iter().map(Vec::len).collect(),
             },
             scale_bar_m,
         )
@@ -813,8 +905,8 @@ mod tests {
 
     #[test]
     fn shares_keep_the_total_under_the_cap() {
-        assert_eq!(shares([10, 20, 30]), [10, 20, 30]);
-        let s = shares([100_000, 50_000, 50_000]);
+        assert_eq!(shares(&[10, 20, 30]), [10, 20, 30]);
+        let s = shares(&[100_000, 50_000, 50_000]);
         assert!(s.iter().sum::<usize>() <= MAX_MARKERS);
         assert_eq!(s, [10_000, 5_000, 5_000]);
     }
@@ -841,6 +933,7 @@ mod tests {
             controls,
             vectors,
             vector_label: "residual".into(),
+            classes: Vec::new(),
         }
     }
 
@@ -894,6 +987,57 @@ mod tests {
             fig.svg.contains("500 m"),
             "2000 m wide plus margins → 500 m bar"
         );
+    }
+
+    /// A map of point classes only: each class is one path in its own ink and shape, in the
+    /// legend; the match's layers, being empty, are not.
+    #[test]
+    fn point_classes_are_drawn_in_their_own_inks_and_only_they_are_in_the_legend() {
+        let ink = |class, shape, rgb| Ink {
+            class,
+            label: "x",
+            shape,
+            rgb,
+        };
+        let grid = |dx: f64| -> Vec<[f64; 2]> {
+            (0..50)
+                .map(|i| [dx + (i % 10) as f64 * 10.0, (i / 10) as f64 * 10.0])
+                .collect()
+        };
+        let l = MapLayers {
+            metres_per_unit: 1.0,
+            classes: vec![
+                PointClass {
+                    key: "one".into(),
+                    label: "first class".into(),
+                    ink: ink("c-one", "ring", (0x11, 0x22, 0x33)),
+                    points: grid(0.0),
+                },
+                PointClass {
+                    key: "two".into(),
+                    label: "second class".into(),
+                    ink: ink("c-two", "cross", (0x44, 0x55, 0x66)),
+                    points: grid(500.0),
+                },
+            ],
+            ..MapLayers::default()
+        };
+        let fig = map(&l, &[]).unwrap();
+        assert_eq!(fig.drawn.classes, vec![50, 50]);
+        let paths: Vec<&str> = fig
+            .svg
+            .lines()
+            .filter(|s| s.starts_with("<path class=\"c-one\""))
+            .collect();
+        // The layer and its legend sample.
+        assert_eq!(paths.len(), 2, "{paths:?}");
+        assert!(paths.iter().all(|p| p.contains("stroke=\"#112233\"")));
+        assert_eq!(paths[0].matches("a3 3").count(), 2 * 50);
+        assert!(fig.svg.contains("stroke=\"#445566\""));
+        assert!(fig.svg.contains("first class") && fig.svg.contains("second class"));
+        for absent in ["reference landmarks", "control points", "vectors (×"] {
+            assert!(!fig.svg.contains(absent), "{absent}");
+        }
     }
 
     #[test]
