@@ -80,17 +80,39 @@ pub fn read_survey(
     ingest::read_landmarks_with(input, keypoints, None)
 }
 
+/// The coarsest pixel (metres on the ground) among the raster surveys of `inputs`, `None` when
+/// none is a raster: surveys matched with one another (a pair, the epochs of a site) search
+/// their keypoints at the default feature size for it, so that the same features are found in
+/// all ([`KeypointParams::feature_size_for`]).
+pub fn coarsest_pixel_m(inputs: &[&SurveyInput]) -> Result<Option<f64>, IngestError> {
+    let mut coarsest: Option<f64> = None;
+    for input in inputs {
+        if let Some(p) = ingest::raster_pixel_metres(input)? {
+            coarsest = Some(coarsest.map_or(p, |c| c.max(p)));
+        }
+    }
+    Ok(coarsest)
+}
+
+/// Reads one survey of a set matched with one another: a vector layer's features, or a
+/// raster's keypoints at the feature size given or else the default for the set's coarsest
+/// pixel (`coarsest_pixel_m`, from [`coarsest_pixel_m`]).
+pub fn read_survey_of_set(
+    input: &SurveyInput,
+    keypoints: &KeypointParams,
+    coarsest_pixel_m: Option<f64>,
+) -> Result<LandmarkSet, IngestError> {
+    ingest::read_landmarks_with(input, keypoints, coarsest_pixel_m)
+}
+
 /// Reads both surveys of a match. When both are rasters and no feature size is given, both
 /// are searched at the default size for the pair's pixel sizes, so that the same features are
-/// found in both ([`KeypointParams::feature_size_for`]).
+/// found in both ([`coarsest_pixel_m`]).
 pub fn read_surveys(config: &MatchConfig) -> Result<(LandmarkSet, LandmarkSet), IngestError> {
-    let pixels = [
-        ingest::raster_pixel_metres(&config.reference)?,
-        ingest::raster_pixel_metres(&config.target)?,
-    ];
+    let coarsest = coarsest_pixel_m(&[&config.reference, &config.target])?;
     Ok((
-        ingest::read_landmarks_with(&config.reference, &config.keypoints, pixels[1])?,
-        ingest::read_landmarks_with(&config.target, &config.keypoints, pixels[0])?,
+        read_survey_of_set(&config.reference, &config.keypoints, coarsest)?,
+        read_survey_of_set(&config.target, &config.keypoints, coarsest)?,
     ))
 }
 

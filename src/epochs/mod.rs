@@ -10,7 +10,15 @@
 //! # Steps
 //!
 //! 1. Every epoch is read and brought into the base's working frame ([`crate::frame`]; a
-//!    local-grid epoch keeps its own coordinates). The base must be georeferenced.
+//!    local-grid epoch keeps its own coordinates). The base must be georeferenced. A raster
+//!    epoch's landmarks are its keypoints, read as `match` reads them
+//!    ([`engine::read_survey_of_set`]) at one feature size for all epochs (the default for
+//!    the coarsest pixel among them, [`engine::coarsest_pixel_m`]), at their detected
+//!    sub-pixel positions. The pairs take the engine's keypoint path (signatures, matching,
+//!    robust fit); its area-based seed and refinement on the pixels are not run, because they
+//!    replace or move a pair's landmarks and a track must be one landmark of each epoch at
+//!    one position: two rasters whose keypoints do not match (different wavelengths, such as
+//!    near-infrared against red) are a failed pair, joined, if at all, through other epochs.
 //! 2. **Pairs matched** ([`PairPlan`]). The default, [`PairPlan::BaseAndNeighbours`], matches
 //!    every epoch against the base (a spanning star) and each non-base epoch against the next
 //!    non-base epoch in the order given (a chain): 2N − 3 matches, linear in N, against
@@ -594,11 +602,14 @@ pub fn run(
     let n = config.epochs.len();
     let base = config.base_index();
     let names = epoch_names(&config.epochs, reserved);
+    // Raster epochs: keypoints at one feature size for all, the engine's for the coarsest
+    // pixel among them, so that every epoch finds the same features.
+    let coarsest = engine::coarsest_pixel_m(&config.epochs.iter().collect::<Vec<_>>())?;
     let mut sets = Vec::with_capacity(n);
     for (k, input) in config.epochs.iter().enumerate() {
         let label = format!("reading epoch {} of {n}", k + 1);
         sets.push(stage(progress, &label, None, |_| {
-            engine::read_survey(input, &config.keypoints)
+            engine::read_survey_of_set(input, &config.keypoints, coarsest)
         })?);
     }
     let frame_error = |k: usize, e: frame::FrameError| EpochsError::Frame {
