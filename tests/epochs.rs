@@ -554,6 +554,42 @@ fn the_sample_library_is_written_and_its_tracks_are_true() {
     assert_eq!(doc["counts"]["kept"].as_u64().unwrap() as usize, rows);
     assert_eq!(doc["epochs"].as_array().unwrap().len(), 5);
 
+    // The GeoPackage: its three layers, as many features as the counts say, with their
+    // fields (GDAL reads it back).
+    let gpkg = gdal::Dataset::open(dir.join("persistent-control-points.gpkg")).unwrap();
+    let features = |name: &str, fields: &[&str]| -> u64 {
+        let mut layer = gpkg.layer_by_name(name).unwrap();
+        let have: Vec<String> = gdal::vector::LayerAccess::defn(&layer)
+            .fields()
+            .map(|f| f.name())
+            .collect();
+        assert_eq!(have, fields, "{name}");
+        gdal::vector::LayerAccess::feature_count(&mut layer)
+    };
+    let track_fields = [
+        "track",
+        "epochs_seen",
+        "sd_x_m",
+        "sd_y_m",
+        "largest_movement_m",
+        "grade",
+    ];
+    assert_eq!(
+        features("persistent_control_points", &track_fields) as usize,
+        rows
+    );
+    assert_eq!(
+        features("moved_landmarks", &track_fields),
+        doc["counts"]["moved"].as_u64().unwrap()
+    );
+    assert!(
+        features(
+            "epoch_positions",
+            &["track", "epoch", "landmark_id", "offset_m", "status"]
+        ) as usize
+            >= 4 * rows
+    );
+
     // report.html: the numbers it tags are epochs.json's, one row per epoch in the
     // transform and residual tables, one per closure check, the kept tracks drawn by grade.
     let html = std::fs::read_to_string(dir.join("report.html")).unwrap();

@@ -229,11 +229,56 @@ fn write_csv(
     .map_err(e)
 }
 
+/// One field value of a layer's row.
+enum Value<'a> {
+    Int(i32),
+    Real(f64),
+    Text(&'a str),
+}
+
+/// Writes one point layer `name` into the open GeoPackage `ds`: its `fields`, then a feature
+/// per row of `rows` (the values in the fields' order, the point in the base CRS). The one
+/// writer of the file's three layers.
+fn write_point_layer<'a>(
+    ds: &mut gdal::Dataset,
+    name: &str,
+    srs: &gdal::spatial_ref::SpatialRef,
+    fields: &[(&str, OGRFieldType::Type)],
+    rows: impl Iterator<Item = (Vec<Value<'a>>, [f64; 2])>,
+    path: &Path,
+) -> Result<(), EmitError> {
+    let e = gpkg::gdal_err(path);
+    let layer = ds
+        .create_layer(LayerOptions {
+            name,
+            srs: Some(srs),
+            ty: OGRwkbGeometryType::wkbPoint,
+            options: None,
+        })
+        .map_err(&e)?;
+    gpkg::add_fields(&layer, fields, path)?;
+    for (values, at) in rows {
+        let mut f = Feature::new(layer.defn()).map_err(&e)?;
+        for (i, v) in values.iter().enumerate() {
+            match v {
+                Value::Int(x) => f.set_field_integer(i, *x),
+                Value::Real(x) => f.set_field_double(i, *x),
+                Value::Text(x) => f.set_field_string(i, x),
+            }
+            .map_err(&e)?;
+        }
+        f.set_geometry(gpkg::point(at).map_err(&e)?).map_err(&e)?;
+        f.create(&layer).map_err(&e)?;
+    }
+    Ok(())
+}
+
 fn write_gpkg(
     outcome: &EpochsOutcome,
     means: &[Option<[f64; 2]>],
     path: &Path,
 ) -> Result<(), EmitError> {
+    use OGRFieldType::{OFTInteger, OFTReal, OFTString};
     let e = gpkg::gdal_err(path);
     let srs = gpkg::srs_from_wkt(&outcome.frame.reference_crs.wkt, path)?;
     let lib = &outcome.library;
@@ -254,6 +299,12 @@ fn write_gpkg(
         .frame
         .to_reference_crs(&listed.iter().map(|x| x.2).collect::<Vec<_>>())
         .map_err(EmitError::Frame)?;
+    let grades: Vec<String> = lib
+        .tracks
+        .iter()
+        .map(|t| t.grade.map_or("moved".into(), |g| g.to_string()))
+        .collect();
+    let mpu = lib.metres_per_unit;
     let (mut ds, _fixed) = gpkg::create_gpkg(path)?;
     {
         let mut txn = ds.start_transaction().map_err(&e)?;
@@ -261,86 +312,73 @@ fn write_gpkg(
             ("persistent_control_points", TrackStatus::Kept),
             ("moved_landmarks", TrackStatus::Moved),
         ] {
-            let layer = txn
-                .create_layer(LayerOptions {
-                    name,
-                    srs: Some(&srs),
-                    ty: OGRwkbGeometryType::wkbPoint,
-                    options: None,
-                })
-                .map_err(&e)?;
-            gpkg::add_fields(
-                &layer,
+            let rows = lib
+                .tracks
+                .iter()
+                .zip(means)
+                .zip(&grades)
+                .filter(|((t, _), _)| t.status == status)
+                .map(|((t, mean), grade)| {
+                    (
+                        vec![
+                            Value::Text(&t.id),
+                            Value::Int(t.epochs_seen() as i32),
+                            Value::Real(t.sd_m[0]),
+                            Value::Real(t.sd_m[1]),
+                            Value::Real(t.largest_movement_m),
+                            Value::Text(grade),
+                        ],
+                        mean.expect("every track has a mean"),
+                    )
+                });
+            write_point_layer(
+                &mut txn,
+                name,
+                &srs,
                 &[
-                    ("track", OGRFieldType::OFTString),
-                    ("epochs_seen", OGRFieldType::OFTInteger),
-                    ("sd_x_m", OGRFieldType::OFTReal),
-                    ("sd_y_m", OGRFieldType::OFTReal),
-                    ("largest_movement_m", OGRFieldType::OFTReal),
-                    ("grade", OGRFieldType::OFTString),
+                    ("track", OFTString),
+                    ("epochs_seen", OFTInteger),
+                    ("sd_x_m", OFTReal),
+                    ("sd_y_m", OFTReal),
+                    ("largest_movement_m", OFTReal),
+                    ("grade", OFTString),
                 ],
+                rows,
                 path,
             )?;
-            for (t, mean) in lib.tracks.iter().zip(means) {
-                if t.status != status {
-                    continue;
-                }
-                let mut f = Feature::new(layer.defn()).map_err(&e)?;
-                f.set_field_string(0, &t.id).map_err(&e)?;
-                f.set_field_integer(1, t.epochs_seen() as i32).map_err(&e)?;
-                f.set_field_double(2, t.sd_m[0]).map_err(&e)?;
-                f.set_field_double(3, t.sd_m[1]).map_err(&e)?;
-                f.set_field_double(4, t.largest_movement_m).map_err(&e)?;
-                f.set_field_string(5, &t.grade.map_or("moved".into(), |g| g.to_string()))
-                    .map_err(&e)?;
-                f.set_geometry(gpkg::point(mean.expect("a mean")).map_err(&e)?)
-                    .map_err(&e)?;
-                f.create(&layer).map_err(&e)?;
-            }
         }
-        let layer = txn
-            .create_layer(LayerOptions {
-                name: "epoch_positions",
-                srs: Some(&srs),
-                ty: OGRwkbGeometryType::wkbPoint,
-                options: None,
-            })
-            .map_err(&e)?;
-        gpkg::add_fields(
-            &layer,
-            &[
-                ("track", OGRFieldType::OFTString),
-                ("epoch", OGRFieldType::OFTString),
-                ("landmark_id", OGRFieldType::OFTString),
-                ("offset_m", OGRFieldType::OFTReal),
-                ("status", OGRFieldType::OFTString),
-            ],
-            path,
-        )?;
-        let mpu = lib.metres_per_unit;
-        for ((i, k, working), p) in listed.iter().zip(&converted) {
+        let rows = listed.iter().zip(&converted).map(|((i, k, working), p)| {
             let t = &lib.tracks[*i];
             let m = t.members[*k].expect("a position has a member");
-            let mut f = Feature::new(layer.defn()).map_err(&e)?;
-            f.set_field_string(0, &t.id).map_err(&e)?;
-            f.set_field_string(1, &outcome.epochs[*k].name)
-                .map_err(&e)?;
-            f.set_field_string(2, &outcome.epochs[*k].set.ids[m as usize])
-                .map_err(&e)?;
-            f.set_field_double(3, crate::spatial::dist2(*working, t.mean).sqrt() * mpu)
-                .map_err(&e)?;
-            f.set_field_string(
-                4,
-                if t.status == TrackStatus::Moved {
-                    "moved"
-                } else {
-                    "kept"
-                },
+            (
+                vec![
+                    Value::Text(&t.id),
+                    Value::Text(&outcome.epochs[*k].name),
+                    Value::Text(&outcome.epochs[*k].set.ids[m as usize]),
+                    Value::Real(crate::spatial::dist2(*working, t.mean).sqrt() * mpu),
+                    Value::Text(if t.status == TrackStatus::Moved {
+                        "moved"
+                    } else {
+                        "kept"
+                    }),
+                ],
+                *p,
             )
-            .map_err(&e)?;
-            f.set_geometry(gpkg::point(*p).map_err(&e)?).map_err(&e)?;
-            f.create(&layer).map_err(&e)?;
-        }
+        });
+        write_point_layer(
+            &mut txn,
+            "epoch_positions",
+            &srs,
+            &[
+                ("track", OFTString),
+                ("epoch", OFTString),
+                ("landmark_id", OFTString),
+                ("offset_m", OFTReal),
+                ("status", OFTString),
+            ],
+            rows,
+            path,
+        )?;
         txn.commit().map_err(&e)?;
     }
     gpkg::close_checked(ds, path)?;
