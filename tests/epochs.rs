@@ -653,10 +653,85 @@ fn the_sample_library_is_written_and_its_tracks_are_true() {
     }
 }
 
+/// Records how long each stage of a run took (the binary draws bars from the same calls).
+#[derive(Default)]
+struct StageTimes {
+    open: std::cell::RefCell<Option<(String, std::time::Instant)>>,
+    done: std::cell::RefCell<Vec<(String, f64)>>,
+}
+
+impl tiemark::progress::Progress for StageTimes {
+    fn begin(&self, stage: &str, _total: Option<u64>) {
+        *self.open.borrow_mut() = Some((stage.to_string(), std::time::Instant::now()));
+    }
+    fn advance(&self, _done: u64) {}
+    fn message(&self, _message: &str) {}
+    fn end(&self) {
+        if let Some((stage, at)) = self.open.borrow_mut().take() {
+            self.done
+                .borrow_mut()
+                .push((stage, at.elapsed().as_secs_f64()));
+        }
+    }
+}
+
+impl StageTimes {
+    /// Seconds spent reading epochs, matching pairs (everything else but linking), linking
+    /// and adjusting.
+    fn split(&self) -> (f64, f64, f64) {
+        let (mut read, mut matching, mut link) = (0.0, 0.0, 0.0);
+        for (stage, s) in self.done.borrow().iter() {
+            if stage.starts_with("reading epoch") {
+                read += s;
+            } else if stage.starts_with("linking and adjusting") {
+                link += s;
+            } else {
+                matching += s;
+            }
+        }
+        (read, matching, link)
+    }
+}
+
+/// (user + system CPU seconds, peak resident memory in kB) of this process so far.
+fn cpu_and_peak() -> (f64, String) {
+    let status = std::fs::read_to_string("/proc/self/status").unwrap_or_default();
+    let peak = status
+        .lines()
+        .find(|l| l.starts_with("VmHWM"))
+        .unwrap_or("VmHWM: ?")
+        .trim_start_matches("VmHWM:")
+        .trim()
+        .to_string();
+    let stat = std::fs::read_to_string("/proc/self/stat").unwrap_or_default();
+    // Fields 14 and 15 (utime, stime) in clock ticks, after the command's closing parenthesis.
+    let after = stat.rsplit_once(')').map_or("", |x| x.1);
+    let f: Vec<f64> = after
+        .split_whitespace()
+        .map(|v| v.parse().unwrap_or(0.0))
+        .collect();
+    // Clock ticks a second (USER_HZ), as `getconf CLK_TCK` says.
+    let ticks: f64 = std::process::Command::new("getconf")
+        .arg("CLK_TCK")
+        .output()
+        .ok()
+        .and_then(|o| String::from_utf8_lossy(&o.stdout).trim().parse().ok())
+        .unwrap_or(f64::NAN);
+    let cpu = if f.len() > 13 && ticks > 0.0 {
+        (f[11] + f[12]) / ticks
+    } else {
+        f64::NAN
+    };
+    (cpu, peak)
+}
+
 /// The speed benchmark (not run in CI; `cargo test --release --test epochs -- --ignored
 /// --nocapture ten_epochs`): ten epochs of 100,000 landmarks (`TIEMARK_BENCH_EPOCH_SIZE` to
-/// change) from CSV files to the written library, in this process; prints the time of each
-/// part and the peak memory (VmHWM).
+/// change) from CSV files to the written library, in this process, once with the default
+/// pairs (2N − 3 = 17 matches) and once with every pair (45); prints per run the time of each
+/// part, the CPU time, the peak memory (VmHWM, reset between the runs) and the matching time
+/// per pair, so that the cost's growth in pairs matched can be read off: linear when the time
+/// per pair stays put from 17 to 45 pairs.
 #[test]
 #[ignore]
 fn ten_epochs_of_100000_landmarks() {
@@ -695,38 +770,53 @@ fn ten_epochs_of_100000_landmarks() {
         std::fs::write(&path, text).unwrap();
         files.push(path);
     }
-    let mut cfg = EpochsConfig::new(files);
-    for e in &mut cfg.epochs {
-        e.id = Some("id".into());
-        e.crs = Some("EPSG:32633".into());
+    let mut per_pair = Vec::new();
+    for (run, plan) in [epochs::PairPlan::BaseAndNeighbours, epochs::PairPlan::All]
+        .into_iter()
+        .enumerate()
+    {
+        let mut cfg = EpochsConfig::new(files.clone());
+        for e in &mut cfg.epochs {
+            e.id = Some("id".into());
+            e.crs = Some("EPSG:32633".into());
+        }
+        cfg.options.pairs = plan;
+        // The peak of this run only (Linux: writing 5 to clear_refs resets VmHWM).
+        let _ = std::fs::write("/proc/self/clear_refs", "5");
+        let (cpu0, _) = cpu_and_peak();
+        let times = StageTimes::default();
+        let start = std::time::Instant::now();
+        let outcome = epochs::run(&cfg, &tiemark::emit::epochs::COLUMNS, &times).unwrap();
+        let computed = start.elapsed();
+        let out = tiemark::emit::check_output_dir(
+            &tmp.path().join(format!("library-{run}")),
+            false,
+            &tiemark::emit::epochs::FILES,
+            &[],
+        )
+        .unwrap();
+        let summary = tiemark::emit::epochs::summary(&outcome);
+        tiemark::emit::epochs::write_all(&outcome, &out, &summary).unwrap();
+        let total = start.elapsed();
+        let (cpu1, peak) = cpu_and_peak();
+        let (read, matching, link) = times.split();
+        let pairs = outcome.pairs.len();
+        println!(
+            "ten epochs of {size}, {plan:?}: {pairs} pairs matched, {} tracks, {} kept; reading {read:.1} s, matching {matching:.1} s ({:.2} s a pair), linking and adjusting {link:.1} s; read+match+adjust {:.1} s, with writing {:.1} s wall, {:.1} s CPU (user + sys); peak memory (VmHWM) {peak}",
+            outcome.library.counts.tracks,
+            outcome.library.counts.kept,
+            matching / pairs as f64,
+            computed.as_secs_f64(),
+            total.as_secs_f64(),
+            cpu1 - cpu0,
+        );
+        assert!(outcome.library.unjoined().is_empty());
+        per_pair.push(matching / pairs as f64);
     }
-    let start = std::time::Instant::now();
-    let outcome = epochs::run(&cfg, &tiemark::emit::epochs::COLUMNS, &Silent).unwrap();
-    let computed = start.elapsed();
-    let out = tiemark::emit::check_output_dir(
-        &tmp.path().join("library"),
-        false,
-        &tiemark::emit::epochs::FILES,
-        &[],
-    )
-    .unwrap();
-    let summary = tiemark::emit::epochs::summary(&outcome);
-    tiemark::emit::epochs::write_all(&outcome, &out, &summary).unwrap();
-    let total = start.elapsed();
-    let status = std::fs::read_to_string("/proc/self/status").unwrap_or_default();
-    let peak = status
-        .lines()
-        .find(|l| l.starts_with("VmHWM"))
-        .unwrap_or("VmHWM: ?");
     println!(
-        "ten epochs of {size}: {} pairs matched, {} tracks, {} kept; read+match+adjust {:.1} s, with writing {:.1} s; {peak}",
-        outcome.pairs.len(),
-        outcome.library.counts.tracks,
-        outcome.library.counts.kept,
-        computed.as_secs_f64(),
-        total.as_secs_f64()
+        "matching time per pair, 45 pairs against 17: {:.2}x (1 = linear in pairs matched)",
+        per_pair[1] / per_pair[0]
     );
-    assert!(outcome.library.unjoined().is_empty());
 }
 
 /// Writes band `band` of the Landsat scene as a one-band GeoTIFF whose geotransform carries
