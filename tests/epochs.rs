@@ -558,13 +558,13 @@ fn the_sample_library_is_written_and_its_tracks_are_true() {
     // fields (GDAL reads it back).
     let gpkg = gdal::Dataset::open(dir.join("persistent-control-points.gpkg")).unwrap();
     let features = |name: &str, fields: &[&str]| -> u64 {
-        let mut layer = gpkg.layer_by_name(name).unwrap();
+        let layer = gpkg.layer_by_name(name).unwrap();
         let have: Vec<String> = gdal::vector::LayerAccess::defn(&layer)
             .fields()
             .map(|f| f.name())
             .collect();
         assert_eq!(have, fields, "{name}");
-        gdal::vector::LayerAccess::feature_count(&mut layer)
+        gdal::vector::LayerAccess::feature_count(&layer)
     };
     let track_fields = [
         "track",
