@@ -48,11 +48,7 @@ pub fn write_control_points(
     );
     // A raster target adds where each control point is on its pixels (GDAL's pixel/line,
     // full resolution) and, when refined there, the correlation and the shift it made.
-    let to_pixel = result
-        .target
-        .raster
-        .as_ref()
-        .and_then(|r| r.geotransform.inverse());
+    let to_pixel = result.target.raster.as_deref();
     let refined: Option<std::collections::HashMap<(u32, u32), crate::outcome::PointRefinement>> =
         result
             .pixels
@@ -85,8 +81,8 @@ pub fn write_control_points(
         let rw = result.frame.reference[ri];
         let (dx, dy) = ((rw[0] - m[0]) * mpu, (rw[1] - m[1]) * mpu);
         let mut extra = String::new();
-        if let Some(g) = &to_pixel {
-            let [px, ln] = g.pixel_to_map(tp[0], tp[1]);
+        if let Some(g) = to_pixel {
+            let [px, ln] = g.file_pixel(tp).unwrap_or([f64::NAN; 2]);
             extra.push_str(&format!(",{px:.3},{ln:.3}"));
         }
         if let Some(r) = refined

@@ -268,10 +268,11 @@ pub fn write_all_with(
 }
 
 /// For a raster target, the files that co-register it, written into `dir`; their names.
-/// `target-gcps.vrt` carries every control point as a GCP (target pixel/line → the reference's
-/// own coordinates) when the reference has a CRS; `target-georeferenced.vrt` gives the target
-/// the corrected geotransform when the similarity maps the target's own coordinates onto the
-/// reference's (one CRS for both and for the fit).
+/// `target-gcps.vrt` carries every control point as a GCP (the target file's own pixel/line →
+/// the reference's own coordinates) when the reference has a CRS; `target-georeferenced.vrt`
+/// gives the target the corrected geotransform when the similarity maps the target's own
+/// coordinates onto the reference's (one CRS for both and for the fit) and the file was read
+/// as it is (not through a warped view).
 fn raster_outputs(
     outcome: &MatchOutcome,
     solution: &Solution,
@@ -286,10 +287,6 @@ fn raster_outputs(
     };
     let working = outcome.frame.crs.wkt.as_str();
     let one_crs = outcome.target.crs_wkt.as_deref() == Some(working) && reference_wkt == working;
-    let to_pixel = image
-        .geotransform
-        .inverse()
-        .expect("a raster survey's geotransform has an inverse (checked on reading)");
     let gcps: Vec<raster::Gcp> = solution
         .pairs
         .iter()
@@ -302,7 +299,11 @@ fn raster_outputs(
             } else {
                 outcome.target.points[t]
             };
-            let [pixel, line] = to_pixel.pixel_to_map(at[0], at[1]);
+            // The file's own pixel/line (through the warped view's map back, for an image
+            // read through one), so that a GCP warp of the file itself uses them.
+            let [pixel, line] = image
+                .file_pixel(at)
+                .expect("a raster survey's geotransform has an inverse (checked on reading)");
             let [x, y] = outcome.reference.points[r];
             raster::Gcp {
                 id: outcome.reference.ids[r].clone(),
@@ -316,7 +317,8 @@ fn raster_outputs(
     let source = &outcome.target.source;
     raster::write_gcp_vrt(source, &gcps, reference_wkt, &dir.join(raster::GCP_VRT))?;
     let mut names = vec![raster::GCP_VRT];
-    if one_crs {
+    // Only for a file read as it is: a warped view's geotransform is not the file's.
+    if one_crs && image.read_as_is() {
         raster::write_georeferenced_vrt(
             source,
             &image.geotransform,

@@ -58,7 +58,7 @@ use crate::fit::significance::Significance;
 use crate::fit::similarity::{fit_similarity, similarity_from_two, Similarity};
 use crate::fit::{RejectReason, Rejection, Solution};
 use crate::image::Image;
-use crate::ingest::{IngestError, LandmarkSet, RasterSource};
+use crate::ingest::{IngestError, LandmarkSet};
 use crate::outcome::{AreaSeed, SeedTried};
 use crate::refine::{self, Measure, NotRefined, RefineParams};
 use rand::{Rng, SeedableRng};
@@ -592,8 +592,8 @@ pub(super) fn area_match(
         summary.why = "not run: the images are not both on the working CRS; warp the target to the reference's CRS first".into();
         return Ok(AreaMatch { summary, fit: None });
     }
-    let reference = RasterSource::open(&config.reference.path, config.reference.band)?;
-    let target = RasterSource::open(&config.target.path, config.target.band)?;
+    let reference = crate::ingest::reopen_raster(&config.reference, rr)?;
+    let target = crate::ingest::reopen_raster(&config.target, tr)?;
     // The target's centre, where the bounds are measured (as for a keypoint match).
     let tcorners = {
         let g = &tr.geotransform;

@@ -107,12 +107,29 @@ pub fn read_survey_of_set(
 
 /// Reads both surveys of a match. When both are rasters and no feature size is given, both
 /// are searched at the default size for the pair's pixel sizes, so that the same features are
-/// found in both ([`coarsest_pixel_m`]).
+/// found in both ([`KeypointParams::feature_size_for`]). A raster that needs a warped view (a
+/// geographic CRS, GCPs warped through their polynomial) is put on the working CRS asked for;
+/// without one, the target goes on the reference's CRS (`reference.crs`, or the reference
+/// image's CRS as read), so that both images share the grid the refinement works on.
 pub fn read_surveys(config: &MatchConfig) -> Result<(LandmarkSet, LandmarkSet), IngestError> {
-    let coarsest = coarsest_pixel_m(&[&config.reference, &config.target])?;
+    let reference_grid = config.frame.working_crs.as_deref();
+    let target_grid = match reference_grid.or(config.reference.crs.as_deref()) {
+        Some(g) => Some(g.to_string()),
+        None => ingest::raster_crs_wkt_on(&config.reference, reference_grid)?,
+    };
+    let target_grid = target_grid.as_deref();
+    let pixels = [
+        ingest::raster_pixel_metres_on(&config.reference, reference_grid)?,
+        ingest::raster_pixel_metres_on(&config.target, target_grid)?,
+    ];
     Ok((
-        read_survey_of_set(&config.reference, &config.keypoints, coarsest)?,
-        read_survey_of_set(&config.target, &config.keypoints, coarsest)?,
+        ingest::read_landmarks_on(
+            &config.reference,
+            &config.keypoints,
+            pixels[1],
+            reference_grid,
+        )?,
+        ingest::read_landmarks_on(&config.target, &config.keypoints, pixels[0], target_grid)?,
     ))
 }
 

@@ -58,8 +58,8 @@ pub(super) fn refine_on_pixels(
                 .into(),
         );
     }
-    let reference = ingest::open_raster(inputs[0])?;
-    let target = ingest::open_raster(inputs[1])?;
+    let reference = ingest::reopen_raster(inputs[0], rr)?;
+    let target = ingest::reopen_raster(inputs[1], tr)?;
     let (ref_image, tgt_image) = read_for_refinement(&reference, &target, rr, tr)?;
     let points: Vec<[f64; 2]> = solution
         .pairs

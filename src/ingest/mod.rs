@@ -14,8 +14,10 @@
 //! What a dataset holds is decided from what GDAL opens, not from the file's name
 //! ([`SourceKind`]): vector layers are read (`vector.rs`). A raster image is opened as a
 //! [`RasterSource`] (`raster.rs`: a band or the luminance, its geotransform and CRS, read
-//! decimated or by windows into an `Image`, with its validity mask) and its keypoints become
-//! the landmarks (`raster_landmarks.rs`, through [`crate::keypoints`]). A file that exists but
+//! decimated or by windows into an `Image`, with its validity mask; an image in a geographic
+//! CRS or georeferenced by GCPs only through `georef.rs`: a geotransform from the GCPs, or a
+//! warped view on a projected grid) and its keypoints become the landmarks
+//! (`raster_landmarks.rs`, through [`crate::keypoints`]). A file that exists but
 //! cannot be read (permission denied) is said to be so before GDAL is asked.
 //!
 //! Points are taken as they are; polygons and multipolygons as their area-weighted centroid
@@ -49,6 +51,7 @@
 //! ambiguous. A cell that is not a finite number is an error, not a skipped feature.
 
 mod csv;
+pub mod georef;
 pub(crate) use open::{clear_gdal_error, take_gdal_failure};
 mod open;
 mod raster;
@@ -56,11 +59,12 @@ mod raster_landmarks;
 mod validate;
 mod vector;
 
+pub use georef::PixelMap;
 pub use raster::{
     BandChoice, RasterError, RasterInfo, RasterSource, ReadLevel, ReadPlan, LUMINANCE_WEIGHTS,
     STRIP_PIXELS,
 };
-pub use raster_landmarks::RasterLandmarks;
+pub use raster_landmarks::{RasterLandmarks, RasterView};
 
 use crate::keypoints::KeypointParams;
 use gdal::errors::GdalError;
@@ -209,11 +213,24 @@ pub fn read_landmarks_with(
     keypoints: &KeypointParams,
     other_pixel_m: Option<f64>,
 ) -> Result<LandmarkSet, IngestError> {
+    read_landmarks_on(input, keypoints, other_pixel_m, None)
+}
+
+/// As [`read_landmarks_with`], a raster that needs a warped view (a geographic CRS, GCPs
+/// warped through their polynomial) put on `grid` when it is a projected CRS
+/// ([`RasterSource::open_on`]; the match passes its working CRS, so that both images share
+/// one grid).
+pub fn read_landmarks_on(
+    input: &SurveyInput,
+    keypoints: &KeypointParams,
+    other_pixel_m: Option<f64>,
+    grid: Option<&str>,
+) -> Result<LandmarkSet, IngestError> {
     let opened = open::open_source(&input.path)?;
     match opened.kind {
         SourceKind::Vector => vector::read_vector(input, opened),
         SourceKind::Raster => {
-            let source = RasterSource::open(&input.path, input.band)?;
+            let source = RasterSource::open_on(&input.path, input.band, grid)?;
             let own = raster_landmarks::pixel_metres(&source)?;
             let size = keypoints.feature_size_for(own, other_pixel_m.unwrap_or(own));
             raster_landmarks::read_keypoints(&source, size, keypoints)
@@ -223,13 +240,51 @@ pub fn read_landmarks_with(
 
 /// The ground size of a raster survey's pixels in metres; `None` for a vector survey.
 pub fn raster_pixel_metres(input: &SurveyInput) -> Result<Option<f64>, IngestError> {
+    raster_pixel_metres_on(input, None)
+}
+
+/// As [`raster_pixel_metres`], on the grid [`read_landmarks_on`] would use.
+pub fn raster_pixel_metres_on(
+    input: &SurveyInput,
+    grid: Option<&str>,
+) -> Result<Option<f64>, IngestError> {
     let opened = open::open_source(&input.path)?;
     match opened.kind {
         SourceKind::Vector => Ok(None),
         SourceKind::Raster => {
-            let source = RasterSource::open(&input.path, input.band)?;
+            let source = RasterSource::open_on(&input.path, input.band, grid)?;
             raster_landmarks::pixel_metres(&source).map(Some)
         }
+    }
+}
+
+/// A raster survey opened again as its landmarks were read: on the same grid when it was
+/// read through a warped view.
+pub fn reopen_raster(
+    input: &SurveyInput,
+    landmarks: &RasterLandmarks,
+) -> Result<RasterSource, IngestError> {
+    RasterSource::open_on(
+        &input.path,
+        input.band,
+        landmarks.view.as_ref().map(|v| v.grid.as_str()),
+    )
+}
+
+/// The CRS of a raster survey as it is read on `grid` (a warped view's grid for an image in a
+/// geographic CRS or warped through its GCPs), as WKT; `None` for a vector survey or an image
+/// with none.
+pub fn raster_crs_wkt_on(
+    input: &SurveyInput,
+    grid: Option<&str>,
+) -> Result<Option<String>, IngestError> {
+    let opened = open::open_source(&input.path)?;
+    match opened.kind {
+        SourceKind::Vector => Ok(None),
+        SourceKind::Raster => Ok(RasterSource::open_on(&input.path, input.band, grid)?
+            .info()
+            .crs_wkt
+            .clone()),
     }
 }
 

@@ -9,10 +9,18 @@
 //! ([`RasterSource::read`]) or a full-resolution window ([`RasterSource::read_window`]).
 //! Or a [`RasterError`] naming the file and what to do.
 //!
-//! **Georeferencing.** The image must be on a map grid: a geotransform (rotated and skewed ones
-//! are fine: they are affine). An image with none — GDAL's default `[0, 1, 0, 0, 0, 1]` counts
-//! as none — is refused ([`RasterError::NotGeoreferenced`]); so, for now, is an image
-//! georeferenced only by ground control points ([`RasterError::GcpsOnly`]).
+//! **Georeferencing** (`georef.rs`). An image on a projected map grid (a geotransform: rotated
+//! and skewed ones are fine, they are affine) is read as it is. An image georeferenced by
+//! ground control points only is read with their first-order fit as its geotransform when
+//! every GCP lies within a tenth of a pixel of it, else through a warp of their second-order
+//! polynomial (GCPs too few or inconsistent for either are refused:
+//! [`RasterError::TooFewGcps`], [`RasterError::GcpsInconsistent`]). An image in a geographic
+//! CRS (degrees), or warped through its GCPs, is read through a GDAL warped VRT on a projected
+//! grid ([`RasterSource::open_on`]: the CRS asked for, else its GCPs' projected CRS, else the
+//! UTM zone of its centre): then [`RasterInfo`]'s size, geotransform, CRS and pixel size are
+//! the view's, and [`RasterSource::pixel_map`] takes the view's map positions back to the
+//! file's own pixel/line. An image with no georeferencing — GDAL's default
+//! `[0, 1, 0, 0, 0, 1]` and no GCPs — is refused ([`RasterError::NotGeoreferenced`]).
 //!
 //! **Band.** [`BandChoice::Band`] (numbered from 1, as GDAL does) or [`BandChoice::Luminance`]
 //! of bands 1-3 as red, green, blue, weighted by [`LUMINANCE_WEIGHTS`] (ITU-R BT.709). Without
@@ -49,6 +57,7 @@
 //! the sums and means of each strip are shared between them by rows; the samples are the same
 //! with any number of threads (`tests/parallel.rs`).
 
+use super::georef::{self, PixelMap};
 use super::open::open_source;
 use super::{IngestError, SourceKind};
 use crate::image::{GeoTransform, Image};
@@ -217,13 +226,29 @@ pub struct ReadPlan {
 /// A raster image opened read-only, with the band (or luminance) it will be read as.
 pub struct RasterSource {
     path: PathBuf,
+    /// What is read: the file, or a warped view over it (declared before `_file`, so that the
+    /// view is closed before the file it refers to).
     dataset: Dataset,
     info: RasterInfo,
     choice: BandChoice,
     /// Why this band: `None` when the caller chose it.
     default_reason: Option<String>,
-    /// 1-based bands read, in order (one, or red, green, blue).
+    /// 1-based bands read of `dataset`, in order (one, or red, green, blue).
     bands: Vec<usize>,
+    /// The file's georeferencing.
+    georeferencing: georef::Analysis,
+    /// For a warped view: the view's grid and the map back to the file's pixels.
+    view: Option<View>,
+    /// The file itself under a warped view (kept open while the view is).
+    _file: Option<Dataset>,
+}
+
+/// A warped view's grid and the map back to the file's pixel/line.
+#[derive(Debug, Clone)]
+struct View {
+    grid: String,
+    grid_because: String,
+    map: PixelMap,
 }
 
 impl fmt::Debug for RasterSource {
@@ -239,8 +264,21 @@ impl fmt::Debug for RasterSource {
 impl RasterSource {
     /// Opens the raster at `path` read-only and resolves the band to read (`None`: the default
     /// rule of the module doc). Errors: the file is missing or unreadable, is a vector
-    /// dataset, is not on a map grid, or has no such band.
+    /// dataset, is not georeferenced usably, or has no such band. An image that needs a warped
+    /// view goes on the default grid ([`open_on`](Self::open_on) with no grid).
     pub fn open(path: &Path, band: Option<BandChoice>) -> Result<RasterSource, IngestError> {
+        RasterSource::open_on(path, band, None)
+    }
+
+    /// As [`open`](Self::open), with the CRS (any definition GDAL reads) that an image in a
+    /// geographic CRS or warped through its GCPs is put on, when it is projected; `None`: its
+    /// GCPs' CRS when projected, else the UTM zone of its centre. An image on a projected grid
+    /// is read as it is whatever `grid` says.
+    pub fn open_on(
+        path: &Path,
+        band: Option<BandChoice>,
+        grid: Option<&str>,
+    ) -> Result<RasterSource, IngestError> {
         let opened = open_source(path).map_err(|e| match e {
             IngestError::Unreadable { path, source } => {
                 IngestError::Raster(RasterError::Unreadable { path, source })
@@ -255,7 +293,7 @@ impl RasterSource {
             .into());
         }
         let ds = opened.dataset;
-        let geotransform = georeferencing(path, &ds)?;
+        let analysis = georef::analyse(path, &ds)?;
         let band_count = ds.raster_count();
         let (choice, default_reason) = match band {
             Some(c) => (c, None),
@@ -287,27 +325,123 @@ impl RasterSource {
             let first = ds.rasterband(bands[0]).map_err(|e| gdal_error(path, e))?;
             (first.band_type().name(), first.no_data_value())
         };
-        let (width, height) = ds.raster_size();
-        let wkt = ds.projection();
+        let driver = opened.driver;
+        if !analysis.needs_warp() {
+            let (width, height) = ds.raster_size();
+            let geotransform = analysis.geotransform;
+            let info = RasterInfo {
+                width,
+                height,
+                band_count,
+                data_type,
+                nodata,
+                geotransform,
+                crs_wkt: analysis.crs_wkt.clone(),
+                pixel_size: geotransform.pixel_size(),
+                driver,
+            };
+            return Ok(RasterSource {
+                path: path.to_path_buf(),
+                dataset: ds,
+                info,
+                choice,
+                default_reason,
+                bands,
+                georeferencing: analysis,
+                view: None,
+                _file: None,
+            });
+        }
+        // The file's alpha band, if any, marks where the view has data (with no-data values
+        // and masks, which the warp honours itself).
+        let alpha = (1..=band_count).find(|&b| {
+            ds.rasterband(b)
+                .is_ok_and(|x| x.color_interpretation() == ColorInterpretation::AlphaBand)
+        });
+        let warped = georef::warp(path, &ds, &bands, alpha, &analysis, grid)?;
+        let map = PixelMap::new(path, &ds, &analysis, &warped)?;
         let info = RasterInfo {
-            width,
-            height,
+            width: warped.size.0,
+            height: warped.size.1,
             band_count,
             data_type,
             nodata,
-            geotransform,
-            crs_wkt: (!wkt.trim().is_empty()).then_some(wkt),
-            pixel_size: geotransform.pixel_size(),
-            driver: opened.driver,
+            geotransform: warped.geotransform,
+            crs_wkt: Some(warped.crs_wkt.clone()),
+            pixel_size: warped.geotransform.pixel_size(),
+            driver,
         };
         Ok(RasterSource {
             path: path.to_path_buf(),
-            dataset: ds,
+            dataset: warped.dataset,
             info,
             choice,
             default_reason,
-            bands,
+            bands: (1..=bands.len()).collect(),
+            georeferencing: analysis,
+            view: Some(View {
+                grid: warped.grid,
+                grid_because: warped.grid_because,
+                map,
+            }),
+            _file: Some(ds),
         })
+    }
+
+    /// For an image read through a warped view: the map from the view's map positions back to
+    /// the file's own pixel/line; `None` when the file is read as it is (its pixel/line is then
+    /// the inverse of [`RasterInfo::geotransform`]).
+    pub fn pixel_map(&self) -> Option<&PixelMap> {
+        self.view.as_ref().map(|v| &v.map)
+    }
+
+    /// For a warped view: the definition of the grid's CRS it was made on (give it to
+    /// [`open_on`](Self::open_on) to make the same view again).
+    pub fn grid(&self) -> Option<&str> {
+        self.view.as_ref().map(|v| v.grid.as_str())
+    }
+
+    /// How the file is georeferenced.
+    pub fn georeferencing(&self) -> &georef::Analysis {
+        &self.georeferencing
+    }
+
+    /// How the image is georeferenced and read, in a few words (for the landmarks' layer
+    /// name, which every report shows); `None` for a file read by its own geotransform.
+    pub fn georeferencing_note(&self) -> Option<String> {
+        let a = &self.georeferencing;
+        let gcps = match &a.source {
+            georef::Source::Geotransform => None,
+            georef::Source::GcpAffine {
+                count,
+                max_residual_px,
+            } => Some(format!(
+                "georeferenced by the first-order (affine) fit of its {count} GCPs, largest residual {max_residual_px:.3} px"
+            )),
+            georef::Source::GcpPolynomial {
+                count,
+                max_residual_px,
+                ..
+            } => Some(format!(
+                "warped through the second-order polynomial of its {count} GCPs, largest residual {max_residual_px:.3} px"
+            )),
+        };
+        let view = self.view.as_ref().map(|v| {
+            format!(
+                "read through a warped view on {}{}",
+                crs_name(&v.grid),
+                if a.geographic {
+                    " (its CRS is geographic)"
+                } else {
+                    ""
+                }
+            )
+        });
+        match (gcps, view) {
+            (None, None) => None,
+            (Some(g), None) | (None, Some(g)) => Some(g),
+            (Some(g), Some(v)) => Some(format!("{g}; {v}")),
+        }
     }
 
     /// The file opened.
@@ -347,8 +481,27 @@ impl RasterSource {
             Ok(w) => w,
             Err(e) => format!("validity unknown ({e})"),
         };
+        let georeferencing = match &self.view {
+            None => self.georeferencing.words(),
+            Some(v) => format!(
+                "{}; {}read through a warped view (cubic) on {} ({}), {} × {} px (the file has {} × {}; its pixel/line is mapped back within {:.3} px)",
+                self.georeferencing.words(),
+                if self.georeferencing.geographic {
+                    "its CRS is geographic, so it is "
+                } else {
+                    ""
+                },
+                crs_name(&v.grid),
+                v.grid_because,
+                i.width,
+                i.height,
+                v.map.file_size.0,
+                v.map.file_size.1,
+                v.map.max_error_px
+            ),
+        };
         format!(
-            "{} ({}): {} × {} px, {} band{} of {}, pixel size {} map units, {}; read as {what}{why}; {validity}",
+            "{} ({}): {} × {} px, {} band{} of {}, pixel size {} map units, {}; {georeferencing}; read as {what}{why}; {validity}",
             self.path.display(),
             i.driver,
             i.width,
@@ -736,30 +889,12 @@ fn to_isize(v: usize) -> isize {
     isize::try_from(v).unwrap_or(isize::MAX)
 }
 
-/// The image's geotransform, or why it has none usable.
-fn georeferencing(path: &Path, ds: &Dataset) -> Result<GeoTransform, RasterError> {
-    const DEFAULT: [f64; 6] = [0.0, 1.0, 0.0, 0.0, 0.0, 1.0];
-    match ds.geo_transform() {
-        Ok(g) if g != DEFAULT => {
-            let gt = GeoTransform(g);
-            if gt.inverse().is_none() || g.iter().any(|v| !v.is_finite()) {
-                return Err(RasterError::SingularGeotransform {
-                    path: path.to_path_buf(),
-                    geotransform: g,
-                });
-            }
-            Ok(gt)
-        }
-        _ => match ds.gcps().len() {
-            0 => Err(RasterError::NotGeoreferenced {
-                path: path.to_path_buf(),
-            }),
-            count => Err(RasterError::GcpsOnly {
-                path: path.to_path_buf(),
-                count,
-            }),
-        },
-    }
+/// A CRS definition's name (`WGS 84 / UTM zone 25S`), or the definition when GDAL gives none.
+fn crs_name(definition: &str) -> String {
+    gdal::spatial_ref::SpatialRef::from_definition(definition)
+        .ok()
+        .and_then(|s| s.name())
+        .unwrap_or_else(|| definition.chars().take(60).collect())
 }
 
 /// The default rule of the module doc, and the reason in words.
@@ -821,13 +956,35 @@ pub enum RasterError {
         /// Path given.
         path: PathBuf,
     },
-    /// Ground control points and no geotransform.
-    #[error("{path}: the raster image is georeferenced by {count} ground control points only, not by a geotransform; this version reads images on a map grid only — warp it onto a map grid first")]
-    GcpsOnly {
+    /// Too few ground control points (and no geotransform) to fix an affine.
+    #[error("{path}: the raster image is georeferenced by {count} ground control point(s) only, and at least 3 (not on one line) are needed to place it; add ground control points, or give it a geotransform")]
+    TooFewGcps {
         /// Path given.
         path: PathBuf,
         /// Ground control points in the file.
         count: usize,
+    },
+    /// Ground control points that no first- or second-order polynomial fits.
+    #[error("{path}: the {count} ground control points of the image do not agree: the polynomial of order {order} they allow leaves GCP '{gcp}' {residual_px:.2} px away (at most 0.1 px for the first order, 1 px for the second, is accepted); check that GCP (a blunder, or a point of another image), or warp the image with its GCPs yourself first (e.g. gdalwarp -tps) and give the warped image")]
+    GcpsInconsistent {
+        /// Path given.
+        path: PathBuf,
+        /// Ground control points in the file.
+        count: usize,
+        /// Order of the polynomial tried last.
+        order: usize,
+        /// The worst GCP's distance from it, pixels.
+        residual_px: f64,
+        /// That GCP's id.
+        gcp: String,
+    },
+    /// The warped view of an image in a geographic CRS or georeferenced by GCPs could not be made.
+    #[error("{path}: the image cannot be read on a projected grid ({why}); warp it to a projected CRS yourself first (e.g. gdalwarp -t_srs with its UTM zone) and give the warped image")]
+    WarpFailed {
+        /// Path given.
+        path: PathBuf,
+        /// What failed.
+        why: String,
     },
     /// A geotransform without an inverse, or with a non-finite term.
     #[error("{path}: the geotransform {geotransform:?} maps pixels to no area (or has a non-finite term); fix the image's georeferencing")]
@@ -836,12 +993,6 @@ pub enum RasterError {
         path: PathBuf,
         /// GDAL's six terms.
         geotransform: [f64; 6],
-    },
-    /// A CRS in degrees: pixels have no single size on the ground.
-    #[error("{path}: the image is on a geographic grid (degrees), whose pixels have no single size on the ground; warp it to a projected CRS (e.g. its UTM zone) first")]
-    Geographic {
-        /// Path given.
-        path: PathBuf,
     },
     /// The band asked for does not exist.
     #[error("{path}: has no band {band}; the image has {count} band(s), numbered from 1 — choose one of them")]

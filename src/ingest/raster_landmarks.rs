@@ -16,10 +16,15 @@
 //! (a block mean of d × d pixels adds a variance of (d² − 1)/12 pixels², the variance of a
 //! uniform distribution over a pixel's width — common practice).
 //!
-//! The image's CRS must be projected: the detector needs pixels of one size in both directions,
-//! which a grid in degrees does not have away from the equator. A raster without a CRS is read
-//! with its geotransform in metres (a local grid).
+//! The detector needs pixels of one size in both directions, which a grid in degrees does not
+//! have away from the equator: an image in a geographic CRS (or one warped through its GCPs)
+//! is read through its warped view on a projected grid ([`RasterSource::open_on`]), the
+//! landmarks' positions and CRS are the view's, the feature size is in metres on that grid,
+//! and each keypoint's `pixel` is taken back to the file's own pixel/line
+//! ([`RasterLandmarks::view`]), so that outputs name the pixels of the file. A raster without a
+//! CRS is read with its geotransform in metres (a local grid).
 
+use super::georef::PixelMap;
 use super::raster::{RasterError, RasterSource};
 use super::{IngestError, LandmarkSet, SkipCounts};
 use crate::image::GeoTransform;
@@ -31,12 +36,16 @@ use gdal::spatial_ref::SpatialRef;
 pub struct RasterLandmarks {
     /// The image in words (size, band, pixel size, …).
     pub description: String,
-    /// Full-resolution columns.
+    /// Full-resolution columns (of the warped view, for an image read through one).
     pub width: usize,
-    /// Full-resolution rows.
+    /// Full-resolution rows (of the warped view, for an image read through one).
     pub height: usize,
-    /// Full-resolution geotransform.
+    /// Full-resolution geotransform (of the warped view, for an image read through one):
+    /// pixel/line of what is read → the landmarks' CRS.
     pub geotransform: GeoTransform,
+    /// For an image read through a warped view: its grid and the map back to the file's own
+    /// pixel/line; `None` when the file is read as it is.
+    pub view: Option<RasterView>,
     /// Metres per unit of the image's CRS.
     pub metres_per_unit: f64,
     /// Ground size of a full-resolution pixel, metres.
@@ -46,11 +55,43 @@ pub struct RasterLandmarks {
     /// The image was read with every `decimation × decimation` block as one sample.
     pub decimation: usize,
     /// One a landmark, same order: the keypoint with its position as full-resolution
-    /// pixel/line in `pixel` (its `sample` and `sigma_px` are on the decimated grid).
+    /// pixel/line of the file in `pixel` (its `sample` and `sigma_px` are on the decimated
+    /// grid read).
     pub keypoints: Vec<Keypoint>,
 }
 
-/// Metres per unit of a raster's CRS (1 without one); an error for a geographic CRS.
+/// A warped view an image was read through ([`RasterSource::open_on`]).
+#[derive(Debug, Clone, PartialEq)]
+pub struct RasterView {
+    /// The definition of the grid's CRS (to open the same view again).
+    pub grid: String,
+    /// From the view's map positions back to the file's pixel/line.
+    pub map: PixelMap,
+}
+
+impl RasterLandmarks {
+    /// The file's own full-resolution pixel/line of a position in the landmarks' CRS: through
+    /// the view's [`PixelMap`], or the inverse of the geotransform. `None` only for a
+    /// geotransform without an inverse (refused on reading).
+    pub fn file_pixel(&self, map: [f64; 2]) -> Option<[f64; 2]> {
+        match &self.view {
+            Some(v) => Some(v.map.original_pixel(map)),
+            None => self
+                .geotransform
+                .inverse()
+                .map(|g| g.pixel_to_map(map[0], map[1])),
+        }
+    }
+
+    /// Whether the file's own pixels are on [`geotransform`](Self::geotransform) (no warped
+    /// view): then a geotransform written for the file applies to the file as it is.
+    pub fn read_as_is(&self) -> bool {
+        self.view.is_none()
+    }
+}
+
+/// Metres per unit of a raster's CRS as read (1 without one). Never geographic: such an image
+/// is read through a warped view on a projected grid.
 pub(super) fn metres_per_unit(source: &RasterSource) -> Result<f64, IngestError> {
     let Some(wkt) = &source.info().crs_wkt else {
         return Ok(1.0);
@@ -59,11 +100,7 @@ pub(super) fn metres_per_unit(source: &RasterSource) -> Result<f64, IngestError>
         path: source.path().to_path_buf(),
         source: e,
     })?;
-    if srs.is_geographic() {
-        return Err(IngestError::Raster(RasterError::Geographic {
-            path: source.path().to_path_buf(),
-        }));
-    }
+    debug_assert!(!srs.is_geographic(), "a geographic image is read warped");
     Ok(srs.linear_units())
 }
 
@@ -107,17 +144,24 @@ pub(super) fn read_keypoints(
         .geotransform
         .inverse()
         .ok_or_else(|| IngestError::Raster(RasterError::NotGeoreferenced { path: path.clone() }))?;
+    let map = source.pixel_map();
     let keypoints: Vec<Keypoint> = found
         .keypoints
         .into_iter()
         .map(|mut kp| {
-            kp.pixel = to_pixel.pixel_to_map(kp.map[0], kp.map[1]);
+            kp.pixel = match map {
+                Some(m) => m.original_pixel(kp.map),
+                None => to_pixel.pixel_to_map(kp.map[0], kp.map[1]),
+            };
             kp
         })
         .collect();
     let set = LandmarkSet {
         source: path.clone(),
-        layer: format!("keypoints of {}", source.band()),
+        layer: match source.georeferencing_note() {
+            None => format!("keypoints of {}", source.band()),
+            Some(note) => format!("keypoints of {}, {note}", source.band()),
+        },
         ids: (1..=keypoints.len()).map(|i| format!("k{i}")).collect(),
         points: keypoints.iter().map(|kp| kp.map).collect(),
         crs_wkt: info.crs_wkt.clone(),
@@ -127,6 +171,10 @@ pub(super) fn read_keypoints(
             width: info.width,
             height: info.height,
             geotransform: info.geotransform,
+            view: source.grid().zip(map).map(|(grid, map)| RasterView {
+                grid: grid.to_string(),
+                map: map.clone(),
+            }),
             metres_per_unit: mpu,
             pixel_m,
             feature_size_m,

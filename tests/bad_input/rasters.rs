@@ -53,60 +53,6 @@ fn dots() -> Vec<u8> {
 const UTM_GT: [f64; 6] = [455_000.0, 2.0, 0.0, 5_211_000.0, 0.0, -2.0];
 
 #[test]
-fn raster_on_a_geographic_grid() {
-    let site = Site::new();
-    drop(write_tif(
-        &site,
-        "degrees.tif",
-        dots(),
-        Some([15.0, 0.0001, 0.0, 47.0, 0.0, -0.0001]),
-        Some(4326),
-    ));
-    site.refuses_match(
-        Some("degrees.tif"),
-        None,
-        &[],
-        &[
-            "degrees.tif",
-            "geographic grid",
-            "warp it to a projected CRS",
-        ],
-    );
-}
-
-#[test]
-fn raster_georeferenced_by_gcps_only() {
-    let site = Site::new();
-    let ds = write_tif(&site, "gcps.tif", dots(), None, None);
-    let gcps = [(0.0, 0.0), (64.0, 0.0), (0.0, 48.0)]
-        .iter()
-        .enumerate()
-        .map(|(i, &(p, l))| gdal::Gcp {
-            id: format!("{i}"),
-            info: String::new(),
-            pixel: p,
-            line: l,
-            x: 455_000.0 + 2.0 * p,
-            y: 5_211_000.0 - 2.0 * l,
-            z: 0.0,
-        })
-        .collect();
-    ds.set_gcps(gcps, &SpatialRef::from_epsg(32633).unwrap())
-        .unwrap();
-    drop(ds);
-    site.refuses_match(
-        Some("gcps.tif"),
-        None,
-        &[],
-        &[
-            "gcps.tif",
-            "ground control points only",
-            "warp it onto a map grid",
-        ],
-    );
-}
-
-#[test]
 fn raster_band_that_does_not_exist() {
     let site = Site::new();
     drop(write_tif(
