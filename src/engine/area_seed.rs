@@ -7,7 +7,10 @@
 //! scale error), the fit and refinement options. **Out:** an [`AreaMatch`]: what the seed
 //! search did ([`AreaSeed`], for the report and `transform.json`) and either a [`Solution`]
 //! on new landmark sets — the grid points of the reference and where the correlation puts
-//! them in the target — or a [`Rejection`] saying why none was accepted.
+//! them in the target, each with its keypoint record in [`RasterLandmarks::keypoints`] (the
+//! file's pixel/line, σ = half the refinement patch, the correlation as the response) and a
+//! layer name saying how many detected keypoints they replace — or a [`Rejection`] saying why
+//! none was accepted.
 //!
 //! **When it runs** ([`crate::outcome::AREA_SEED_RULE`]): both surveys are rasters on the
 //! working CRS and the keypoint match was rejected. When the keypoints match, the seed is not
@@ -58,7 +61,8 @@ use crate::fit::significance::Significance;
 use crate::fit::similarity::{fit_similarity, similarity_from_two, Similarity};
 use crate::fit::{RejectReason, Rejection, Solution};
 use crate::image::Image;
-use crate::ingest::{IngestError, LandmarkSet};
+use crate::ingest::{IngestError, LandmarkSet, RasterLandmarks};
+use crate::keypoints::Keypoint;
 use crate::outcome::{AreaSeed, SeedTried};
 use crate::refine::{self, Measure, NotRefined, RefineParams};
 use rand::{Rng, SeedableRng};
@@ -551,6 +555,8 @@ struct SeedFit {
     transform: Similarity,
     /// (reference, target) positions of every refined point.
     refined: Vec<([f64; 2], [f64; 2])>,
+    /// The correlation at each refined point's peak, same order.
+    correlations: Vec<f64>,
     inliers: Vec<usize>,
     trials: usize,
     rounds: usize,
@@ -718,6 +724,10 @@ pub(super) fn area_match(
             .iter()
             .filter_map(|r| r.as_ref().ok().map(|x| (x.reference, x.target)))
             .collect();
+        let correlations: Vec<f64> = results
+            .iter()
+            .filter_map(|r| r.as_ref().ok().map(|x| x.correlation))
+            .collect();
         let from: Vec<[f64; 2]> = refined.iter().map(|p| p.1).collect();
         let to: Vec<[f64; 2]> = refined.iter().map(|p| p.0).collect();
         let (transform, inliers, rounds, consensus, refits) = fit_pairs(
@@ -742,6 +752,7 @@ pub(super) fn area_match(
             },
             transform,
             refined,
+            correlations,
             inliers,
             trials,
             rounds,
@@ -823,15 +834,25 @@ pub(super) fn area_match(
             });
         }
     }
-    // The grid points become the landmarks: every refined one, paired where an inlier.
+    // The grid points become the landmarks: every refined one, paired where an inlier, each
+    // with its keypoint record (pixel/line of the file, the patch, the correlation), so that
+    // the landmark list and its pixel positions stay one a landmark.
+    let patch_m = params.patch_px as f64 * fine_px * metres_per_unit;
     let set = |base: &LandmarkSet, points: Vec<[f64; 2]>| {
         let mut raster = base.raster.clone();
         if let Some(r) = raster.as_mut() {
-            r.keypoints = Vec::new();
+            r.keypoints = grid_keypoints(r, &points, &chosen.correlations, patch_m);
+            // Their `sample` and `sigma_px` are at full resolution.
+            r.decimation = 1;
         }
         LandmarkSet {
             source: base.source.clone(),
-            layer: "grid control points of the area-based seed".into(),
+            // Every report shows the layer: what the landmarks are, and what they replace.
+            layer: format!(
+                "grid control points of the area-based seed, in place of the {} {}",
+                base.points.len(),
+                base.layer
+            ),
             ids: (1..=points.len()).map(|i| format!("a{i}")).collect(),
             points,
             crs_wkt: base.crs_wkt.clone(),
@@ -875,6 +896,36 @@ pub(super) fn area_match(
         summary,
         fit: Some(Ok((solution, reference_set, target_set))),
     })
+}
+
+/// The keypoint records of grid control points at map positions `points` of an image read as
+/// `image` says: the file's full-resolution pixel/line, the position on the grid read (`sample`:
+/// full resolution, pixel/line − 0.5), σ as half the refinement patch's side (the ground the
+/// position stands for; the patch's side is `patch_m` metres) and the correlation at the peak
+/// as the response.
+fn grid_keypoints(
+    image: &RasterLandmarks,
+    points: &[[f64; 2]],
+    correlations: &[f64],
+    patch_m: f64,
+) -> Vec<Keypoint> {
+    let to_view = image.geotransform.inverse();
+    let half_px = 0.5 * patch_m / image.pixel_m;
+    points
+        .iter()
+        .zip(correlations)
+        .map(|(&map, &correlation)| {
+            let view = to_view.map_or([f64::NAN; 2], |g| g.pixel_to_map(map[0], map[1]));
+            Keypoint {
+                sample: [view[0] - 0.5, view[1] - 0.5],
+                pixel: image.file_pixel(map).unwrap_or([f64::NAN; 2]),
+                map,
+                sigma_px: half_px,
+                sigma_m: 0.5 * patch_m,
+                response: correlation,
+            }
+        })
+        .collect()
 }
 
 /// Reference map positions on an even grid over `region` (pixel/line bounds [p0, l0, p1, l1])
