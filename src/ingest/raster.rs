@@ -482,9 +482,10 @@ impl RasterSource {
             Err(e) => format!("validity unknown ({e})"),
         };
         let georeferencing = match &self.view {
-            None => self.georeferencing.words(),
+            None if self.georeferencing.source == georef::Source::Geotransform => String::new(),
+            None => format!("; {}", self.georeferencing.words()),
             Some(v) => format!(
-                "{}; {}read through a warped view (cubic) on {} ({}), {} × {} px (the file has {} × {}; its pixel/line is mapped back within {:.3} px)",
+                "; {}; {}read through a warped view (cubic) on {} ({}), {} × {} px (the file has {} × {}; its pixel/line is mapped back within {:.3} px)",
                 self.georeferencing.words(),
                 if self.georeferencing.geographic {
                     "its CRS is geographic, so it is "
@@ -501,7 +502,7 @@ impl RasterSource {
             ),
         };
         format!(
-            "{} ({}): {} × {} px, {} band{} of {}, pixel size {} map units, {}; {georeferencing}; read as {what}{why}; {validity}",
+            "{} ({}): {} × {} px, {} band{} of {}, pixel size {} map units, {}{georeferencing}; read as {what}{why}; {validity}",
             self.path.display(),
             i.driver,
             i.width,
