@@ -22,6 +22,7 @@ use std::process::{Command, Stdio};
 
 mod checkpoints;
 mod epochs;
+mod georef;
 mod ingest;
 mod messages;
 mod rasters;
