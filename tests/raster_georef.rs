@@ -20,6 +20,10 @@
 //! them (what `gdalwarp -order 1` does with the file) puts the file's corners within 0.3 px of
 //! the truth too. Had the GCPs carried pixel/line of the warped view instead, the corners would
 //! be off by many pixels (the view is another grid).
+//!
+//! Also: when the area-based seed matches (band 4 against band 3, where the keypoints do not
+//! recur), the report's target line says its grid control points replace the detected
+//! keypoints, and the corners are still within 0.3 px.
 
 use gdal::raster::Buffer;
 use gdal::spatial_ref::SpatialRef;
@@ -402,4 +406,35 @@ fn a_target_with_bent_gcps_is_read_through_their_polynomial_and_its_gcps_name_th
     // correlation finds the reference's content in the view, taken back to the file: the
     // content's own pixel of the file, whatever the bend. So the corner bar applies.)
     assert!(gcp_worst <= CORNER_PX, "GCP fit off by {gcp_worst:.3} px");
+}
+
+#[test]
+fn grid_control_points_of_the_area_based_seed_say_what_they_replace() {
+    // Band 4 (near infrared) with the error against band 3 (red): the keypoints do not recur
+    // (tests/raster_match.rs), the area-based seed's grid points become the target's
+    // landmarks, and the report says how many detected keypoints they replace.
+    let dir = tempfile::tempdir().unwrap();
+    let (gt, wkt) = write_reference(dir.path());
+    let (nir, _, _) = band(4);
+    drop(write(
+        "GTiff",
+        &dir.path().join("nir-moved.tif"),
+        &nir,
+        Some(moved(&gt)),
+        Some(&wkt),
+    ));
+    let (text, t) = run_match(dir.path(), "nir-moved.tif", &[]);
+    // On this scene the keypoint match finds no transform (seen with the default options,
+    // which are seeded), so the seed runs.
+    assert!(t["area_seed"]["ran"].as_bool().unwrap(), "{text}");
+    let line = text
+        .lines()
+        .find(|l| l.starts_with("target "))
+        .unwrap_or_else(|| panic!("{text}"));
+    assert!(
+        line.contains("grid control points of the area-based seed, in place of the ")
+            && line.contains(" keypoints of band 1"),
+        "{line}"
+    );
+    assert!(corner_error(&t, &gt) <= CORNER_PX, "{text}");
 }
