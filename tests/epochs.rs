@@ -7,7 +7,6 @@
 //! sample library's files (report.html's numbers against epochs.json).
 
 #[path = "common/landsat.rs"]
-#[allow(dead_code)]
 mod landsat;
 
 use rand::{Rng, SeedableRng};

@@ -4,6 +4,9 @@
 //! tests/data/README.md; `bash .ci/setup` fetches it into `target/reference-data/`), and a
 //! runner of the binary.
 
+// Each test file that includes this module uses a part of it.
+#![allow(dead_code)]
+
 use std::path::{Path, PathBuf};
 use std::process::Command;
 
