@@ -5,8 +5,9 @@
 //! Run: `cargo bench --bench end_to_end` (1,000,000 landmarks per survey), or
 //! `cargo bench --bench end_to_end -- 200000` for another size; `-- --scaling` times
 //! 10^4, 10^5 and 10^6 landmarks per survey and fits the exponent of time against n;
-//! `-- --scaling 10000000` goes on to 10^7; `-- --outputs [N]` matches in this process and
-//! times each output's writer alone (the CSV, the GeoPackage, the JSON).
+//! `-- --scaling 10000000` goes on to 10^7; `-- --outputs [N]` matches in this process with
+//! each stage timed (and the memory after it), then times each output's writer alone and all
+//! outputs together as the binary writes them.
 //!
 //! Surveys (the case of issue 11): a jittered grid of 20 m spacing (one landmark a cell, as
 //! buildings keep apart) in EPSG:32633 around 500,000 E, 5,300,000 N; each survey misses 25 %
@@ -269,15 +270,57 @@ fn print_run(r: &Run) {
     );
 }
 
-/// Matches the pair of size `n` in this process, then times each writer alone.
+/// Prints each stage's wall time as it ends, and the resident memory then (`/proc/self/status`).
+struct Timed {
+    current: std::cell::RefCell<Option<(String, Instant)>>,
+}
+
+impl tiemark::progress::Progress for Timed {
+    fn begin(&self, stage: &str, _total: Option<u64>) {
+        *self.current.borrow_mut() = Some((stage.to_string(), Instant::now()));
+    }
+    fn advance(&self, _done: u64) {}
+    fn message(&self, _message: &str) {}
+    fn end(&self) {
+        if let Some((stage, t)) = self.current.borrow_mut().take() {
+            println!(
+                "  {stage}: {:.2} s (resident now {} MB, peak so far {} MB)",
+                t.elapsed().as_secs_f64(),
+                status_mb("VmRSS"),
+                status_mb("VmHWM")
+            );
+        }
+    }
+}
+
+/// A memory figure of this process from `/proc/self/status`, in MB.
+fn status_mb(key: &str) -> u64 {
+    std::fs::read_to_string("/proc/self/status")
+        .ok()
+        .and_then(|s| {
+            s.lines()
+                .find(|l| l.starts_with(key))
+                .and_then(|l| l.split_whitespace().nth(1))
+                .and_then(|kb| kb.parse::<u64>().ok())
+        })
+        .map_or(0, |kb| kb / 1000)
+}
+
+/// Matches the pair of size `n` in this process with each stage timed, then times each
+/// writer alone and all outputs together as the binary writes them.
 fn outputs(n: usize) {
     use tiemark::emit::{csv, gpkg, json};
     let (inputs, _) = surveys(n);
     let mut config = tiemark::config::MatchConfig::new(inputs[0].clone(), inputs[1].clone());
     config.reference.id = Some("id".to_string());
     config.target.id = Some("id".to_string());
-    let outcome = tiemark::engine::match_surveys(&config, &tiemark::progress::Silent)
-        .expect("the surveys match");
+    let timed = Timed {
+        current: Default::default(),
+    };
+    println!("stages of the match:");
+    let t = Instant::now();
+    let outcome = tiemark::engine::match_surveys(&config, &timed).expect("the surveys match");
+    println!("  the match in all: {:.2} s", t.elapsed().as_secs_f64());
     let s = outcome.solution().expect("a transform is accepted");
     let dir = bench_dir().join(format!("outputs-{n}"));
     let _ = std::fs::remove_dir_all(&dir);
@@ -297,6 +340,15 @@ fn outputs(n: usize) {
     time("transform.json", &|p| {
         json::write_transform(&outcome, s, p).expect("JSON written")
     });
+    time("report.html", &|p| {
+        tiemark::emit::html::write_report(&outcome, s, p).expect("report.html written")
+    });
+    println!("every output, as the binary writes them:");
+    let all = dir.join("all");
+    let out = tiemark::emit::check_output_dir(&all, false, &tiemark::emit::FILES, &[])
+        .expect("the output folder can be written");
+    let summary = tiemark::report::summary(&outcome);
+    tiemark::emit::write_all(&outcome, &out, &summary, None, &timed).expect("outputs written");
 }
 
 fn main() {
