@@ -1,29 +1,33 @@
-//! `control-points.gpkg` and landmark files through GDAL's vector drivers.
+//! `control-points.gpkg` and landmark files: GeoPackages through GDAL and SQLite, GeoJSON and FlatGeobuf through GDAL.
 //!
 //! **In:** an accepted match (or a landmark set), a path in the staging folder, and a callback
 //! told how many features are written so far. **Out:** the GeoPackage (or GeoJSON, FlatGeobuf)
 //! file, every layer with its spatial index.
 //!
-//! Each GeoPackage layer is written inside one transaction (orders of magnitude faster than one
-//! per feature); drivers without transactions (GeoJSON, FlatGeobuf) write directly. The dataset
-//! is closed explicitly so that an error while finishing (flush) is reported.
+//! A GeoPackage is made in two steps. GDAL makes the file and its layers, empty: the tables,
+//! the CRS entries, and each layer's empty spatial index through GDAL's own SQL function
+//! `CreateSpatialIndex(table, column)` (the R*Tree virtual table `rtree_<layer>_geom`, the
+//! triggers that keep it up to date and the `gpkg_extensions` row of GeoPackage's "RTree
+//! Spatial Indexes" extension, exactly as GDAL makes them), and closes it. Then the features go
+//! in through SQLite directly (rusqlite, the system's libsqlite3), in one transaction: the
+//! layer's triggers are set aside, every row goes in through one prepared statement with its
+//! values bound (the geometry blobs made on the cores at once, in the GeoPackage encoding GDAL
+//! writes), the spatial index is packed from the features' bounding boxes and stored, the
+//! layer's extent and feature count are set as GDAL would set them, and the triggers are put
+//! back. Feature-by-feature through GDAL (a `Feature`, an OGR geometry, GDAL's own encoding
+//! and statement work per row) was most of the cost of `control-points.gpkg`; see README,
+//! "Writing the outputs". GeoJSON and FlatGeobuf landmark files go through GDAL as they are.
 //!
 //! # The spatial index, packed at the end
 //!
-//! GDAL maintains a GeoPackage layer's R-tree (the SQLite R*Tree module's virtual table
-//! `rtree_<layer>_geom`, GeoPackage's "RTree Spatial Indexes" extension) one feature at a time:
-//! for 662,715 points that is most of the cost of writing (GEOSTACK.md: 7.9 s with it, 1.6 s
-//! without). Here every layer is created without it (layer creation option
-//! `SPATIAL_INDEX=NO`), its empty index is then made by GDAL's own SQL function
-//! `CreateSpatialIndex(table, column)` (the virtual table, the triggers that keep it up to date
-//! and the `gpkg_extensions` row, exactly as GDAL makes them), the index's triggers are set
-//! aside while the features go in, the tree is packed in one pass from the features' bounding
-//! boxes (`PackedTree`: sort-tile-recursive, full nodes) and stored straight into the R*Tree
-//! module's shadow tables (`_node`, `_parent`, `_rowid`, whose layout is SQLite's, see
-//! `PackedTree`), and the triggers are put back as GDAL made them. The result is the index
-//! the trigger-by-trigger way would have built, in another shape (SQLite's `rtreecheck()`
-//! passes on it, GDAL reports `HasSpatialIndex` and uses it for spatial filters), and later
-//! edits maintain it as usual.
+//! GDAL maintains a GeoPackage layer's R-tree one feature at a time: for 662,715 points that
+//! is most of the cost of writing (GEOSTACK.md: 7.9 s with it, 1.6 s without). Here the tree
+//! is packed in one pass from the features' bounding boxes (`PackedTree`: sort-tile-recursive,
+//! full nodes) and stored straight into the R*Tree module's shadow tables (`_node`, `_parent`,
+//! `_rowid`, whose layout is SQLite's, see `PackedTree`). The result is the index the
+//! trigger-by-trigger way would have built, in another shape (SQLite's `rtreecheck()` passes
+//! on it, GDAL reports `HasSpatialIndex` and uses it for spatial filters), and later edits
+//! maintain it as usual.
 
 use super::EmitError;
 use crate::fit::Solution;
@@ -115,13 +119,6 @@ pub(super) fn point(p: [f64; 2]) -> gdal::errors::Result<Geometry> {
     Ok(g)
 }
 
-fn line(a: [f64; 2], b: [f64; 2]) -> gdal::errors::Result<Geometry> {
-    let mut g = Geometry::empty(OGRwkbGeometryType::wkbLineString)?;
-    g.add_point_2d((a[0], a[1]));
-    g.add_point_2d((b[0], b[1]));
-    Ok(g)
-}
-
 /// The bounding box `[min_x, max_x, min_y, max_y]` of some points (the R*Tree's column order).
 fn bbox(points: &[[f64; 2]]) -> [f64; 4] {
     points.iter().fold(
@@ -146,20 +143,7 @@ fn bbox(points: &[[f64; 2]]) -> [f64; 4] {
 /// `GEOMETRY_NAME`, whose default this is, GDAL's GPKG driver documentation).
 const GEOMETRY_COLUMN: &str = "geom";
 
-/// Runs one SQL statement that returns no rows (GDAL's GeoPackage driver hands it to SQLite).
-fn sql(ds: &Dataset, statement: &str, path: &Path) -> Result<(), EmitError> {
-    crate::ingest::clear_gdal_error();
-    let rows = ds
-        .execute_sql(statement, None, gdal::vector::sql::Dialect::DEFAULT)
-        .map_err(gdal_err(path))?;
-    drop(rows);
-    match crate::ingest::take_gdal_failure() {
-        Some(e) => Err(gdal_err(path)(e)),
-        None => Ok(()),
-    }
-}
-
-/// The rows of one SQL query, each as its fields' text (NULL as "").
+/// The rows of one SQL query through GDAL, each as its fields' text (NULL as "").
 fn query(ds: &Dataset, statement: &str, path: &Path) -> Result<Vec<Vec<String>>, EmitError> {
     crate::ingest::clear_gdal_error();
     let mut rows = Vec::new();
@@ -186,176 +170,421 @@ fn query(ds: &Dataset, statement: &str, path: &Path) -> Result<Vec<Vec<String>>,
     }
 }
 
-/// A GeoPackage layer being written whose spatial index is packed at the end (module doc).
-struct IndexedLayer {
-    name: String,
-    /// The index's triggers as GDAL created them (`CREATE TRIGGER …`), set aside meanwhile.
-    triggers: Vec<String>,
-    /// The R*Tree's node size in bytes (SQLite's choice for this file's page size).
-    node_bytes: usize,
-    /// Feature id and bounding box of every feature written.
-    boxes: Vec<(i64, [f64; 4])>,
+/// An SQLite failure while filling `path`; a full disk becomes [`EmitError::DiskFull`].
+fn sqlite_err(path: &Path) -> impl Fn(rusqlite::Error) -> EmitError + '_ {
+    move |source| {
+        let detail = source.to_string();
+        let full = matches!(
+            source.sqlite_error_code(),
+            Some(rusqlite::ErrorCode::DiskFull)
+        );
+        if full || super::atomic::disk_full_text(&detail) {
+            EmitError::DiskFull {
+                path: path.to_path_buf(),
+                detail,
+            }
+        } else {
+            EmitError::Io {
+                path: path.to_path_buf(),
+                source: std::io::Error::other(format!(
+                    "writing the GeoPackage failed in SQLite: {detail}"
+                )),
+            }
+        }
+    }
+}
+
+/// One layer of a GeoPackage to make: its name, geometry type, CRS and fields (after the
+/// feature id and the geometry).
+struct LayerSpec<'a> {
+    name: &'a str,
+    ty: OGRwkbGeometryType::Type,
+    srs: &'a SpatialRef,
+    fields: &'a [(&'a str, OGRFieldType::Type)],
+}
+
+/// Makes the GeoPackage at `path` through GDAL with the given layers, empty, each with its
+/// empty spatial index (GDAL's `CreateSpatialIndex`), and closes it.
+fn create_layers(path: &Path, specs: &[LayerSpec]) -> Result<(), EmitError> {
+    let e = gdal_err(path);
+    let (mut ds, fixed) = create_gpkg(path)?;
+    for spec in specs {
+        let layer = ds
+            .create_layer(LayerOptions {
+                name: spec.name,
+                srs: Some(spec.srs),
+                ty: spec.ty,
+                options: Some(&["SPATIAL_INDEX=NO"]),
+            })
+            .map_err(&e)?;
+        add_fields(&layer, spec.fields, path)?;
+        let name = spec.name;
+        let made = query(
+            &ds,
+            &format!("SELECT CreateSpatialIndex('{name}', '{GEOMETRY_COLUMN}')"),
+            path,
+        )?;
+        if made.first().and_then(|r| r.first()).map(String::as_str) != Some("1") {
+            return Err(e(gdal::errors::GdalError::BadArgument(format!(
+                "GDAL did not create the spatial index of layer {name}"
+            ))));
+        }
+    }
+    close_checked(ds, path)?;
+    drop(fixed);
+    Ok(())
+}
+
+/// Opens the GeoPackage GDAL made for filling, in one transaction.
+///
+/// The rollback journal is kept in memory and nothing is synced to the disk meanwhile
+/// (`journal_mode = MEMORY`, `synchronous = OFF`): the file is staged and only renamed into
+/// place once complete (module [`super::atomic`]), so a crash leaves no half file where a user
+/// looks, and the journal still undoes a failed statement. The file is then as durable as the
+/// other outputs, which are plain writes too.
+fn open_for_filling(path: &Path) -> Result<rusqlite::Connection, EmitError> {
+    let e = sqlite_err(path);
+    let conn = rusqlite::Connection::open_with_flags(
+        path,
+        rusqlite::OpenFlags::SQLITE_OPEN_READ_WRITE | rusqlite::OpenFlags::SQLITE_OPEN_NO_MUTEX,
+    )
+    .map_err(&e)?;
+    conn.pragma_update(None, "journal_mode", "MEMORY")
+        .map_err(&e)?;
+    conn.pragma_update(None, "synchronous", "OFF").map_err(&e)?;
+    conn.execute_batch("BEGIN").map_err(&e)?;
+    Ok(conn)
+}
+
+/// Commits and closes a connection of [`open_for_filling`].
+fn finish_filling(conn: rusqlite::Connection, path: &Path) -> Result<(), EmitError> {
+    let e = sqlite_err(path);
+    conn.execute_batch("COMMIT").map_err(&e)?;
+    conn.close().map_err(|(_, err)| e(err))
+}
+
+/// The geometry of one feature.
+#[derive(Clone, Copy, Debug)]
+enum Shape {
+    Point([f64; 2]),
+    Line([f64; 2], [f64; 2]),
+}
+
+impl Shape {
+    /// The bounding box `[min_x, max_x, min_y, max_y]`.
+    fn bbox(&self) -> [f64; 4] {
+        match self {
+            Shape::Point(p) => bbox(&[*p]),
+            Shape::Line(a, b) => bbox(&[*a, *b]),
+        }
+    }
+
+    /// Appends the geometry as a GeoPackage geometry blob (GeoPackageBinary: magic "GP",
+    /// version 0, flags, the SRS id, an envelope, then the geometry as WKB; OGC GeoPackage
+    /// Encoding Standard 12-128r18, clause 2.1.3, from memory; the tests read it back through
+    /// GDAL) as GDAL's GeoPackage driver writes it: little-endian, no envelope for a point
+    /// (flags 0x01), the 2-D envelope `[min_x, max_x, min_y, max_y]` for a line (flags 0x03).
+    fn push_blob(&self, srs_id: i32, out: &mut Vec<u8>) {
+        let flags = match self {
+            Shape::Point(_) => 0x01,
+            Shape::Line(..) => 0x03,
+        };
+        out.extend_from_slice(&[b'G', b'P', 0, flags]);
+        out.extend_from_slice(&srs_id.to_le_bytes());
+        let xy = |out: &mut Vec<u8>, p: &[f64; 2]| {
+            out.extend_from_slice(&p[0].to_le_bytes());
+            out.extend_from_slice(&p[1].to_le_bytes());
+        };
+        match self {
+            Shape::Point(p) => {
+                // WKB: byte order 1 (little-endian), type 1 (Point), x, y.
+                out.push(1);
+                out.extend_from_slice(&1u32.to_le_bytes());
+                xy(out, p);
+            }
+            Shape::Line(a, b) => {
+                for v in self.bbox() {
+                    out.extend_from_slice(&v.to_le_bytes());
+                }
+                // WKB: byte order, type 2 (LineString), two points.
+                out.push(1);
+                out.extend_from_slice(&2u32.to_le_bytes());
+                out.extend_from_slice(&2u32.to_le_bytes());
+                xy(out, a);
+                xy(out, b);
+            }
+        }
+    }
+}
+
+/// A field's value in one feature.
+#[derive(Clone, Copy, Debug)]
+enum Value<'a> {
+    Text(&'a str),
+    Real(f64),
+}
+
+impl rusqlite::ToSql for Value<'_> {
+    fn to_sql(&self) -> rusqlite::Result<rusqlite::types::ToSqlOutput<'_>> {
+        use rusqlite::types::{ToSqlOutput, ValueRef};
+        Ok(match self {
+            Value::Text(s) => ToSqlOutput::Borrowed(ValueRef::Text(s.as_bytes())),
+            Value::Real(v) => ToSqlOutput::Borrowed(ValueRef::Real(*v)),
+        })
+    }
+}
+
+/// Rows whose geometry blobs are made on the cores at once (in fixed pieces, so the blobs
+/// and their order never depend on the thread count) before they go into SQLite one by one.
+const BLOCK: usize = 65_536;
+/// Rows of one piece of a block.
+const PIECE: usize = 4_096;
+
+/// Fills layer `spec` (made empty by [`create_layers`]) with rows `0..n` in that order
+/// (feature ids 1..=n): `shape(i)` is row i's geometry, `values(i)` its fields in the order of
+/// `spec.fields`. The index's triggers (and GDAL's feature-count triggers) are set aside while
+/// the rows go in with one prepared statement, the packed spatial index is stored (module
+/// doc), the layer's extent and feature count are set in `gpkg_contents` and
+/// `gpkg_ogr_contents`, and the triggers are put back as GDAL made them. `done` is told how
+/// many rows are in (every few thousand).
+fn fill_layer<'v, const K: usize>(
+    conn: &rusqlite::Connection,
+    spec: &LayerSpec,
+    n: usize,
+    shape: &(dyn Fn(usize) -> Shape + Sync),
+    values: &dyn Fn(usize) -> [Value<'v>; K],
+    path: &Path,
+    done: &mut dyn FnMut(usize),
+) -> Result<(), EmitError> {
+    use rayon::prelude::*;
+    use rusqlite::OptionalExtension;
+    assert_eq!(spec.fields.len(), K, "one value per field");
+    let e = sqlite_err(path);
+    let name = spec.name;
+    let rtree = rtree_name(name);
+    let missing = |what: &str| EmitError::Io {
+        path: path.to_path_buf(),
+        source: std::io::Error::other(format!(
+            "the GeoPackage GDAL made has no {what} for layer {name}"
+        )),
+    };
+    let srs_id: i32 = conn
+        .query_row(
+            "SELECT srs_id FROM gpkg_geometry_columns WHERE table_name = ?1",
+            [name],
+            |r| r.get(0),
+        )
+        .optional()
+        .map_err(&e)?
+        .ok_or_else(|| missing("geometry column"))?;
+    let node_bytes = conn
+        .query_row(
+            &format!("SELECT length(data) FROM \"{rtree}_node\" WHERE nodeno = 1"),
+            [],
+            |r| r.get::<_, i64>(0),
+        )
+        .optional()
+        .map_err(&e)?
+        .and_then(|v| usize::try_from(v).ok())
+        .filter(|&v| v >= 4 + 2 * CELL_BYTES)
+        .ok_or_else(|| missing("spatial index root node"))?;
+    let triggers: Vec<(String, String)> = {
+        let mut st = conn
+            .prepare(
+                "SELECT name, sql FROM sqlite_master WHERE type = 'trigger' \
+                 AND tbl_name = ?1 ORDER BY name",
+            )
+            .map_err(&e)?;
+        let rows = st
+            .query_map([name], |r| Ok((r.get(0)?, r.get(1)?)))
+            .map_err(&e)?;
+        rows.collect::<Result<_, _>>().map_err(&e)?
+    };
+    if !triggers.iter().any(|(t, _)| t.starts_with(&rtree)) {
+        return Err(missing("spatial index trigger"));
+    }
+    for (t, _) in &triggers {
+        conn.execute_batch(&format!("DROP TRIGGER \"{t}\""))
+            .map_err(&e)?;
+    }
+
+    let columns: String = spec
+        .fields
+        .iter()
+        .map(|(f, _)| format!(", \"{f}\""))
+        .collect();
+    let width = K + 2;
+    let statement = |rows: usize| {
+        let mut text =
+            format!("INSERT INTO \"{name}\" (\"fid\", \"{GEOMETRY_COLUMN}\"{columns}) VALUES ");
+        push_marks(&mut text, rows, width);
+        text
+    };
+    let mut full = conn.prepare(&statement(ROWS_PER_STATEMENT)).map_err(&e)?;
+    let mut boxes: Vec<(i64, [f64; 4])> = Vec::with_capacity(n);
+    for start in (0..n).step_by(BLOCK) {
+        let end = (start + BLOCK).min(n);
+        let pieces: Vec<(Vec<u8>, Vec<usize>)> = (start..end)
+            .step_by(PIECE)
+            .collect::<Vec<_>>()
+            .into_par_iter()
+            .map(|from| {
+                let to = (from + PIECE).min(end);
+                let mut bytes = Vec::with_capacity((to - from) * 81);
+                let mut ends = Vec::with_capacity(to - from + 1);
+                ends.push(0);
+                for i in from..to {
+                    shape(i).push_blob(srs_id, &mut bytes);
+                    ends.push(bytes.len());
+                }
+                (bytes, ends)
+            })
+            .collect();
+        for (p, (bytes, ends)) in pieces.iter().enumerate() {
+            let first = start + p * PIECE;
+            let rows = ends.len() - 1;
+            for group in (0..rows).step_by(ROWS_PER_STATEMENT) {
+                let count = ROWS_PER_STATEMENT.min(rows - group);
+                let mut partial;
+                let st = if count == ROWS_PER_STATEMENT {
+                    &mut full
+                } else {
+                    partial = conn.prepare(&statement(count)).map_err(&e)?;
+                    &mut partial
+                };
+                for j in 0..count {
+                    let (k, i) = (group + j, first + group + j);
+                    let base = j * width;
+                    st.raw_bind_parameter(base + 1, i as i64 + 1).map_err(&e)?;
+                    st.raw_bind_parameter(base + 2, &bytes[ends[k]..ends[k + 1]])
+                        .map_err(&e)?;
+                    for (f, v) in values(i).iter().enumerate() {
+                        st.raw_bind_parameter(base + 3 + f, v).map_err(&e)?;
+                    }
+                }
+                st.raw_execute().map_err(&e)?;
+            }
+            for i in first..first + rows {
+                boxes.push((i as i64 + 1, shape(i).bbox()));
+                if (i + 1) % PROGRESS_EVERY == 0 {
+                    done(i + 1);
+                }
+            }
+        }
+    }
+    drop(full);
+
+    let tree = PackedTree::pack(&boxes, (node_bytes - 4) / CELL_BYTES);
+    {
+        let mut st = conn
+            .prepare(&format!(
+                "INSERT OR REPLACE INTO \"{rtree}_node\" (nodeno, data) VALUES (?1, ?2)"
+            ))
+            .map_err(&e)?;
+        for (i, (node, cells)) in tree.nodes.iter().enumerate() {
+            let blob = tree.node_blob(i, cells, node_bytes);
+            st.execute(rusqlite::params![node, blob]).map_err(&e)?;
+        }
+        insert_pairs(
+            conn,
+            &format!("\"{rtree}_parent\" (nodeno, parentnode)"),
+            &tree.parents,
+        )
+        .map_err(&e)?;
+        insert_pairs(
+            conn,
+            &format!("\"{rtree}_rowid\" (rowid, nodeno)"),
+            &tree.rowids,
+        )
+        .map_err(&e)?;
+    }
+    if n > 0 {
+        let b = boxes.iter().fold(
+            [
+                f64::INFINITY,
+                f64::NEG_INFINITY,
+                f64::INFINITY,
+                f64::NEG_INFINITY,
+            ],
+            |a, (_, c)| {
+                [
+                    a[0].min(c[0]),
+                    a[1].max(c[1]),
+                    a[2].min(c[2]),
+                    a[3].max(c[3]),
+                ]
+            },
+        );
+        conn.execute(
+            "UPDATE gpkg_contents SET min_x = ?1, min_y = ?2, max_x = ?3, max_y = ?4 \
+             WHERE table_name = ?5",
+            rusqlite::params![b[0], b[2], b[1], b[3], name],
+        )
+        .map_err(&e)?;
+    }
+    conn.execute(
+        "UPDATE gpkg_ogr_contents SET feature_count = ?1 WHERE lower(table_name) = lower(?2)",
+        rusqlite::params![n as i64, name],
+    )
+    .map_err(&e)?;
+    for (_, statement) in &triggers {
+        conn.execute_batch(statement).map_err(&e)?;
+    }
+    done(n);
+    Ok(())
+}
+
+/// Rows one multi-row `INSERT … VALUES (…), (…)` statement carries (its parameters stay well
+/// under SQLite's limit of 32,766): one statement, and one pass through SQLite's statement
+/// machinery, for many rows.
+const ROWS_PER_STATEMENT: usize = 64;
+
+/// Appends `rows` groups of `width` numbered parameters, `(?1, ?2), (?3, ?4), …`.
+fn push_marks(text: &mut String, rows: usize, width: usize) {
+    use std::fmt::Write;
+    for r in 0..rows {
+        text.push_str(if r == 0 { "(" } else { ", (" });
+        for c in 0..width {
+            let sep = if c == 0 { "" } else { ", " };
+            let _ = write!(text, "{sep}?{}", r * width + c + 1);
+        }
+        text.push(')');
+    }
+}
+
+/// Inserts integer pairs into `table_columns` (e.g. `"t" (a, b)`) with multi-row statements.
+fn insert_pairs(
+    conn: &rusqlite::Connection,
+    table_columns: &str,
+    rows: &[(i64, i64)],
+) -> rusqlite::Result<()> {
+    let statement = |count: usize| {
+        let mut text = format!("INSERT INTO {table_columns} VALUES ");
+        push_marks(&mut text, count, 2);
+        text
+    };
+    let per = 4 * ROWS_PER_STATEMENT;
+    let mut full = conn.prepare(&statement(per))?;
+    for group in rows.chunks(per) {
+        let mut partial;
+        let st = if group.len() == per {
+            &mut full
+        } else {
+            partial = conn.prepare(&statement(group.len()))?;
+            &mut partial
+        };
+        for (j, (a, b)) in group.iter().enumerate() {
+            st.raw_bind_parameter(2 * j + 1, a)?;
+            st.raw_bind_parameter(2 * j + 2, b)?;
+        }
+        st.raw_execute()?;
+    }
+    Ok(())
 }
 
 /// The R*Tree of layer `name`: the virtual table's name.
 fn rtree_name(name: &str) -> String {
     format!("rtree_{name}_{GEOMETRY_COLUMN}")
-}
-
-impl IndexedLayer {
-    /// Creates layer `name` without its index, then its empty index, and sets the index's
-    /// triggers aside.
-    fn create(
-        ds: &mut Dataset,
-        name: &str,
-        ty: OGRwkbGeometryType::Type,
-        srs: Option<&SpatialRef>,
-        fields: &[(&str, OGRFieldType::Type)],
-        path: &Path,
-    ) -> Result<IndexedLayer, EmitError> {
-        let e = gdal_err(path);
-        let layer = ds
-            .create_layer(LayerOptions {
-                name,
-                srs,
-                ty,
-                options: Some(&["SPATIAL_INDEX=NO"]),
-            })
-            .map_err(&e)?;
-        add_fields(&layer, fields, path)?;
-        let made = query(
-            ds,
-            &format!("SELECT CreateSpatialIndex('{name}', '{GEOMETRY_COLUMN}')"),
-            path,
-        )?;
-        if made.first().and_then(|r| r.first()).map(String::as_str) != Some("1") {
-            return Err(gdal_err(path)(gdal::errors::GdalError::BadArgument(
-                format!("GDAL did not create the spatial index of layer {name}"),
-            )));
-        }
-        let rtree = rtree_name(name);
-        let triggers = query(
-            ds,
-            &format!(
-                "SELECT name, sql FROM sqlite_master WHERE type = 'trigger' \
-                 AND tbl_name = '{name}' AND name LIKE '{rtree}%' ORDER BY name"
-            ),
-            path,
-        )?;
-        for t in &triggers {
-            sql(ds, &format!("DROP TRIGGER \"{}\"", t[0]), path)?;
-        }
-        let node_bytes = query(
-            ds,
-            &format!("SELECT length(data) FROM \"{rtree}_node\" WHERE nodeno = 1"),
-            path,
-        )?
-        .first()
-        .and_then(|r| r.first())
-        .and_then(|v| v.parse::<usize>().ok())
-        .filter(|&n| n >= 4 + 2 * CELL_BYTES)
-        .ok_or_else(|| {
-            gdal_err(path)(gdal::errors::GdalError::BadArgument(format!(
-                "the spatial index of layer {name} has no root node"
-            )))
-        })?;
-        Ok(IndexedLayer {
-            name: name.to_string(),
-            triggers: triggers.into_iter().map(|mut t| t.swap_remove(1)).collect(),
-            node_bytes,
-            boxes: Vec::new(),
-        })
-    }
-
-    /// Stores the packed index of every feature written and puts the triggers back.
-    fn finish(self, ds: &Dataset, path: &Path) -> Result<(), EmitError> {
-        let rtree = rtree_name(&self.name);
-        let tree = PackedTree::pack(&self.boxes, (self.node_bytes - 4) / CELL_BYTES);
-        let mut batch = Batch::new(ds, path);
-        for (i, (node, cells)) in tree.nodes.iter().enumerate() {
-            let blob = tree.node_blob(i, cells, self.node_bytes);
-            let mut hex = String::new();
-            push_hex(&mut hex, &blob);
-            batch.row(
-                &format!("INSERT OR REPLACE INTO \"{rtree}_node\" (nodeno, data) VALUES "),
-                &format!("({node}, X'{hex}')"),
-            )?;
-        }
-        batch.flush()?;
-        for (node, parent) in &tree.parents {
-            batch.row(
-                &format!("INSERT INTO \"{rtree}_parent\" (nodeno, parentnode) VALUES "),
-                &format!("({node}, {parent})"),
-            )?;
-        }
-        batch.flush()?;
-        for (id, node) in &tree.rowids {
-            batch.row(
-                &format!("INSERT INTO \"{rtree}_rowid\" (rowid, nodeno) VALUES "),
-                &format!("({id}, {node})"),
-            )?;
-        }
-        batch.flush()?;
-        for t in &self.triggers {
-            sql(ds, t, path)?;
-        }
-        Ok(())
-    }
-}
-
-/// Appends `bytes` to `out` as hex digits (an SQL blob literal's body).
-fn push_hex(out: &mut String, bytes: &[u8]) {
-    const DIGITS: &[u8; 16] = b"0123456789ABCDEF";
-    out.reserve(2 * bytes.len());
-    for b in bytes {
-        out.push(DIGITS[(b >> 4) as usize] as char);
-        out.push(DIGITS[(b & 15) as usize] as char);
-    }
-}
-
-/// Multi-row `INSERT … VALUES (…), (…)` statements of at most about a megabyte each.
-struct Batch<'a> {
-    ds: &'a Dataset,
-    path: &'a Path,
-    statement: String,
-    rows: usize,
-}
-
-impl<'a> Batch<'a> {
-    const BYTES: usize = 1 << 20;
-
-    fn new(ds: &'a Dataset, path: &'a Path) -> Batch<'a> {
-        Batch {
-            ds,
-            path,
-            statement: String::new(),
-            rows: 0,
-        }
-    }
-
-    /// Adds one row to the statement that begins with `head` (flushing when it is long).
-    fn row(&mut self, head: &str, row: &str) -> Result<(), EmitError> {
-        if self.rows == 0 {
-            self.statement.push_str(head);
-        } else {
-            self.statement.push_str(", ");
-        }
-        self.statement.push_str(row);
-        self.rows += 1;
-        if self.statement.len() >= Self::BYTES {
-            self.flush()?;
-        }
-        Ok(())
-    }
-
-    fn flush(&mut self) -> Result<(), EmitError> {
-        if self.rows > 0 {
-            sql(self.ds, &self.statement, self.path)?;
-        }
-        self.statement.clear();
-        self.rows = 0;
-        Ok(())
-    }
 }
 
 /// Bytes of one cell of a 2-D R*Tree node: the 64-bit id, then min x, max x, min y, max y as
@@ -541,63 +770,8 @@ fn str_groups(items: &mut [(i64, [f32; 4])], capacity: usize) -> Vec<Vec<(i64, [
     groups
 }
 
-/// Creates one layer of `control-points.gpkg` whose features are control points: fields
-/// `reference_id`, `target_id` and one real field `measure`, one geometry each; `done` is told
-/// how many features are written so far (every few thousand).
-fn write_pair_layer(
-    ds: &mut Dataset,
-    name: &str,
-    ty: OGRwkbGeometryType::Type,
-    measure: &str,
-    srs: &SpatialRef,
-    rows: impl Iterator<Item = gdal::errors::Result<(usize, usize, f64, Geometry, [f64; 4])>>,
-    result: &MatchOutcome,
-    path: &Path,
-    done: &mut dyn FnMut(usize),
-) -> Result<(), EmitError> {
-    let e = gdal_err(path);
-    let mut txn = ds.start_transaction().map_err(&e)?;
-    let fields = [
-        ("reference_id", OGRFieldType::OFTString),
-        ("target_id", OGRFieldType::OFTString),
-        (measure, OGRFieldType::OFTReal),
-    ];
-    let mut index = IndexedLayer::create(&mut txn, name, ty, Some(srs), &fields, path)?;
-    {
-        let layer = txn.layer_by_name(name).map_err(&e)?;
-        for (i, row) in rows.enumerate() {
-            let (r, t, value, geometry, b) = row.map_err(&e)?;
-            let mut f = Feature::new(layer.defn()).map_err(&e)?;
-            f.set_field_string(0, &result.reference.ids[r])
-                .map_err(&e)?;
-            f.set_field_string(1, &result.target.ids[t]).map_err(&e)?;
-            f.set_field_double(2, value).map_err(&e)?;
-            f.set_geometry(geometry).map_err(&e)?;
-            f.create(&layer).map_err(&e)?;
-            index.boxes.push((feature_id(&f, path)?, b));
-            if i % PROGRESS_EVERY == PROGRESS_EVERY - 1 {
-                done(i + 1);
-            }
-        }
-    }
-    index.finish(&txn, path)?;
-    txn.commit().map_err(&e)?;
-    Ok(())
-}
-
 /// Features between two progress reports.
 const PROGRESS_EVERY: usize = 16_384;
-
-/// The id GDAL gave a feature it wrote.
-fn feature_id(f: &Feature, path: &Path) -> Result<i64, EmitError> {
-    f.fid()
-        .and_then(|id| i64::try_from(id).ok())
-        .ok_or_else(|| {
-            gdal_err(path)(gdal::errors::GdalError::BadArgument(
-                "GDAL gave a written feature no id".to_string(),
-            ))
-        })
-}
 
 /// The number of features `control-points.gpkg` holds for `solution` (for a progress bar).
 pub fn control_point_features(solution: &Solution) -> u64 {
@@ -613,6 +787,10 @@ pub fn write_control_points(
     done: &mut dyn FnMut(usize),
 ) -> Result<(), EmitError> {
     let srs = srs_from_wkt(&result.frame.reference_crs.wkt, path)?;
+    // The control points where the target has them, in the target's own CRS; a local grid
+    // is tagged with its engineering CRS (with the declared unit), not left without one
+    // (which a GeoPackage stores as "undefined geographic").
+    let target_srs = srs_from_wkt(&result.frame.target_wkt(), path)?;
     let t = s.fit.transform;
     let mpu = result.frame.metres_per_unit();
     // Where the target puts each control point, in the reference CRS.
@@ -632,93 +810,83 @@ pub fn write_control_points(
         .frame
         .to_reference_crs(&starts_working)
         .map_err(EmitError::Frame)?;
+    let pair_fields = |measure| {
+        [
+            ("reference_id", OGRFieldType::OFTString),
+            ("target_id", OGRFieldType::OFTString),
+            (measure, OGRFieldType::OFTReal),
+        ]
+    };
+    let (residual, length) = (pair_fields("residual_m"), pair_fields("length_m"));
+    let layers = [
+        LayerSpec {
+            name: "control_points",
+            ty: OGRwkbGeometryType::wkbPoint,
+            srs: &srs,
+            fields: &residual,
+        },
+        LayerSpec {
+            name: "displacements",
+            ty: OGRwkbGeometryType::wkbLineString,
+            srs: &srs,
+            fields: &length,
+        },
+        LayerSpec {
+            name: "target_points",
+            ty: OGRwkbGeometryType::wkbPoint,
+            srs: &target_srs,
+            fields: &residual,
+        },
+    ];
+    create_layers(path, &layers)?;
     let n = s.pairs.len();
-    let (mut ds, _fixed) = create_gpkg(path)?;
-    let reference_point = |p: &crate::fit::Pair| result.reference.points[p.reference as usize];
-    let points = s.pairs.iter().map(|p| {
-        let at = reference_point(p);
-        let g = point(at)?;
-        Ok((
-            p.reference as usize,
-            p.target as usize,
-            p.residual * mpu,
-            g,
-            bbox(&[at]),
-        ))
-    });
-    let ty = OGRwkbGeometryType::wkbPoint;
-    write_pair_layer(
-        &mut ds,
-        "control_points",
-        ty,
-        "residual_m",
-        &srs,
-        points,
-        result,
+    let pairs = &s.pairs;
+    let ids = |i: usize| {
+        let p = &pairs[i];
+        (
+            Value::Text(&result.reference.ids[p.reference as usize]),
+            Value::Text(&result.target.ids[p.target as usize]),
+        )
+    };
+    let residual_m = |i: usize| {
+        let (r, t) = ids(i);
+        [r, t, Value::Real(pairs[i].residual * mpu)]
+    };
+    let reference_point = |i: usize| result.reference.points[pairs[i].reference as usize];
+    let conn = open_for_filling(path)?;
+    fill_layer(
+        &conn,
+        &layers[0],
+        n,
+        &|i| Shape::Point(reference_point(i)),
+        &residual_m,
         path,
         &mut |k| done(k),
     )?;
-    done(n);
-    let lines = s
-        .pairs
-        .iter()
-        .zip(&starts)
-        .zip(&starts_working)
-        .map(|((p, start), start_w)| {
-            let end_w = result.frame.reference[p.reference as usize];
-            let len = crate::spatial::dist2(*start_w, end_w).sqrt() * mpu;
-            let end = reference_point(p);
-            let g = line(*start, end)?;
-            Ok((
-                p.reference as usize,
-                p.target as usize,
-                len,
-                g,
-                bbox(&[*start, end]),
-            ))
-        });
-    let ty = OGRwkbGeometryType::wkbLineString;
-    write_pair_layer(
-        &mut ds,
-        "displacements",
-        ty,
-        "length_m",
-        &srs,
-        lines,
-        result,
+    fill_layer(
+        &conn,
+        &layers[1],
+        n,
+        &|i| Shape::Line(starts[i], reference_point(i)),
+        &|i| {
+            let end_w = result.frame.reference[pairs[i].reference as usize];
+            let len = crate::spatial::dist2(starts_working[i], end_w).sqrt() * mpu;
+            let (r, t) = ids(i);
+            [r, t, Value::Real(len)]
+        },
         path,
         &mut |k| done(n + k),
     )?;
-    done(2 * n);
-    // The control points where the target has them, in the target's own CRS; a local grid
-    // is tagged with its engineering CRS (with the declared unit), not left without one
-    // (which a GeoPackage stores as "undefined geographic").
-    let target_srs = srs_from_wkt(&result.frame.target_wkt(), path)?;
-    let target_points = s.pairs.iter().map(|p| {
-        let at = result.target.points[p.target as usize];
-        let g = point(at)?;
-        Ok((
-            p.reference as usize,
-            p.target as usize,
-            p.residual * mpu,
-            g,
-            bbox(&[at]),
-        ))
-    });
-    write_pair_layer(
-        &mut ds,
-        "target_points",
-        OGRwkbGeometryType::wkbPoint,
-        "residual_m",
-        &target_srs,
-        target_points,
-        result,
+    fill_layer(
+        &conn,
+        &layers[2],
+        n,
+        &|i| Shape::Point(result.target.points[pairs[i].target as usize]),
+        &residual_m,
         path,
         &mut |k| done(2 * n + k),
     )?;
-    done(3 * n);
-    close_checked(ds, path)?;
-    Ok(())
+    finish_filling(conn, path)
 }
 
 /// Writes a landmark set as points (field `id`) in its own CRS.
@@ -732,31 +900,29 @@ pub fn write_landmarks(set: &LandmarkSet, path: &Path, ext: &str) -> Result<(), 
     // Landmarks with no CRS (a CSV of local coordinates) are tagged as an engineering CRS
     // of unknown unit; with none at all a GeoPackage would call them "undefined geographic".
     let srs = match &set.crs_wkt {
-        Some(w) => Some(srs_from_wkt(w, path)?),
-        None => Some(srs_from_wkt(
-            &crate::frame::grid::engineering_wkt(None),
-            path,
-        )?),
+        Some(w) => srs_from_wkt(w, path)?,
+        None => srs_from_wkt(&crate::frame::grid::engineering_wkt(None), path)?,
     };
+    let fields = [("id", OGRFieldType::OFTString)];
     if driver_name == "GPKG" {
-        let (mut ds, _fixed) = create_gpkg(path)?;
-        {
-            let mut txn = ds.start_transaction().map_err(&e)?;
-            let fields = [("id", OGRFieldType::OFTString)];
-            let ty = OGRwkbGeometryType::wkbPoint;
-            let mut index =
-                IndexedLayer::create(&mut txn, "landmarks", ty, srs.as_ref(), &fields, path)?;
-            {
-                let layer = txn.layer_by_name("landmarks").map_err(&e)?;
-                for (id, p) in set.ids.iter().zip(&set.points) {
-                    let f = landmark_feature(&layer, id, *p, path)?;
-                    index.boxes.push((feature_id(&f, path)?, bbox(&[*p])));
-                }
-            }
-            index.finish(&txn, path)?;
-            txn.commit().map_err(&e)?;
-        }
-        close_checked(ds, path)?;
+        let layer = LayerSpec {
+            name: "landmarks",
+            ty: OGRwkbGeometryType::wkbPoint,
+            srs: &srs,
+            fields: &fields,
+        };
+        create_layers(path, std::slice::from_ref(&layer))?;
+        let conn = open_for_filling(path)?;
+        fill_layer(
+            &conn,
+            &layer,
+            set.points.len(),
+            &|i| Shape::Point(set.points[i]),
+            &|i| [Value::Text(&set.ids[i])],
+            path,
+            &mut |_| {},
+        )?;
+        finish_filling(conn, path)?;
     } else {
         let driver = DriverManager::get_driver_by_name(driver_name).map_err(&e)?;
         let mut ds = driver.create_vector_only(path).map_err(&e)?;
@@ -764,12 +930,12 @@ pub fn write_landmarks(set: &LandmarkSet, path: &Path, ext: &str) -> Result<(), 
             let layer = ds
                 .create_layer(LayerOptions {
                     name: "landmarks",
-                    srs: srs.as_ref(),
+                    srs: Some(&srs),
                     ty: OGRwkbGeometryType::wkbPoint,
                     options: None,
                 })
                 .map_err(&e)?;
-            add_fields(&layer, &[("id", OGRFieldType::OFTString)], path)?;
+            add_fields(&layer, &fields, path)?;
             for (id, p) in set.ids.iter().zip(&set.points) {
                 landmark_feature(&layer, id, *p, path)?;
             }
@@ -779,19 +945,18 @@ pub fn write_landmarks(set: &LandmarkSet, path: &Path, ext: &str) -> Result<(), 
     Ok(())
 }
 
-/// Writes one landmark (field `id`, a point) into `layer`; the feature written.
-fn landmark_feature<'a, L: LayerAccess>(
-    layer: &'a L,
+/// Writes one landmark (field `id`, a point) into `layer` through GDAL.
+fn landmark_feature<L: LayerAccess>(
+    layer: &L,
     id: &str,
     p: [f64; 2],
     path: &Path,
-) -> Result<Feature<'a>, EmitError> {
+) -> Result<(), EmitError> {
     let e = gdal_err(path);
     let mut f = Feature::new(layer.defn()).map_err(&e)?;
     f.set_field_string(0, id).map_err(&e)?;
     f.set_geometry(point(p).map_err(&e)?).map_err(&e)?;
-    f.create(layer).map_err(&e)?;
-    Ok(f)
+    f.create(layer).map_err(&e)
 }
 
 #[cfg(test)]
@@ -1020,5 +1185,297 @@ mod tests {
             "ok"
         );
         let _ = ds.flush_cache();
+    }
+
+    /// Every feature of layer `name` in feature-id order: id, fields as text, geometry as WKB.
+    fn features_of(ds: &Dataset, name: &str) -> Vec<(u64, Vec<String>, Vec<u8>)> {
+        let mut layer = ds.layer_by_name(name).unwrap();
+        let k = layer.defn().fields().count();
+        let mut all: Vec<(u64, Vec<String>, Vec<u8>)> = layer
+            .features()
+            .map(|f| {
+                let fields = (0..k)
+                    .map(|i| f.field_as_string(i).unwrap().unwrap_or_default())
+                    .collect();
+                (
+                    f.fid().unwrap(),
+                    fields,
+                    f.geometry().unwrap().wkb().unwrap(),
+                )
+            })
+            .collect();
+        all.sort_by_key(|f| f.0);
+        all
+    }
+
+    /// What `ogrinfo` would say of a layer (feature count and extent from the file's own
+    /// metadata, not computed), and that its spatial index is there, whole, and used: a
+    /// spatial filter through it finds exactly the features whose boxes meet the filter's.
+    fn check_indexed_layer(ds: &Dataset, name: &str, shapes: &[Shape]) {
+        let boxes: Vec<[f64; 4]> = shapes.iter().map(Shape::bbox).collect();
+        let mut layer = ds.layer_by_name(name).unwrap();
+        assert_eq!(
+            layer.try_feature_count(),
+            Some(boxes.len() as u64),
+            "{name}"
+        );
+        let expected = boxes.iter().fold(
+            [
+                f64::INFINITY,
+                f64::NEG_INFINITY,
+                f64::INFINITY,
+                f64::NEG_INFINITY,
+            ],
+            |a, b| {
+                [
+                    a[0].min(b[0]),
+                    a[1].max(b[1]),
+                    a[2].min(b[2]),
+                    a[3].max(b[3]),
+                ]
+            },
+        );
+        let extent = layer
+            .try_get_extent()
+            .unwrap()
+            .expect("extent in gpkg_contents");
+        // GDAL reads the extent back to 15 significant digits (of its own files too).
+        let got = [extent.MinX, extent.MaxX, extent.MinY, extent.MaxY];
+        for (g, x) in got.iter().zip(expected) {
+            assert!(
+                (g - x).abs() <= 1e-14 * x.abs(),
+                "{name}: {got:?} {expected:?}"
+            );
+        }
+        let rtree = rtree_name(name);
+        let value = |q: &str| one_value(ds, q);
+        assert_eq!(
+            value(&format!("SELECT HasSpatialIndex('{name}', 'geom')")),
+            "1"
+        );
+        assert_eq!(value(&format!("SELECT rtreecheck('{rtree}')")), "ok");
+        assert_eq!(
+            value(&format!("SELECT count(*) FROM \"{rtree}\"")),
+            boxes.len().to_string()
+        );
+        assert_eq!(
+            value(&format!(
+                "SELECT extension_name FROM gpkg_extensions WHERE table_name = '{name}' \
+                 AND column_name = 'geom'"
+            )),
+            "gpkg_rtree_index"
+        );
+        // The index's triggers and GDAL's feature-count triggers are back.
+        let triggers: usize = value(&format!(
+            "SELECT count(*) FROM sqlite_master WHERE type = 'trigger' AND tbl_name = '{name}'"
+        ))
+        .parse()
+        .unwrap();
+        assert!(triggers >= 7, "{name}: {triggers} triggers");
+        // A quarter of the extent, around its centre.
+        let (cx, cy) = (
+            (expected[0] + expected[1]) / 2.0,
+            (expected[2] + expected[3]) / 2.0,
+        );
+        let (hx, hy) = (
+            (expected[1] - expected[0]) / 4.0,
+            (expected[3] - expected[2]) / 4.0,
+        );
+        let q = [cx - hx, cx + hx, cy - hy, cy + hy];
+        // The index: every box that meets the filter's, no other (a hair more through the
+        // 32-bit boxes, never fewer).
+        let meets = boxes
+            .iter()
+            .filter(|b| b[0] <= q[1] && b[1] >= q[0] && b[2] <= q[3] && b[3] >= q[2])
+            .count();
+        let hits: usize = value(&format!(
+            "SELECT count(*) FROM \"{rtree}\" WHERE minx <= {} AND maxx >= {} \
+             AND miny <= {} AND maxy >= {}",
+            q[1], q[0], q[3], q[2]
+        ))
+        .parse()
+        .unwrap();
+        assert!(hits >= meets && hits <= meets + 2, "{name}: {hits} {meets}");
+        // GDAL's filter: the features whose geometry meets the rectangle (geo's test).
+        use geo::Intersects;
+        let rect = geo::Rect::new((q[0], q[2]), (q[1], q[3]));
+        let inside = shapes
+            .iter()
+            .filter(|s| match s {
+                Shape::Point(p) => rect.intersects(&geo::Point::new(p[0], p[1])),
+                Shape::Line(a, b) => rect.intersects(&geo::Line::new((a[0], a[1]), (b[0], b[1]))),
+            })
+            .count();
+        layer.set_spatial_filter_rect(q[0], q[2], q[1], q[3]);
+        assert_eq!(layer.features().count(), inside, "{name}");
+        assert!(inside > 0, "{name}");
+    }
+
+    /// The match of the sample town (2019 footprints, 2026 re-survey in lon/lat).
+    fn town() -> MatchOutcome {
+        let root = Path::new(env!("CARGO_MANIFEST_DIR")).join("sample-data");
+        let mut config = crate::config::MatchConfig::new(
+            root.join("town-footprints-2019.gpkg"),
+            root.join("town-survey-2026.geojson"),
+        );
+        config.reference.layer = Some("buildings".to_string());
+        config.reference.id = Some("bldg_id".to_string());
+        config.target.id = Some("uid".to_string());
+        crate::engine::match_surveys(&config, &crate::progress::Silent).unwrap()
+    }
+
+    #[test]
+    fn control_points_read_back_through_gdal_as_the_match_with_spatial_indexes_and_crss() {
+        let outcome = town();
+        let s = outcome.solution().unwrap();
+        let n = s.pairs.len();
+        assert!(n > 100, "{n}");
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("control-points.gpkg");
+        let mut told = Vec::new();
+        write_control_points(&outcome, s, &path, &mut |k| told.push(k)).unwrap();
+        assert!(told.windows(2).all(|w| w[0] <= w[1]), "{told:?}");
+        assert_eq!(told.last(), Some(&(3 * n)));
+        let again = dir.path().join("again.gpkg");
+        write_control_points(&outcome, s, &again, &mut |_| {}).unwrap();
+        assert_eq!(
+            std::fs::read(&path).unwrap(),
+            std::fs::read(&again).unwrap()
+        );
+
+        let ds = Dataset::open(&path).unwrap();
+        let mpu = outcome.frame.metres_per_unit();
+        let ids = |p: &crate::fit::Pair| {
+            (
+                outcome.reference.ids[p.reference as usize].clone(),
+                outcome.target.ids[p.target as usize].clone(),
+            )
+        };
+        // control_points: at the reference position, in pairs order.
+        let got = features_of(&ds, "control_points");
+        assert_eq!(got.len(), n);
+        let mut boxes = Vec::new();
+        for (i, (p, (fid, fields, wkb))) in s.pairs.iter().zip(&got).enumerate() {
+            assert_eq!(*fid, i as u64 + 1);
+            let (r, t) = ids(p);
+            assert_eq!((&fields[0], &fields[1]), (&r, &t));
+            let residual: f64 = fields[2].parse().unwrap();
+            // GDAL's text of a real field, compared as a number.
+            assert!((residual - p.residual * mpu).abs() < 1e-9 * (1.0 + residual));
+            let at = outcome.reference.points[p.reference as usize];
+            let g = Geometry::from_wkb(wkb).unwrap();
+            assert_eq!(g.get_point(0), (at[0], at[1], 0.0));
+            boxes.push(Shape::Point(at));
+        }
+        check_indexed_layer(&ds, "control_points", &boxes);
+
+        // displacements: from where the target puts the landmark (here the lon/lat target
+        // converted to the working CRS, which is the reference's) to the reference position.
+        assert!(outcome.frame.target_crs.is_some());
+        let got = features_of(&ds, "displacements");
+        assert_eq!(got.len(), n);
+        let mut boxes = Vec::new();
+        for (p, (_, fields, wkb)) in s.pairs.iter().zip(&got) {
+            let (r, t) = ids(p);
+            assert_eq!((&fields[0], &fields[1]), (&r, &t));
+            let g = Geometry::from_wkb(wkb).unwrap();
+            assert_eq!(g.geometry_type(), OGRwkbGeometryType::wkbLineString);
+            let (a, b) = (g.get_point(0), g.get_point(1));
+            let start = outcome
+                .frame
+                .to_reference_crs(&[outcome.frame.target[p.target as usize]])
+                .unwrap()[0];
+            assert!((a.0 - start[0]).abs() < 1e-6 && (a.1 - start[1]).abs() < 1e-6);
+            let end = outcome.reference.points[p.reference as usize];
+            assert_eq!((b.0, b.1), (end[0], end[1]));
+            let length: f64 = fields[2].parse().unwrap();
+            assert!((length - (a.0 - b.0).hypot(a.1 - b.1) * mpu).abs() < 1e-6);
+            boxes.push(Shape::Line([a.0, a.1], [b.0, b.1]));
+        }
+        check_indexed_layer(&ds, "displacements", &boxes);
+
+        // target_points: where the target has them, in its own CRS (lon/lat).
+        let got = features_of(&ds, "target_points");
+        let mut boxes = Vec::new();
+        for (p, (_, fields, wkb)) in s.pairs.iter().zip(&got) {
+            assert_eq!(fields[1], ids(p).1);
+            let at = outcome.target.points[p.target as usize];
+            let g = Geometry::from_wkb(wkb).unwrap();
+            assert_eq!(g.get_point(0), (at[0], at[1], 0.0));
+            boxes.push(Shape::Point(at));
+        }
+        assert_eq!(got.len(), n);
+        check_indexed_layer(&ds, "target_points", &boxes);
+
+        // Each layer's CRS as the writer was given it.
+        let code = |name: &str| {
+            let srs = ds.layer_by_name(name).unwrap().spatial_ref().unwrap();
+            srs.auth_code().unwrap()
+        };
+        assert_eq!(code("control_points"), 32633);
+        assert_eq!(code("displacements"), 32633);
+        assert_eq!(code("target_points"), 4326);
+    }
+
+    #[test]
+    fn landmarks_read_back_exactly_as_gdals_own_feature_by_feature_writer_has_them() {
+        let input = boxes(3000, 5);
+        let set = LandmarkSet {
+            source: "seeded".into(),
+            layer: "landmarks".to_string(),
+            ids: input.iter().map(|(id, _)| format!("L,{id}")).collect(),
+            points: input.iter().map(|(_, b)| [b[0], b[2]]).collect(),
+            crs_wkt: Some(SpatialRef::from_epsg(25833).unwrap().to_wkt().unwrap()),
+            skipped: Default::default(),
+            raster: None,
+        };
+        let dir = tempfile::tempdir().unwrap();
+        let ours = dir.path().join("ours.gpkg");
+        write_landmarks(&set, &ours, "gpkg").unwrap();
+        // GDAL's way: one feature at a time, its R-tree maintained as they go in.
+        let theirs = dir.path().join("theirs.gpkg");
+        {
+            let srs = srs_from_wkt(set.crs_wkt.as_deref().unwrap(), &theirs).unwrap();
+            let (mut ds, _fixed) = create_gpkg(&theirs).unwrap();
+            let mut txn = ds.start_transaction().unwrap();
+            let layer = txn
+                .create_layer(LayerOptions {
+                    name: "landmarks",
+                    srs: Some(&srs),
+                    ty: OGRwkbGeometryType::wkbPoint,
+                    options: None,
+                })
+                .unwrap();
+            add_fields(&layer, &[("id", OGRFieldType::OFTString)], &theirs).unwrap();
+            for (id, p) in set.ids.iter().zip(&set.points) {
+                landmark_feature(&layer, id, *p, &theirs).unwrap();
+            }
+            txn.commit().unwrap();
+            close_checked(ds, &theirs).unwrap();
+        }
+        let (a, b) = (
+            Dataset::open(&ours).unwrap(),
+            Dataset::open(&theirs).unwrap(),
+        );
+        let got = features_of(&a, "landmarks");
+        assert_eq!(got, features_of(&b, "landmarks"));
+        assert_eq!(got.len(), set.points.len());
+        assert_eq!(got[7].1[0], set.ids[7]);
+        // The same metadata rows: contents (extent, CRS), geometry column, feature count.
+        for q in [
+            "SELECT table_name, data_type, identifier, min_x, min_y, max_x, max_y, srs_id \
+             FROM gpkg_contents",
+            "SELECT * FROM gpkg_geometry_columns",
+            "SELECT * FROM gpkg_ogr_contents",
+            "SELECT srs_id, organization, organization_coordsys_id FROM gpkg_spatial_ref_sys",
+            "SELECT * FROM gpkg_extensions",
+            "SELECT name FROM sqlite_master ORDER BY name",
+        ] {
+            let rows = |ds: &Dataset| query(ds, q, Path::new("t")).unwrap();
+            assert_eq!(rows(&a), rows(&b), "{q}");
+        }
+        let boxes: Vec<Shape> = set.points.iter().map(|p| Shape::Point(*p)).collect();
+        check_indexed_layer(&a, "landmarks", &boxes);
+        check_indexed_layer(&b, "landmarks", &boxes);
     }
 }
