@@ -375,7 +375,8 @@ pub struct Signatures {
     /// Dimensions of a key: per harmonic two in the disc, three on the sphere.
     pub key_dims: usize,
     /// Keys laid end to end, `key_dims` values each: per harmonic, r_j mapped into the unit
-    /// disc or onto the unit sphere.
+    /// disc or onto the unit sphere. Emptied, with `sensitivity`, once stage 4 is done with
+    /// them ([`crate::engine::Candidates::release_keys`]); the count is the polygons'.
     pub keys: Vec<f64>,
     /// Predicted standard deviation of each key per unit of relative vertex noise
     /// ([`fourier::key_sensitivity`]); empty unless asked for (see [`compute`]).
@@ -385,7 +386,10 @@ pub struct Signatures {
 impl Signatures {
     /// Number of signatures.
     pub fn len(&self) -> usize {
-        self.keys.len().checked_div(self.key_dims).unwrap_or(0)
+        self.polygons
+            .len()
+            .checked_div(self.vertices_per_polygon)
+            .unwrap_or(0)
     }
 
     /// Key of signature `i`.
@@ -395,7 +399,7 @@ impl Signatures {
 
     /// True when there are none.
     pub fn is_empty(&self) -> bool {
-        self.keys.is_empty()
+        self.polygons.is_empty()
     }
 
     /// Landmark (polygon vertex 0) of signature `i`.
