@@ -30,7 +30,7 @@ use gdal::spatial_ref::SpatialRef;
 use gdal::{Dataset, DriverManager, Gcp};
 #[path = "common/landsat.rs"]
 mod landsat;
-use landsat::{error, landsat, tiemark, ROTATION_DEG, SCALE, SHIFT};
+use landsat::{corner_error, landsat, tiemark, with_error, ROTATION_DEG, SCALE, SHIFT};
 use std::path::Path;
 use tiemark::frame::crs::{Converter, Crs};
 
@@ -75,23 +75,6 @@ fn truth_of(centre: [f64; 2], claimed: [f64; 2]) -> [f64; 2] {
         (claimed[1] - SHIFT[1] - centre[1]) / SCALE,
     );
     [centre[0] + c * x + s * y, centre[1] - s * x + c * y]
-}
-
-/// The geotransform the error makes of the true one (the error is a similarity, so the moved
-/// grid is affine).
-fn moved(gt: &[f64; 6]) -> [f64; 6] {
-    let c = centre(gt);
-    let o = error(c, [gt[0], gt[3]]);
-    let ex = error(c, [gt[0] + gt[1], gt[3]]);
-    let ey = error(c, [gt[0], gt[3] + gt[5]]);
-    [
-        o[0],
-        ex[0] - o[0],
-        ey[0] - o[0],
-        o[1],
-        ex[1] - o[1],
-        ey[1] - o[1],
-    ]
 }
 
 /// Writes `data` (349 × 352 bytes) as a one-band dataset of `driver` at `path`, with the
@@ -147,30 +130,6 @@ fn run_match(dir: &Path, target: &str, extra: &[&str]) -> (String, serde_json::V
         serde_json::from_str(&std::fs::read_to_string(dir.join("out/transform.json")).unwrap())
             .unwrap();
     (text, t)
-}
-
-/// The worst distance, pixels, between where transform.json puts the target's corners (their
-/// claimed positions, which the target's georeferencing gives) and where the truth puts them.
-fn corner_error(t: &serde_json::Value, gt: &[f64; 6]) -> f64 {
-    let f = |k: &str| t[k].as_f64().unwrap_or_else(|| panic!("{k} in {t}"));
-    let (s, th, tx, ty) = (
-        f("scale"),
-        f("rotation_deg").to_radians(),
-        f("translation_x"),
-        f("translation_y"),
-    );
-    let c = centre(gt);
-    let mut worst: f64 = 0.0;
-    for (p, l) in [(0.0, 0.0), (W, 0.0), (0.0, H), (W, H)] {
-        let truth = true_map(gt, p, l);
-        let claimed = error(c, truth);
-        let fitted = [
-            s * (th.cos() * claimed[0] - th.sin() * claimed[1]) + tx,
-            s * (th.sin() * claimed[0] + th.cos() * claimed[1]) + ty,
-        ];
-        worst = worst.max((fitted[0] - truth[0]).hypot(fitted[1] - truth[1]) / gt[1]);
-    }
-    worst
 }
 
 /// The least-squares affine through the GCPs of `vrt` (pixel/line → x, y), as six terms in
@@ -230,12 +189,18 @@ fn a_target_in_longitude_latitude_is_coregistered_and_its_gcps_name_the_file_pix
     // square pixels of 28.5 m of latitude (1° of latitude ≈ 111.32 km, from memory), which
     // covers the whole moved scene.
     let (green, _, _) = band(2);
-    let moved_src = write("MEM", Path::new(""), &green, Some(moved(&gt)), Some(&wkt));
+    let moved_src = write(
+        "MEM",
+        Path::new(""),
+        &green,
+        Some(with_error(gt, centre(&gt))),
+        Some(&wkt),
+    );
     let utm = Crs::parse(&wkt, "scene").unwrap();
     let lonlat = Crs::parse("EPSG:4326", "lon/lat").unwrap();
     let to_ll = Converter::new(&utm, &lonlat).unwrap();
     let to_utm = Converter::new(&lonlat, &utm).unwrap();
-    let m = moved(&gt);
+    let m = with_error(gt, centre(&gt));
     let corners: Vec<[f64; 2]> = [(0.0, 0.0), (W, 0.0), (0.0, H), (W, H)]
         .iter()
         .map(|&(p, l)| to_ll.convert(true_map(&m, p, l)).unwrap())
@@ -329,7 +294,7 @@ fn write_gcp_target(
 ) {
     let (green, _, _) = band(2);
     let ds = write("GTiff", &dir.join(name), &green, None, None);
-    let m = moved(gt);
+    let m = with_error(*gt, centre(gt));
     let mut gcps = Vec::new();
     for j in 0..5 {
         for i in 0..5 {
@@ -420,7 +385,7 @@ fn grid_control_points_of_the_area_based_seed_say_what_they_replace() {
         "GTiff",
         &dir.path().join("nir-moved.tif"),
         &nir,
-        Some(moved(&gt)),
+        Some(with_error(gt, centre(&gt))),
         Some(&wkt),
     ));
     let (text, t) = run_match(dir.path(), "nir-moved.tif", &[]);

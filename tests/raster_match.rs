@@ -14,7 +14,7 @@ use gdal::raster::Buffer;
 use gdal::{Dataset, DriverManager};
 #[path = "common/landsat.rs"]
 mod landsat;
-use landsat::{error, landsat, tiemark};
+use landsat::{landsat, tiemark};
 use std::path::Path;
 
 /// Writes band `band` of the scene (or its mirror image, left to right) as a one-band GeoTIFF,
@@ -119,32 +119,13 @@ fn two_bands_with_a_known_georeferencing_error_are_coregistered_within_a_third_o
     }
 }
 
-/// The worst distance, in pixels of the scene, between where transform.json in `out` and
-/// where the truth put the target image's corners.
+/// transform.json in `out`, and the worst corner error it makes (pixels; see
+/// [`landsat::corner_error`]).
 fn corner_error(out: &Path, gt: &[f64; 6]) -> (f64, serde_json::Value) {
     let t: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(out.join("transform.json")).unwrap())
             .unwrap();
-    let f = |k: &str| t[k].as_f64().unwrap_or_else(|| panic!("{k} in {t}"));
-    let (s, th, tx, ty) = (
-        f("scale"),
-        f("rotation_deg").to_radians(),
-        f("translation_x"),
-        f("translation_y"),
-    );
-    let (w, h) = (349.0, 352.0);
-    let centre = [gt[0] + gt[1] * w / 2.0, gt[3] + gt[5] * h / 2.0];
-    let mut worst: f64 = 0.0;
-    for (p, l) in [(0.0, 0.0), (w, 0.0), (0.0, h), (w, h)] {
-        let truth = [gt[0] + gt[1] * p, gt[3] + gt[5] * l];
-        let claimed = error(centre, truth);
-        let fitted = [
-            s * (th.cos() * claimed[0] - th.sin() * claimed[1]) + tx,
-            s * (th.sin() * claimed[0] + th.cos() * claimed[1]) + ty,
-        ];
-        worst = worst.max((fitted[0] - truth[0]).hypot(fitted[1] - truth[1]) / gt[1]);
-    }
-    (worst, t)
+    (landsat::corner_error(&t, gt), t)
 }
 
 #[test]

@@ -53,19 +53,7 @@ fn fitted(dir: &Path) -> impl Fn([f64; 2]) -> [f64; 2] {
     let t: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(dir.join("out/transform.json")).unwrap())
             .unwrap();
-    let f = |k: &str| t[k].as_f64().unwrap_or_else(|| panic!("{k} in {t}"));
-    let (s, th, tx, ty) = (
-        f("scale"),
-        f("rotation_deg").to_radians(),
-        f("translation_x"),
-        f("translation_y"),
-    );
-    move |p: [f64; 2]| {
-        [
-            s * (th.cos() * p[0] - th.sin() * p[1]) + tx,
-            s * (th.sin() * p[0] + th.cos() * p[1]) + ty,
-        ]
-    }
+    landsat::fitted(&t)
 }
 
 #[test]

@@ -56,6 +56,42 @@ pub fn with_error(gt: [f64; 6], centre: [f64; 2]) -> [f64; 6] {
     ]
 }
 
+/// The scene's size in pixels (width, height).
+pub const SIZE: (f64, f64) = (349.0, 352.0);
+
+/// The similarity of a transform.json `t` (target map → reference map).
+pub fn fitted(t: &serde_json::Value) -> impl Fn([f64; 2]) -> [f64; 2] {
+    let f = |k: &str| t[k].as_f64().unwrap_or_else(|| panic!("{k} in {t}"));
+    let (s, th, tx, ty) = (
+        f("scale"),
+        f("rotation_deg").to_radians(),
+        f("translation_x"),
+        f("translation_y"),
+    );
+    move |p: [f64; 2]| {
+        [
+            s * (th.cos() * p[0] - th.sin() * p[1]) + tx,
+            s * (th.sin() * p[0] + th.cos() * p[1]) + ty,
+        ]
+    }
+}
+
+/// The worst distance, in pixels of the scene (geotransform `gt`, north-up), between where
+/// transform.json `t` puts a target's four corners (their claimed positions, which the error
+/// about the scene's centre gives) and where the truth puts them.
+pub fn corner_error(t: &serde_json::Value, gt: &[f64; 6]) -> f64 {
+    let fit = fitted(t);
+    let (w, h) = SIZE;
+    let centre = [gt[0] + gt[1] * w / 2.0, gt[3] + gt[5] * h / 2.0];
+    let mut worst: f64 = 0.0;
+    for (p, l) in [(0.0, 0.0), (w, 0.0), (0.0, h), (w, h)] {
+        let truth = [gt[0] + gt[1] * p + gt[2] * l, gt[3] + gt[4] * p + gt[5] * l];
+        let got = fit(error(centre, truth));
+        worst = worst.max((got[0] - truth[0]).hypot(got[1] - truth[1]) / gt[1]);
+    }
+    worst
+}
+
 /// Runs the binary in `dir`: its exit code and stdout + stderr.
 pub fn tiemark(dir: &Path, args: &[&str]) -> (Option<i32>, String) {
     let out = Command::new(env!("CARGO_BIN_EXE_tiemark"))
