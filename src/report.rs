@@ -120,9 +120,9 @@ pub fn accepted(r: &MatchOutcome, s: &Solution) -> String {
     let _ = writeln!(o);
     let _ = writeln!(
         o,
-        "reference  {} (layer {}): {} landmarks, {}",
+        "reference  {} ({}): {} landmarks, {}",
         r.reference.source.display(),
-        r.reference.layer,
+        r.reference.what(),
         r.reference.points.len(),
         r.frame.reference_crs.label()
     );
@@ -137,9 +137,9 @@ pub fn accepted(r: &MatchOutcome, s: &Solution) -> String {
         });
     let _ = writeln!(
         o,
-        "target     {} (layer {}): {} landmarks, {}",
+        "target     {} ({}): {} landmarks, {}",
         r.target.source.display(),
-        r.target.layer,
+        r.target.what(),
         r.target.points.len(),
         tcrs
     );

@@ -654,12 +654,12 @@ pub fn page(outcome: &EpochsOutcome, doc: &serde_json::Value) -> Page {
             };
             Line::new()
                 .text(format!(
-                    "epoch {} {}{}: {} (layer {}): ",
+                    "epoch {} {}{}: {} ({}): ",
                     k + 1,
                     e.name,
                     if k == base { " (base)" } else { "" },
                     e.set.source.display(),
-                    e.set.layer
+                    e.set.what()
                 ))
                 .num(num(&format!("epochs.{k}.landmarks"), 0))
                 .text(format!(" landmarks, {crs}"))

@@ -672,9 +672,9 @@ pub fn match_page(outcome: &MatchOutcome, solution: &Solution) -> Page {
     let input = |role: &str, set: &crate::ingest::LandmarkSet, crs: String| {
         Line::new()
             .text(format!(
-                "{role}: {} (layer {}): ",
+                "{role}: {} ({}): ",
                 set.source.display(),
-                set.layer
+                set.what()
             ))
             .num(num(&format!("inputs.{}.landmarks", role), 0))
             .text(format!(" landmarks, {crs}"))

@@ -198,6 +198,19 @@ pub struct LandmarkSet {
     pub raster: Option<Box<RasterLandmarks>>,
 }
 
+impl LandmarkSet {
+    /// What was read, as the reports name it: `layer NAME` for a vector layer; for an image,
+    /// its landmarks' own description (`keypoints of band 1`, or the area-based seed's grid
+    /// points and what they replace), which is no layer.
+    pub fn what(&self) -> String {
+        if self.raster.is_some() {
+            self.layer.clone()
+        } else {
+            format!("layer {}", self.layer)
+        }
+    }
+}
+
 /// Reads the landmarks of one survey, with the detector's defaults for a raster. The dataset is
 /// opened read-only; what it holds is decided from what GDAL opens ([`SourceKind`]).
 pub fn read_landmarks(input: &SurveyInput) -> Result<LandmarkSet, IngestError> {

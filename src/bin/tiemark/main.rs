@@ -204,10 +204,10 @@ fn run_landmarks(a: cli::LandmarksArgs) -> ExitCode {
     match written {
         Ok(set) => {
             print(&format!(
-                "{} landmarks from {} (layer {}){} written to {}\n",
+                "{} landmarks from {} ({}){} written to {}\n",
                 set.points.len(),
                 set.source.display(),
-                set.layer,
+                set.what(),
                 match set.skipped.total() {
                     0 => String::new(),
                     n => format!("; {n} features skipped ({})", set.skipped),
