@@ -1,7 +1,7 @@
 //! Small spatial helpers shared by the stages: a k-d tree over points ([`PointIndex`]), a
 //! survey's points with their tree and Morton order ([`Survey`]), spatial ordering of queries,
-//! bounding boxes ([`Extent`]) and the median spacing. The k-d tree is checked against brute
-//! force in this file's tests.
+//! bounding boxes ([`Extent`]), the median spacing, and the UTM zone of a place
+//! ([`utm_zone_for`]). The k-d tree is checked against brute force in this file's tests.
 //!
 //! kiddo's `SquaredEuclidean` metric returns *squared* distances; every function here says
 //! whether it takes or gives squared values.
@@ -190,6 +190,14 @@ pub fn median_spacing(points: &[[f64; 2]], index: &PointIndex, sample: usize) ->
     let mid = d.len() / 2;
     let (_, m, _) = d.select_nth_unstable_by(mid, |a, b| a.total_cmp(b));
     Some(*m)
+}
+
+/// The WGS 84 / UTM zone containing a longitude and latitude, as "EPSG:326zz" (north) or
+/// "EPSG:327zz" (south). Here, below both the working frame (which picks a projected CRS with
+/// it) and ingest (which puts a geographic image on it).
+pub fn utm_zone_for(lon: f64, lat: f64) -> String {
+    let zone = (((lon + 180.0) / 6.0).floor() as i64).rem_euclid(60) + 1;
+    format!("EPSG:{}{:02}", if lat >= 0.0 { 326 } else { 327 }, zone)
 }
 
 #[cfg(test)]

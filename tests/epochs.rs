@@ -19,6 +19,8 @@ use tiemark::epochs::{self, EpochOptions, EpochsConfig, TrackStatus};
 use tiemark::fit::Similarity;
 use tiemark::frame::crs::{Converter, Crs};
 use tiemark::progress::Silent;
+#[path = "common/sample_epochs.rs"]
+mod sample_epochs;
 
 fn root() -> PathBuf {
     PathBuf::from(env!("CARGO_MANIFEST_DIR"))
@@ -488,22 +490,7 @@ fn the_sample_library_is_written_and_its_tracks_are_true() {
     // file like pipelines/control-point-library.toml writing into a temporary folder.
     let tmp = tempfile::tempdir().unwrap();
     let sample = root().join("sample-data");
-    let mut toml = String::new();
-    for (stem, crs) in [
-        ("epoch-2019", "EPSG:32633"),
-        ("epoch-2021", "EPSG:32633"),
-        ("epoch-2023", "EPSG:32633"),
-        ("epoch-2024-site-grid", "local:m"),
-        ("epoch-2026", "EPSG:32633"),
-    ] {
-        toml += &format!(
-            "[[epoch]]\npath = {:?}\nid = \"point\"\ncrs = \"{crs}\"\n\n",
-            sample.join(format!("{stem}.csv"))
-        );
-    }
-    toml += "[epochs]\nmin_epochs = 4\n\n[output]\ndir = \"library\"\n";
-    let pipeline = tmp.path().join("library.toml");
-    std::fs::write(&pipeline, toml).unwrap();
+    let pipeline = sample_epochs::library_pipeline(tmp.path(), 4);
     let out = std::process::Command::new(env!("CARGO_BIN_EXE_tiemark"))
         .args(["run", pipeline.to_str().unwrap(), "--quiet"])
         .output()
@@ -836,18 +823,8 @@ fn write_landsat_band(band: usize, path: &Path, e: &Similarity) -> [f64; 6] {
         .create_with_band_type::<u8, _>(path, w, h, 1)
         .unwrap();
     out.set_projection(&src.projection()).unwrap();
-    let o = e.apply([gt[0], gt[3]]);
-    let ex = e.apply([gt[0] + gt[1], gt[3] + gt[4]]);
-    let ey = e.apply([gt[0] + gt[2], gt[3] + gt[5]]);
-    out.set_geo_transform(&[
-        o[0],
-        ex[0] - o[0],
-        ey[0] - o[0],
-        o[1],
-        ex[1] - o[1],
-        ey[1] - o[1],
-    ])
-    .unwrap();
+    out.set_geo_transform(&landsat::moved_geotransform(gt, |p| e.apply(p)))
+        .unwrap();
     out.rasterband(1)
         .unwrap()
         .write((0, 0), (w, h), &mut data)

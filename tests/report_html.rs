@@ -18,6 +18,8 @@ use serde_json::Value;
 use std::path::{Path, PathBuf};
 use std::process::{Command, Stdio};
 use std::time::{Duration, Instant};
+#[path = "common/sample_epochs.rs"]
+mod sample_epochs;
 
 fn root() -> PathBuf {
     PathBuf::from(env!("CARGO_MANIFEST_DIR"))
@@ -446,24 +448,8 @@ fn the_report_of_the_sample_town_renders_and_carries_the_json_numbers() {
 #[test]
 fn the_report_of_the_sample_epochs_renders_and_carries_the_json_numbers() {
     let tmp = tempfile::tempdir().unwrap();
-    let sample = root().join("sample-data");
-    let mut toml = String::new();
-    for (stem, crs) in [
-        ("epoch-2019", "EPSG:32633"),
-        ("epoch-2021", "EPSG:32633"),
-        ("epoch-2023", "EPSG:32633"),
-        ("epoch-2024-site-grid", "local:m"),
-        ("epoch-2026", "EPSG:32633"),
-    ] {
-        toml += &format!(
-            "[[epoch]]\npath = {:?}\nid = \"point\"\ncrs = \"{crs}\"\n\n",
-            sample.join(format!("{stem}.csv"))
-        );
-    }
     // Down to two epochs, so that every grade has tracks to draw.
-    toml += "[epochs]\nmin_epochs = 2\n\n[output]\ndir = \"library\"\n";
-    let pipeline = tmp.path().join("library.toml");
-    std::fs::write(&pipeline, toml).unwrap();
+    let pipeline = sample_epochs::library_pipeline(tmp.path(), 2);
     let run = Command::new(env!("CARGO_BIN_EXE_tiemark"))
         .args(["run", pipeline.to_str().unwrap(), "--quiet"])
         .stdin(Stdio::null())

@@ -23,14 +23,12 @@
 //!   `area_id`, `reference_id`, `target_id`, `shift_east_m`, `shift_north_m`). Both layers exist
 //!   (empty) when no area was flagged.
 
-use super::gpkg::{add_fields, close_checked, create_gpkg, gdal_err, point, srs_from_wkt};
+use super::gpkg::{
+    close_checked, create_gpkg, gdal_err, point, srs_from_wkt, write_layer, FieldValue,
+};
 use super::{io_err, EmitError};
 use crate::drift::Drift;
-use gdal::spatial_ref::SpatialRef;
-use gdal::vector::{
-    Feature, Geometry, LayerAccess, LayerOptions, OGRFieldType, OGRwkbGeometryType,
-};
-use gdal::Dataset;
+use gdal::vector::{Geometry, OGRFieldType, OGRwkbGeometryType};
 use std::path::Path;
 
 /// `drift.json`.
@@ -72,48 +70,6 @@ fn ring(points: &[[f64; 2]]) -> gdal::errors::Result<Geometry> {
     Ok(g)
 }
 
-/// One field value.
-enum Value<'a> {
-    Int(i32),
-    Real(f64),
-    Text(&'a str),
-}
-
-fn add_layer(
-    ds: &mut Dataset,
-    name: &str,
-    ty: OGRwkbGeometryType::Type,
-    srs: &SpatialRef,
-    fields: &[(&str, OGRFieldType::Type)],
-    rows: Vec<(Vec<Value>, Geometry)>,
-    path: &Path,
-) -> Result<(), EmitError> {
-    let e = gdal_err(path);
-    let layer = ds
-        .create_layer(LayerOptions {
-            name,
-            srs: Some(srs),
-            ty,
-            options: None,
-        })
-        .map_err(&e)?;
-    add_fields(&layer, fields, path)?;
-    for (values, geometry) in rows {
-        let mut f = Feature::new(layer.defn()).map_err(&e)?;
-        for (i, v) in values.iter().enumerate() {
-            match v {
-                Value::Int(x) => f.set_field_integer(i, *x),
-                Value::Real(x) => f.set_field_double(i, *x),
-                Value::Text(x) => f.set_field_string(i, x),
-            }
-            .map_err(&e)?;
-        }
-        f.set_geometry(geometry).map_err(&e)?;
-        f.create(&layer).map_err(&e)?;
-    }
-    Ok(())
-}
-
 /// Writes `drift-areas.gpkg` in the reference CRS (`reference_wkt`).
 pub fn write_drift_areas(drift: &Drift, reference_wkt: &str, path: &Path) -> Result<(), EmitError> {
     use OGRFieldType::{OFTInteger, OFTReal, OFTString};
@@ -129,32 +85,32 @@ pub fn write_drift_areas(drift: &Drift, reference_wkt: &str, path: &Path) -> Res
             let id = a.id as i32;
             areas.push((
                 vec![
-                    Value::Int(id),
-                    Value::Int(a.landmarks.len() as i32),
-                    Value::Real(a.shift_east_m),
-                    Value::Real(a.shift_north_m),
-                    Value::Real(a.shift_m),
-                    Value::Real(a.shift_se_m),
-                    Value::Real(a.movement_m),
-                    Value::Int(a.exceeds_tolerance as i32),
-                    Value::Real(a.p_value),
+                    FieldValue::Int(id),
+                    FieldValue::Int(a.landmarks.len() as i32),
+                    FieldValue::Real(a.shift_east_m),
+                    FieldValue::Real(a.shift_north_m),
+                    FieldValue::Real(a.shift_m),
+                    FieldValue::Real(a.shift_se_m),
+                    FieldValue::Real(a.movement_m),
+                    FieldValue::Int(a.exceeds_tolerance as i32),
+                    FieldValue::Real(a.p_value),
                 ],
                 ring(&a.outline).map_err(&e)?,
             ));
             for l in &a.landmarks {
                 points.push((
                     vec![
-                        Value::Int(id),
-                        Value::Text(&l.reference_id),
-                        Value::Text(&l.target_id),
-                        Value::Real(l.shift_east_m),
-                        Value::Real(l.shift_north_m),
+                        FieldValue::Int(id),
+                        FieldValue::Text(&l.reference_id),
+                        FieldValue::Text(&l.target_id),
+                        FieldValue::Real(l.shift_east_m),
+                        FieldValue::Real(l.shift_north_m),
                     ],
                     point([l.x, l.y]).map_err(&e)?,
                 ));
             }
         }
-        add_layer(
+        write_layer(
             &mut txn,
             "drift_areas",
             OGRwkbGeometryType::wkbPolygon,
@@ -171,9 +127,10 @@ pub fn write_drift_areas(drift: &Drift, reference_wkt: &str, path: &Path) -> Res
                 ("p_value", OFTReal),
             ],
             areas,
+            Ok,
             path,
         )?;
-        add_layer(
+        write_layer(
             &mut txn,
             "moved_landmarks",
             OGRwkbGeometryType::wkbPoint,
@@ -186,6 +143,7 @@ pub fn write_drift_areas(drift: &Drift, reference_wkt: &str, path: &Path) -> Res
                 ("shift_north_m", OFTReal),
             ],
             points,
+            Ok,
             path,
         )?;
         txn.commit().map_err(&e)?;

@@ -31,11 +31,12 @@
 //!   marked ([`MOVED_INK`]); a histogram of the kept tracks' offsets from their means; the
 //!   cautions. Every number is tagged with its key in `epochs.json` (or `page`).
 
+use super::gpkg::FieldValue;
 use super::html::{self, Grid, Line, Number, Page, Row, Verdict, VerdictKind};
 use super::plot::{Ink, MapLayers, PointClass};
 use super::{atomic, destination, gpkg, io_err, Destination, EmitError};
 use crate::epochs::{EpochsOutcome, Track, TrackStatus};
-use gdal::vector::{Feature, LayerAccess, LayerOptions, OGRFieldType, OGRwkbGeometryType};
+use gdal::vector::{OGRFieldType, OGRwkbGeometryType};
 use serde_json::json;
 use std::io::Write;
 use std::path::{Path, PathBuf};
@@ -229,50 +230,6 @@ fn write_csv(
     .map_err(e)
 }
 
-/// One field value of a layer's row.
-enum Value<'a> {
-    Int(i32),
-    Real(f64),
-    Text(&'a str),
-}
-
-/// Writes one point layer `name` into the open GeoPackage `ds`: its `fields`, then a feature
-/// per row of `rows` (the values in the fields' order, the point in the base CRS). The one
-/// writer of the file's three layers.
-fn write_point_layer<'a>(
-    ds: &mut gdal::Dataset,
-    name: &str,
-    srs: &gdal::spatial_ref::SpatialRef,
-    fields: &[(&str, OGRFieldType::Type)],
-    rows: impl Iterator<Item = (Vec<Value<'a>>, [f64; 2])>,
-    path: &Path,
-) -> Result<(), EmitError> {
-    let e = gpkg::gdal_err(path);
-    let layer = ds
-        .create_layer(LayerOptions {
-            name,
-            srs: Some(srs),
-            ty: OGRwkbGeometryType::wkbPoint,
-            options: None,
-        })
-        .map_err(&e)?;
-    gpkg::add_fields(&layer, fields, path)?;
-    for (values, at) in rows {
-        let mut f = Feature::new(layer.defn()).map_err(&e)?;
-        for (i, v) in values.iter().enumerate() {
-            match v {
-                Value::Int(x) => f.set_field_integer(i, *x),
-                Value::Real(x) => f.set_field_double(i, *x),
-                Value::Text(x) => f.set_field_string(i, x),
-            }
-            .map_err(&e)?;
-        }
-        f.set_geometry(gpkg::point(at).map_err(&e)?).map_err(&e)?;
-        f.create(&layer).map_err(&e)?;
-    }
-    Ok(())
-}
-
 fn write_gpkg(
     outcome: &EpochsOutcome,
     means: &[Option<[f64; 2]>],
@@ -321,19 +278,20 @@ fn write_gpkg(
                 .map(|((t, mean), grade)| {
                     (
                         vec![
-                            Value::Text(&t.id),
-                            Value::Int(t.epochs_seen() as i32),
-                            Value::Real(t.sd_m[0]),
-                            Value::Real(t.sd_m[1]),
-                            Value::Real(t.largest_movement_m),
-                            Value::Text(grade),
+                            FieldValue::Text(&t.id),
+                            FieldValue::Int(t.epochs_seen() as i32),
+                            FieldValue::Real(t.sd_m[0]),
+                            FieldValue::Real(t.sd_m[1]),
+                            FieldValue::Real(t.largest_movement_m),
+                            FieldValue::Text(grade),
                         ],
                         mean.expect("every track has a mean"),
                     )
                 });
-            write_point_layer(
+            gpkg::write_layer(
                 &mut txn,
                 name,
+                OGRwkbGeometryType::wkbPoint,
                 &srs,
                 &[
                     ("track", OFTString),
@@ -344,6 +302,7 @@ fn write_gpkg(
                     ("grade", OFTString),
                 ],
                 rows,
+                gpkg::point,
                 path,
             )?;
         }
@@ -352,11 +311,11 @@ fn write_gpkg(
             let m = t.members[*k].expect("a position has a member");
             (
                 vec![
-                    Value::Text(&t.id),
-                    Value::Text(&outcome.epochs[*k].name),
-                    Value::Text(&outcome.epochs[*k].set.ids[m as usize]),
-                    Value::Real(crate::spatial::dist2(*working, t.mean).sqrt() * mpu),
-                    Value::Text(if t.status == TrackStatus::Moved {
+                    FieldValue::Text(&t.id),
+                    FieldValue::Text(&outcome.epochs[*k].name),
+                    FieldValue::Text(&outcome.epochs[*k].set.ids[m as usize]),
+                    FieldValue::Real(crate::spatial::dist2(*working, t.mean).sqrt() * mpu),
+                    FieldValue::Text(if t.status == TrackStatus::Moved {
                         "moved"
                     } else {
                         "kept"
@@ -365,9 +324,10 @@ fn write_gpkg(
                 *p,
             )
         });
-        write_point_layer(
+        gpkg::write_layer(
             &mut txn,
             "epoch_positions",
+            OGRwkbGeometryType::wkbPoint,
             &srs,
             &[
                 ("track", OFTString),
@@ -377,6 +337,7 @@ fn write_gpkg(
                 ("status", OFTString),
             ],
             rows,
+            gpkg::point,
             path,
         )?;
         txn.commit().map_err(&e)?;

@@ -113,6 +113,53 @@ pub(super) fn add_fields<L: LayerAccess>(
     Ok(())
 }
 
+/// One field's value of a row for [`write_layer`].
+pub(super) enum FieldValue<'a> {
+    Int(i32),
+    Real(f64),
+    Text(&'a str),
+}
+
+/// Writes one small layer `name` into the open GeoPackage `ds` through GDAL, feature by
+/// feature: its `fields`, then a feature per row of `rows` (the values in the fields' order,
+/// and what `geometry` makes the row's shape into). For the drift areas and the epochs
+/// library; the control points' large layers go through SQLite instead (module doc).
+pub(super) fn write_layer<'a, G>(
+    ds: &mut Dataset,
+    name: &str,
+    ty: OGRwkbGeometryType::Type,
+    srs: &SpatialRef,
+    fields: &[(&str, OGRFieldType::Type)],
+    rows: impl IntoIterator<Item = (Vec<FieldValue<'a>>, G)>,
+    geometry: impl Fn(G) -> gdal::errors::Result<Geometry>,
+    path: &Path,
+) -> Result<(), EmitError> {
+    let e = gdal_err(path);
+    let layer = ds
+        .create_layer(LayerOptions {
+            name,
+            srs: Some(srs),
+            ty,
+            options: None,
+        })
+        .map_err(&e)?;
+    add_fields(&layer, fields, path)?;
+    for (values, shape) in rows {
+        let mut f = Feature::new(layer.defn()).map_err(&e)?;
+        for (i, v) in values.iter().enumerate() {
+            match v {
+                FieldValue::Int(x) => f.set_field_integer(i, *x),
+                FieldValue::Real(x) => f.set_field_double(i, *x),
+                FieldValue::Text(x) => f.set_field_string(i, x),
+            }
+            .map_err(&e)?;
+        }
+        f.set_geometry(geometry(shape).map_err(&e)?).map_err(&e)?;
+        f.create(&layer).map_err(&e)?;
+    }
+    Ok(())
+}
+
 pub(super) fn point(p: [f64; 2]) -> gdal::errors::Result<Geometry> {
     let mut g = Geometry::empty(OGRwkbGeometryType::wkbPoint)?;
     g.add_point_2d((p[0], p[1]));
@@ -1438,18 +1485,18 @@ mod tests {
             let srs = srs_from_wkt(set.crs_wkt.as_deref().unwrap(), &theirs).unwrap();
             let (mut ds, _fixed) = create_gpkg(&theirs).unwrap();
             let mut txn = ds.start_transaction().unwrap();
-            let layer = txn
-                .create_layer(LayerOptions {
-                    name: "landmarks",
-                    srs: Some(&srs),
-                    ty: OGRwkbGeometryType::wkbPoint,
-                    options: None,
-                })
-                .unwrap();
-            add_fields(&layer, &[("id", OGRFieldType::OFTString)], &theirs).unwrap();
-            for (id, p) in set.ids.iter().zip(&set.points) {
-                landmark_feature(&layer, id, *p, &theirs).unwrap();
-            }
+            let rows = set.ids.iter().zip(&set.points);
+            write_layer(
+                &mut txn,
+                "landmarks",
+                OGRwkbGeometryType::wkbPoint,
+                &srs,
+                &[("id", OGRFieldType::OFTString)],
+                rows.map(|(id, p)| (vec![FieldValue::Text(id)], *p)),
+                point,
+                &theirs,
+            )
+            .unwrap();
             txn.commit().unwrap();
             close_checked(ds, &theirs).unwrap();
         }

@@ -113,23 +113,16 @@ pub fn read_survey_of_set(
 /// image's CRS as read), so that both images share the grid the refinement works on.
 pub fn read_surveys(config: &MatchConfig) -> Result<(LandmarkSet, LandmarkSet), IngestError> {
     let reference_grid = config.frame.working_crs.as_deref();
+    let reference = ingest::open_survey(&config.reference, reference_grid)?;
     let target_grid = match reference_grid.or(config.reference.crs.as_deref()) {
         Some(g) => Some(g.to_string()),
-        None => ingest::raster_crs_wkt_on(&config.reference, reference_grid)?,
+        None => reference.raster_crs_wkt(),
     };
-    let target_grid = target_grid.as_deref();
-    let pixels = [
-        ingest::raster_pixel_metres_on(&config.reference, reference_grid)?,
-        ingest::raster_pixel_metres_on(&config.target, target_grid)?,
-    ];
+    let target = ingest::open_survey(&config.target, target_grid.as_deref())?;
+    let pixels = [reference.pixel_metres()?, target.pixel_metres()?];
     Ok((
-        ingest::read_landmarks_on(
-            &config.reference,
-            &config.keypoints,
-            pixels[1],
-            reference_grid,
-        )?,
-        ingest::read_landmarks_on(&config.target, &config.keypoints, pixels[0], target_grid)?,
+        reference.read(&config.keypoints, pixels[1])?,
+        target.read(&config.keypoints, pixels[0])?,
     ))
 }
 

@@ -170,12 +170,7 @@ impl Converter {
     }
 }
 
-/// The WGS 84 / UTM zone containing a longitude and latitude, as "EPSG:326zz" (north) or
-/// "EPSG:327zz" (south).
-pub fn utm_zone_for(lon: f64, lat: f64) -> String {
-    let zone = (((lon + 180.0) / 6.0).floor() as i64).rem_euclid(60) + 1;
-    format!("EPSG:{}{:02}", if lat >= 0.0 { 326 } else { 327 }, zone)
-}
+pub use crate::spatial::utm_zone_for;
 
 #[cfg(test)]
 mod tests {

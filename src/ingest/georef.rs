@@ -32,13 +32,14 @@
 //! warp adds, and wherever the file is no-data or transparent, samples are invalid), cubic
 //! resampling, GDAL's approximate transformer held to [`WARP_MAX_ERROR_PX`], on the grid CRS:
 //! `grid` when given and projected, else the GCPs' own CRS when projected, else the WGS 84 /
-//! UTM zone of the image's centre (the rule of `frame::crs::utm_zone_for`). GDAL chooses the
-//! grid's square pixel (`GDALSuggestedWarpOutput`: as many pixels along the diagonal as the
-//! file has), so detection runs on near-square ground pixels, and the view is warped block by
-//! block as it is read: memory stays bounded as for any file. Keypoints, refinement and the
-//! area-based seed work on the view; every pixel/line an output gives (control points,
-//! `target-gcps.vrt`) is taken back to the file's own pixel/line through the [`PixelMap`], so
-//! that a GCP warp of the original file (gdalwarp) uses them as they are.
+//! UTM zone of the image's centre ([`crate::spatial::utm_zone_for`], the working frame's
+//! rule). GDAL chooses the grid's square pixel (`GDALSuggestedWarpOutput`: as many pixels
+//! along the diagonal as the file has), so detection runs on near-square ground pixels, and
+//! the view is warped block by block as it is read: memory stays bounded as for any file.
+//! Keypoints, refinement and the area-based seed work on the view; every pixel/line an output
+//! gives (control points, `target-gcps.vrt`) is taken back to the file's own pixel/line
+//! through the [`PixelMap`], so that a GCP warp of the original file (gdalwarp) uses them as
+//! they are.
 //!
 //! **The pixel map back.** The exact transformer of the warp (`GDALCreateGenImgProjTransformer2`
 //! with the same options, no approximation) is sampled on a grid of nodes over the view and
@@ -295,14 +296,6 @@ impl Drop for GcpTransformer {
     }
 }
 
-/// The WGS 84 / UTM zone containing a longitude and latitude, as "EPSG:326zz" (north) or
-/// "EPSG:327zz" (south): the rule of `frame::crs::utm_zone_for` (ingest does not import the
-/// frame, which imports ingest).
-fn utm_zone_for(lon: f64, lat: f64) -> String {
-    let zone = (((lon + 180.0) / 6.0).floor() as i64).rem_euclid(60) + 1;
-    format!("EPSG:{}{:02}", if lat >= 0.0 { 326 } else { 327 }, zone)
-}
-
 /// A warped view of a file on a projected grid.
 pub struct Warped {
     /// The warped VRT (GDAL warps it block by block as it is read). Its bands are the bands
@@ -346,7 +339,7 @@ fn grid_crs(
         ));
     }
     Ok((
-        utm_zone_for(lon, lat),
+        crate::spatial::utm_zone_for(lon, lat),
         format!("the UTM zone of the image's centre ({lon:.4}, {lat:.4})"),
     ))
 }
@@ -609,19 +602,5 @@ impl PixelMap {
             (1.0 - fv) * ((1.0 - fu) * a[k] + fu * b[k]) + fv * ((1.0 - fu) * c[k] + fu * d[k])
         };
         [mix(0), mix(1)]
-    }
-}
-
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn utm_zones_follow_the_frame_rule() {
-        // The same cases as frame::crs's test of its rule.
-        assert_eq!(utm_zone_for(15.2, 47.0), "EPSG:32633");
-        assert_eq!(utm_zone_for(-87.0, 38.5), "EPSG:32616");
-        assert_eq!(utm_zone_for(-179.9, -10.0), "EPSG:32701");
-        assert_eq!(utm_zone_for(179.9, 10.0), "EPSG:32660");
     }
 }

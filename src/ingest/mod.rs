@@ -239,14 +239,74 @@ pub fn read_landmarks_on(
     other_pixel_m: Option<f64>,
     grid: Option<&str>,
 ) -> Result<LandmarkSet, IngestError> {
+    open_survey(input, grid)?.read(keypoints, other_pixel_m)
+}
+
+/// A survey opened once, read-only, so that what the match asks of it before reading (the
+/// pixel size, the CRS) costs no second open: GDAL parses some vector formats (GeoJSON, CSV)
+/// whole when it opens them.
+pub struct OpenedSurvey<'a> {
+    input: &'a SurveyInput,
+    opened: Opened,
+}
+
+enum Opened {
+    Vector(open::Opened),
+    Raster(Box<RasterSource>),
+}
+
+/// Opens `input`: a vector layer as it is, a raster on `grid` as [`read_landmarks_on`] reads
+/// it. What it holds is decided from what GDAL opens ([`SourceKind`]).
+pub fn open_survey<'a>(
+    input: &'a SurveyInput,
+    grid: Option<&str>,
+) -> Result<OpenedSurvey<'a>, IngestError> {
     let opened = open::open_source(&input.path)?;
-    match opened.kind {
-        SourceKind::Vector => vector::read_vector(input, opened),
+    let opened = match opened.kind {
+        SourceKind::Vector => Opened::Vector(opened),
         SourceKind::Raster => {
-            let source = RasterSource::open_on(&input.path, input.band, grid)?;
-            let own = raster_landmarks::pixel_metres(&source)?;
-            let size = keypoints.feature_size_for(own, other_pixel_m.unwrap_or(own));
-            raster_landmarks::read_keypoints(&source, size, keypoints)
+            drop(opened);
+            Opened::Raster(Box::new(RasterSource::open_on(
+                &input.path,
+                input.band,
+                grid,
+            )?))
+        }
+    };
+    Ok(OpenedSurvey { input, opened })
+}
+
+impl OpenedSurvey<'_> {
+    /// The ground size of a raster's pixels in metres; `None` for a vector survey.
+    pub fn pixel_metres(&self) -> Result<Option<f64>, IngestError> {
+        match &self.opened {
+            Opened::Vector(_) => Ok(None),
+            Opened::Raster(source) => raster_landmarks::pixel_metres(source).map(Some),
+        }
+    }
+
+    /// A raster's CRS as it is read (a warped view's grid), as WKT; `None` for a vector
+    /// survey or an image with none.
+    pub fn raster_crs_wkt(&self) -> Option<String> {
+        match &self.opened {
+            Opened::Vector(_) => None,
+            Opened::Raster(source) => source.info().crs_wkt.clone(),
+        }
+    }
+
+    /// Reads the landmarks, as [`read_landmarks_with`] does.
+    pub fn read(
+        self,
+        keypoints: &KeypointParams,
+        other_pixel_m: Option<f64>,
+    ) -> Result<LandmarkSet, IngestError> {
+        match self.opened {
+            Opened::Vector(opened) => vector::read_vector(self.input, opened),
+            Opened::Raster(source) => {
+                let own = raster_landmarks::pixel_metres(&source)?;
+                let size = keypoints.feature_size_for(own, other_pixel_m.unwrap_or(own));
+                raster_landmarks::read_keypoints(&source, size, keypoints)
+            }
         }
     }
 }
@@ -261,14 +321,7 @@ pub fn raster_pixel_metres_on(
     input: &SurveyInput,
     grid: Option<&str>,
 ) -> Result<Option<f64>, IngestError> {
-    let opened = open::open_source(&input.path)?;
-    match opened.kind {
-        SourceKind::Vector => Ok(None),
-        SourceKind::Raster => {
-            let source = RasterSource::open_on(&input.path, input.band, grid)?;
-            raster_landmarks::pixel_metres(&source).map(Some)
-        }
-    }
+    open_survey(input, grid)?.pixel_metres()
 }
 
 /// A raster survey opened again as its landmarks were read: on the same grid when it was
@@ -282,23 +335,6 @@ pub fn reopen_raster(
         input.band,
         landmarks.view.as_ref().map(|v| v.grid.as_str()),
     )
-}
-
-/// The CRS of a raster survey as it is read on `grid` (a warped view's grid for an image in a
-/// geographic CRS or warped through its GCPs), as WKT; `None` for a vector survey or an image
-/// with none.
-pub fn raster_crs_wkt_on(
-    input: &SurveyInput,
-    grid: Option<&str>,
-) -> Result<Option<String>, IngestError> {
-    let opened = open::open_source(&input.path)?;
-    match opened.kind {
-        SourceKind::Vector => Ok(None),
-        SourceKind::Raster => Ok(RasterSource::open_on(&input.path, input.band, grid)?
-            .info()
-            .crs_wkt
-            .clone()),
-    }
 }
 
 /// What is wrong with an input dataset. Every variant names the file.

@@ -40,12 +40,12 @@ pub fn error(centre: [f64; 2], p: [f64; 2]) -> [f64; 2] {
     ]
 }
 
-/// The geotransform `gt` with the error applied about `centre`: the target's claimed
-/// georeferencing when its pixels are the true scene's.
-pub fn with_error(gt: [f64; 6], centre: [f64; 2]) -> [f64; 6] {
-    let o = error(centre, [gt[0], gt[3]]);
-    let ex = error(centre, [gt[0] + gt[1], gt[3]]);
-    let ey = error(centre, [gt[0], gt[3] + gt[5]]);
+/// The geotransform that `map` (an affine map of the ground, such as a similarity) makes of
+/// `gt`: the claimed georeferencing of pixels whose true one is `gt`.
+pub fn moved_geotransform(gt: [f64; 6], map: impl Fn([f64; 2]) -> [f64; 2]) -> [f64; 6] {
+    let o = map([gt[0], gt[3]]);
+    let ex = map([gt[0] + gt[1], gt[3] + gt[4]]);
+    let ey = map([gt[0] + gt[2], gt[3] + gt[5]]);
     [
         o[0],
         ex[0] - o[0],
@@ -54,6 +54,12 @@ pub fn with_error(gt: [f64; 6], centre: [f64; 2]) -> [f64; 6] {
         ex[1] - o[1],
         ey[1] - o[1],
     ]
+}
+
+/// The geotransform `gt` with the error applied about `centre`: the target's claimed
+/// georeferencing when its pixels are the true scene's.
+pub fn with_error(gt: [f64; 6], centre: [f64; 2]) -> [f64; 6] {
+    moved_geotransform(gt, |p| error(centre, p))
 }
 
 /// The scene's size in pixels (width, height).
