@@ -120,6 +120,19 @@ pub fn read_surveys(config: &MatchConfig) -> Result<(LandmarkSet, LandmarkSet), 
     };
     let target = ingest::open_survey(&config.target, target_grid.as_deref())?;
     let pixels = [reference.pixel_metres()?, target.pixel_metres()?];
+    if reference.is_vector() && target.is_vector() {
+        // Two vector layers are read at once, one on each thread (GDAL's datasets and error
+        // states are per thread); the reference's error comes first, as in a serial read.
+        // Images stay one after the other: each read already uses every core.
+        let keypoints = &config.keypoints;
+        let (reference, target) = std::thread::scope(|scope| {
+            let target = scope.spawn(move || target.read(keypoints, pixels[0]));
+            let reference = reference.read(keypoints, pixels[1]);
+            (reference, target.join())
+        });
+        let target = target.unwrap_or_else(|panic| std::panic::resume_unwind(panic));
+        return Ok((reference?, target?));
+    }
     Ok((
         reference.read(&config.keypoints, pixels[1])?,
         target.read(&config.keypoints, pixels[0])?,
@@ -178,9 +191,18 @@ pub fn match_surveys(config: &MatchConfig, progress: &dyn Progress) -> Result<Ma
             path: path.to_path_buf(),
         })
     };
-    let ri = index(&frame.reference, &reference.source)?;
-    let ti = index(&frame.target, &target.source)?;
-    let (ro, to) = (morton_order(&frame.reference), morton_order(&frame.target));
+    // Each survey's tree and Morton order, the two surveys at once.
+    let ((ri, ro), (ti, to)) = rayon::join(
+        || {
+            let points = &frame.reference;
+            (index(points, &reference.source), morton_order(points))
+        },
+        || {
+            let points = &frame.target;
+            (index(points, &target.source), morton_order(points))
+        },
+    );
+    let (ri, ti) = (ri?, ti?);
     let labels = [
         format!("the reference ({})", reference.source.display()),
         format!("the target ({})", target.source.display()),

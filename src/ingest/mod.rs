@@ -277,6 +277,11 @@ pub fn open_survey<'a>(
 }
 
 impl OpenedSurvey<'_> {
+    /// Whether the survey is a vector layer (not an image).
+    pub fn is_vector(&self) -> bool {
+        matches!(self.opened, Opened::Vector(_))
+    }
+
     /// The ground size of a raster's pixels in metres; `None` for a vector survey.
     pub fn pixel_metres(&self) -> Result<Option<f64>, IngestError> {
         match &self.opened {

@@ -87,17 +87,24 @@ fn check_range(set: &LandmarkSet) -> Result<(), IngestError> {
 /// Rejects positions shared by two landmarks: counts them and names the pair that comes first
 /// in reading order.
 fn check_duplicates(set: &LandmarkSet) -> Result<(), IngestError> {
-    let mut order: Vec<usize> = (0..set.points.len()).collect();
+    use rayon::slice::ParallelSliceMut;
     let p = &set.points;
-    order.sort_unstable_by(|&a, &b| {
-        p[a][0]
-            .total_cmp(&p[b][0])
-            .then(p[a][1].total_cmp(&p[b][1]))
-    });
+    // Sorted by position (in `f64::total_cmp`'s order, as integer keys; -0 counts as 0), then
+    // by reading order: equal positions end up next to each other, earliest first.
+    let key = |v: f64| {
+        let bits = (v + 0.0).to_bits() as i64;
+        bits ^ (((bits >> 63) as u64) >> 1) as i64
+    };
+    let mut order: Vec<(i64, i64, usize)> = p
+        .iter()
+        .enumerate()
+        .map(|(i, q)| (key(q[0]), key(q[1]), i))
+        .collect();
+    order.par_sort_unstable();
     let dups: Vec<(usize, usize)> = order
         .windows(2)
-        .filter(|w| p[w[0]] == p[w[1]])
-        .map(|w| (w[0].min(w[1]), w[0].max(w[1])))
+        .filter(|w| (w[0].0, w[0].1) == (w[1].0, w[1].1))
+        .map(|w| (w[0].2, w[1].2))
         .collect();
     if let Some(&(a, b)) = dups.iter().min() {
         return Err(IngestError::DuplicatePositions {
@@ -157,4 +164,45 @@ fn check_spread(set: &LandmarkSet) -> Result<(), IngestError> {
         });
     }
     Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn set(points: Vec<[f64; 2]>) -> LandmarkSet {
+        LandmarkSet {
+            source: "survey.gpkg".into(),
+            layer: "buildings".into(),
+            ids: (0..points.len()).map(|i| format!("b{i}")).collect(),
+            points,
+            crs_wkt: None,
+            skipped: Default::default(),
+            raster: None,
+        }
+    }
+
+    /// Shared positions are counted once per extra landmark and the earliest pair in reading
+    /// order is named; -0 and 0 are one position.
+    #[test]
+    fn duplicates_name_the_earliest_pair() {
+        let mut points: Vec<[f64; 2]> = (0..20).map(|i| [i as f64, (i * i) as f64]).collect();
+        points[17] = [5.0, 25.0];
+        points[9] = [5.0, 25.0];
+        points[12] = [-0.0, 0.0];
+        match check_duplicates(&set(points)) {
+            Err(IngestError::DuplicatePositions {
+                count,
+                first,
+                second,
+                ..
+            }) => {
+                assert_eq!(count, 3);
+                assert_eq!((first.as_str(), second.as_str()), ("b0", "b12"));
+            }
+            other => panic!("duplicates not found: {other:?}"),
+        }
+        let distinct: Vec<[f64; 2]> = (0..20).map(|i| [i as f64, 0.5]).collect();
+        assert!(check_duplicates(&set(distinct)).is_ok());
+    }
 }

@@ -14,8 +14,11 @@ use super::csv::{self, RowPosition};
 use super::open::{clear_gdal_error, take_gdal_failure, Opened};
 use super::validate::{self, in_range};
 use super::{IngestError, LandmarkSet, SkipCounts, SurveyInput};
-use gdal::vector::{Feature, Geometry, LayerAccess};
+use gdal::vector::{
+    geometry_type_flatten, geometry_type_has_m, geometry_type_has_z, Feature, Geometry, LayerAccess,
+};
 use gdal_sys::OGRFieldType;
+use gdal_sys::OGRwkbGeometryType;
 use geo::Centroid;
 use std::path::Path;
 
@@ -92,17 +95,28 @@ pub(super) fn read_vector(input: &SurveyInput, opened: Opened) -> Result<Landmar
     let mut skipped = SkipCounts::default();
     let mut n = 0usize;
     each_feature(path, &layer_name, &mut layer, |feature| {
-        let fid = feature
-            .fid()
-            .map(|f| f.to_string())
-            .unwrap_or_else(|| n.to_string());
+        // The feature id as text: the landmark id when no id field is named, else only for
+        // messages (made when needed: a million of them cost a tenth of a second).
+        let number = n;
         n += 1;
+        let fid_text = || {
+            feature
+                .fid()
+                .map(|f| f.to_string())
+                .unwrap_or_else(|| number.to_string())
+        };
         let id_of = |feature: &Feature| -> Result<String, IngestError> {
             let Some(i) = id_index else {
-                return Ok(fid.clone());
+                return Ok(fid_text());
             };
             let at = |e: IdProblem| {
-                e.into_error(path, &layer_name, &fid, &field_names[i], &opened.driver)
+                e.into_error(
+                    path,
+                    &layer_name,
+                    &fid_text(),
+                    &field_names[i],
+                    &opened.driver,
+                )
             };
             id_value(feature, i, field_types[i]).map_err(at)
         };
@@ -118,7 +132,7 @@ pub(super) fn read_vector(input: &SurveyInput, opened: Opened) -> Result<Landmar
                     return Err(IngestError::UnreadableCoordinate {
                         path: path.to_path_buf(),
                         layer: layer_name.clone(),
-                        id: id_of(feature).unwrap_or_else(|_| fid.clone()),
+                        id: id_of(feature).unwrap_or_else(|_| fid_text()),
                         cells,
                     })
                 }
@@ -146,7 +160,7 @@ pub(super) fn read_vector(input: &SurveyInput, opened: Opened) -> Result<Landmar
                 path: path.to_path_buf(),
                 layer: layer_name.clone(),
                 id,
-                fid,
+                fid: fid_text(),
                 x: p[0],
                 y: p[1],
             });
@@ -241,8 +255,22 @@ fn position(g: &Geometry) -> Position {
     if g.is_empty() {
         return Position::Empty;
     }
-    let mut flat = g.clone();
-    flat.flatten_to_2d();
+    let ty = g.geometry_type();
+    if geometry_type_flatten(ty) == OGRwkbGeometryType::wkbPoint {
+        // A point's x and y, whatever its z or m (as the flattened copy below would give).
+        let (x, y, _) = g.get_point(0);
+        return Position::At([x, y]);
+    }
+    // Only a geometry with z or m needs a flattened copy for `geo`.
+    let flattened;
+    let flat = if geometry_type_has_z(ty) || geometry_type_has_m(ty) {
+        let mut copy = g.clone();
+        copy.flatten_to_2d();
+        flattened = copy;
+        &flattened
+    } else {
+        g
+    };
     match flat.to_geo() {
         Ok(geo::Geometry::Point(p)) => Position::At([p.x(), p.y()]),
         Ok(other) => match other.centroid() {
@@ -406,4 +434,42 @@ pub(super) fn escaped(bytes: &[u8]) -> String {
         }
     }
     out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn at(wkt: &str) -> Option<[f64; 2]> {
+        match position(&Geometry::from_wkt(wkt).expect("valid WKT")) {
+            Position::At(p) => Some(p),
+            _ => None,
+        }
+    }
+
+    /// Points of every dimension give their x and y; polygons with z or m give the centroid
+    /// of their plan (the flattened copy), as plain polygons do.
+    #[test]
+    fn positions_of_every_dimension() {
+        assert_eq!(at("POINT (3.5 -2)"), Some([3.5, -2.0]));
+        assert_eq!(at("POINT Z (3.5 -2 40)"), Some([3.5, -2.0]));
+        assert_eq!(at("POINT M (3.5 -2 7)"), Some([3.5, -2.0]));
+        assert_eq!(at("POINT ZM (3.5 -2 40 7)"), Some([3.5, -2.0]));
+        let square = Some([1.0, 2.0]);
+        assert_eq!(at("POLYGON ((0 1,2 1,2 3,0 3,0 1))"), square);
+        assert_eq!(at("POLYGON Z ((0 1 5,2 1 6,2 3 7,0 3 8,0 1 5))"), square);
+        assert_eq!(at("POLYGON M ((0 1 5,2 1 6,2 3 7,0 3 8,0 1 5))"), square);
+        assert_eq!(
+            at("MULTIPOLYGON Z (((0 1 5,2 1 6,2 3 7,0 3 8,0 1 5)))"),
+            square
+        );
+        assert!(matches!(
+            position(&Geometry::from_wkt("POINT EMPTY").unwrap()),
+            Position::Empty
+        ));
+        assert!(matches!(
+            position(&Geometry::from_wkt("POLYGON Z EMPTY").unwrap()),
+            Position::Empty
+        ));
+    }
 }
