@@ -32,7 +32,7 @@ pub fn overlap(reference: &[[f64; 2]], target_mapped: &[[f64; 2]]) -> Option<Mul
         )
         .convex_hull()
     };
-    let (a, b) = (hull(reference), hull(target_mapped));
+    let (a, b) = rayon::join(|| hull(reference), || hull(target_mapped));
     if a.unsigned_area() <= 0.0 || b.unsigned_area() <= 0.0 {
         return None;
     }
