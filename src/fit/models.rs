@@ -214,12 +214,19 @@ pub fn compare(
     similarity: &Similarity,
     chosen: Model,
 ) -> Comparison {
-    let mut fits = vec![similarity_fit(from, to, similarity)];
-    for model in [Model::Affine, Model::Polynomial2] {
-        if let Some(f) = fit_model(model, from, to) {
-            fits.push(f);
-        }
-    }
+    // The three fits are independent: taken at once, kept in this order.
+    let (similarity, (affine, polynomial)) = rayon::join(
+        || similarity_fit(from, to, similarity),
+        || {
+            rayon::join(
+                || fit_model(Model::Affine, from, to),
+                || fit_model(Model::Polynomial2, from, to),
+            )
+        },
+    );
+    let mut fits = vec![similarity];
+    fits.extend(affine);
+    fits.extend(polynomial);
     let tests = fits.windows(2).map(|w| nested_test(&w[0], &w[1])).collect();
     Comparison {
         chosen,
