@@ -9,14 +9,21 @@
 //! `CreateSpatialIndex(table, column)` (the R*Tree virtual table `rtree_<layer>_geom`, the
 //! triggers that keep it up to date and the `gpkg_extensions` row of GeoPackage's "RTree
 //! Spatial Indexes" extension, exactly as GDAL makes them), and closes it. Then the features go
-//! in through SQLite directly (rusqlite, the system's libsqlite3), in one transaction: the
-//! layer's triggers are set aside, every row goes in through one prepared statement with its
-//! values bound (the geometry blobs made on the cores at once, in the GeoPackage encoding GDAL
-//! writes), the spatial index is packed from the features' bounding boxes and stored, the
-//! layer's extent and feature count are set as GDAL would set them, and the triggers are put
-//! back. Feature-by-feature through GDAL (a `Feature`, an OGR geometry, GDAL's own encoding
-//! and statement work per row) was most of the cost of `control-points.gpkg`; see README,
-//! "Writing the outputs". GeoJSON and FlatGeobuf landmark files go through GDAL as they are.
+//! in through SQLite directly (rusqlite, the system's libsqlite3), in one transaction, one
+//! layer after another: the layer's triggers are set aside; what each row needs is made and
+//! looked up on the cores at once, a block of rows at a time (the geometry blobs in the
+//! GeoPackage encoding GDAL writes, their bounding boxes, the field values; a control point's
+//! two ids are gathered end to end once for the three layers), so that SQLite's thread reads
+//! memory in order; every row goes in through one prepared multi-row statement with its
+//! values bound, its feature id left to SQLite (1..n in order: each row is appended at the end
+//! of the table's B-tree rather than looked up); the spatial index is packed from the
+//! features' bounding boxes and stored; the layer's extent and feature count are set as GDAL
+//! would set them, and the triggers are put back. Feature-by-feature through GDAL (a
+//! `Feature`, an OGR geometry, GDAL's own encoding and statement work per row) was most of the
+//! cost of `control-points.gpkg`; see README, "Writing the outputs". Filling layers on other
+//! threads into scratch databases and copying them in (`INSERT … SELECT`, SQLite's transfer
+//! of whole records) was tried: the copy costs most of what filling costs, and it was slower.
+//! GeoJSON and FlatGeobuf landmark files go through GDAL as they are.
 //!
 //! # The spatial index, packed at the end
 //!
@@ -24,7 +31,8 @@
 //! is most of the cost of writing (GEOSTACK.md: 7.9 s with it, 1.6 s without). Here the tree
 //! is packed in one pass from the features' bounding boxes (`PackedTree`: sort-tile-recursive,
 //! full nodes) and stored straight into the R*Tree module's shadow tables (`_node`, `_parent`,
-//! `_rowid`, whose layout is SQLite's, see `PackedTree`). The result is the index the
+//! `_rowid`, whose layout is SQLite's, see `PackedTree`; `_parent` and `_rowid` in key order,
+//! so that they go in at the end of their B-trees). The result is the index the
 //! trigger-by-trigger way would have built, in another shape (SQLite's `rtreecheck()` passes
 //! on it, GDAL reports `HasSpatialIndex` and uses it for spatial filters), and later edits
 //! maintain it as usual.
@@ -381,25 +389,35 @@ impl rusqlite::ToSql for Value<'_> {
     }
 }
 
-/// Rows whose geometry blobs are made on the cores at once (in fixed pieces, so the blobs
-/// and their order never depend on the thread count) before they go into SQLite one by one.
+/// Rows whose geometry blobs, boxes and fields are made on the cores at once (in fixed
+/// pieces, so that they and their order never depend on the thread count) before they go
+/// into SQLite one by one.
 const BLOCK: usize = 65_536;
 /// Rows of one piece of a block.
 const PIECE: usize = 4_096;
 
+/// The rows `from..to` of a layer, ready to bind: their geometry blobs end to end (row k's
+/// is `bytes[ends[k]..ends[k + 1]]`), their boxes with their feature ids, their fields.
+struct Piece<'v, const K: usize> {
+    bytes: Vec<u8>,
+    ends: Vec<usize>,
+    boxes: Vec<(i64, [f64; 4])>,
+    values: Vec<[Value<'v>; K]>,
+}
+
 /// Fills layer `spec` (made empty by [`create_layers`]) with rows `0..n` in that order
-/// (feature ids 1..=n): `shape(i)` is row i's geometry, `values(i)` its fields in the order of
-/// `spec.fields`. The index's triggers (and GDAL's feature-count triggers) are set aside while
-/// the rows go in with one prepared statement, the packed spatial index is stored (module
-/// doc), the layer's extent and feature count are set in `gpkg_contents` and
-/// `gpkg_ogr_contents`, and the triggers are put back as GDAL made them. `done` is told how
-/// many rows are in (every few thousand).
+/// (feature ids 1..=n, which SQLite gives them): `shape(i)` is row i's geometry, `values(i)`
+/// its fields in the order of `spec.fields`. The index's triggers (and GDAL's feature-count
+/// triggers) are set aside while the rows go in with one prepared statement, the packed
+/// spatial index is stored (module doc), the layer's extent and feature count are set in
+/// `gpkg_contents` and `gpkg_ogr_contents`, and the triggers are put back as GDAL made them.
+/// `done` is told how many rows are in (every few thousand).
 fn fill_layer<'v, const K: usize>(
     conn: &rusqlite::Connection,
     spec: &LayerSpec,
     n: usize,
     shape: &(dyn Fn(usize) -> Shape + Sync),
-    values: &dyn Fn(usize) -> [Value<'v>; K],
+    values: &(dyn Fn(usize) -> [Value<'v>; K] + Sync),
     path: &Path,
     done: &mut dyn FnMut(usize),
 ) -> Result<(), EmitError> {
@@ -460,10 +478,12 @@ fn fill_layer<'v, const K: usize>(
         .iter()
         .map(|(f, _)| format!(", \"{f}\""))
         .collect();
-    let width = K + 2;
+    // No feature id: SQLite gives row i the id i + 1 itself (the table is empty and the rows
+    // go in in order), and so appends each at the end of the table's B-tree instead of
+    // looking its place up (a descent and a binary search each).
+    let width = K + 1;
     let statement = |rows: usize| {
-        let mut text =
-            format!("INSERT INTO \"{name}\" (\"fid\", \"{GEOMETRY_COLUMN}\"{columns}) VALUES ");
+        let mut text = format!("INSERT INTO \"{name}\" (\"{GEOMETRY_COLUMN}\"{columns}) VALUES ");
         push_marks(&mut text, rows, width);
         text
     };
@@ -471,24 +491,33 @@ fn fill_layer<'v, const K: usize>(
     let mut boxes: Vec<(i64, [f64; 4])> = Vec::with_capacity(n);
     for start in (0..n).step_by(BLOCK) {
         let end = (start + BLOCK).min(n);
-        let pieces: Vec<(Vec<u8>, Vec<usize>)> = (start..end)
+        // Everything a row needs, looked up on the cores at once (the lookups wander over
+        // the surveys: a cache miss or two a row), so that SQLite's thread only reads on.
+        let pieces: Vec<Piece<'v, K>> = (start..end)
             .step_by(PIECE)
             .collect::<Vec<_>>()
             .into_par_iter()
             .map(|from| {
                 let to = (from + PIECE).min(end);
-                let mut bytes = Vec::with_capacity((to - from) * 81);
-                let mut ends = Vec::with_capacity(to - from + 1);
-                ends.push(0);
+                let mut piece = Piece {
+                    bytes: Vec::with_capacity((to - from) * 81),
+                    ends: Vec::with_capacity(to - from + 1),
+                    boxes: Vec::with_capacity(to - from),
+                    values: Vec::with_capacity(to - from),
+                };
+                piece.ends.push(0);
                 for i in from..to {
-                    shape(i).push_blob(srs_id, &mut bytes);
-                    ends.push(bytes.len());
+                    let s = shape(i);
+                    s.push_blob(srs_id, &mut piece.bytes);
+                    piece.ends.push(piece.bytes.len());
+                    piece.boxes.push((i as i64 + 1, s.bbox()));
+                    piece.values.push(values(i));
                 }
-                (bytes, ends)
+                piece
             })
             .collect();
-        for (p, (bytes, ends)) in pieces.iter().enumerate() {
-            let first = start + p * PIECE;
+        for piece in &pieces {
+            let (bytes, ends) = (&piece.bytes, &piece.ends);
             let rows = ends.len() - 1;
             for group in (0..rows).step_by(ROWS_PER_STATEMENT) {
                 let count = ROWS_PER_STATEMENT.min(rows - group);
@@ -500,23 +529,18 @@ fn fill_layer<'v, const K: usize>(
                     &mut partial
                 };
                 for j in 0..count {
-                    let (k, i) = (group + j, first + group + j);
+                    let k = group + j;
                     let base = j * width;
-                    st.raw_bind_parameter(base + 1, i as i64 + 1).map_err(&e)?;
-                    st.raw_bind_parameter(base + 2, &bytes[ends[k]..ends[k + 1]])
+                    st.raw_bind_parameter(base + 1, &bytes[ends[k]..ends[k + 1]])
                         .map_err(&e)?;
-                    for (f, v) in values(i).iter().enumerate() {
-                        st.raw_bind_parameter(base + 3 + f, v).map_err(&e)?;
+                    for (f, v) in piece.values[k].iter().enumerate() {
+                        st.raw_bind_parameter(base + 2 + f, v).map_err(&e)?;
                     }
                 }
                 st.raw_execute().map_err(&e)?;
             }
-            for i in first..first + rows {
-                boxes.push((i as i64 + 1, shape(i).bbox()));
-                if (i + 1) % PROGRESS_EVERY == 0 {
-                    done(i + 1);
-                }
-            }
+            boxes.extend_from_slice(&piece.boxes);
+            done(boxes.len());
         }
     }
     drop(full);
@@ -538,12 +562,28 @@ fn fill_layer<'v, const K: usize>(
             &tree.parents,
         )
         .map_err(&e)?;
-        insert_pairs(
-            conn,
-            &format!("\"{rtree}_rowid\" (rowid, nodeno)"),
-            &tree.rowids,
-        )
-        .map_err(&e)?;
+        // The leaf of each feature, by feature id (1..=n): SQLite numbers them so, as the
+        // features (and appends them as it goes).
+        debug_assert!(tree.rowids.iter().zip(1..).all(|(r, id)| r.0 == id));
+        let leaves: Vec<i64> = tree.rowids.iter().map(|r| r.1).collect();
+        insert_column(conn, &format!("\"{rtree}_rowid\" (nodeno)"), &leaves).map_err(&e)?;
+    }
+    // The ids SQLite gave are the feature ids (they are not if a table was not empty).
+    for table in [name.to_string(), format!("{rtree}_rowid")] {
+        let last: Option<i64> = conn
+            .query_row(&format!("SELECT max(rowid) FROM \"{table}\""), [], |r| {
+                r.get(0)
+            })
+            .map_err(&e)?;
+        if last.unwrap_or(0) != n as i64 {
+            return Err(EmitError::Io {
+                path: path.to_path_buf(),
+                source: std::io::Error::other(format!(
+                    "SQLite numbered the {n} rows of table {table} up to {last:?}, \
+                     not 1 to {n}: the table was not empty"
+                )),
+            });
+        }
     }
     if n > 0 {
         let b = boxes.iter().fold(
@@ -623,6 +663,36 @@ fn insert_pairs(
         for (j, (a, b)) in group.iter().enumerate() {
             st.raw_bind_parameter(2 * j + 1, a)?;
             st.raw_bind_parameter(2 * j + 2, b)?;
+        }
+        st.raw_execute()?;
+    }
+    Ok(())
+}
+
+/// Inserts one integer a row into `table_column` (e.g. `"t" (a)`) with multi-row
+/// statements, leaving SQLite to number the rows.
+fn insert_column(
+    conn: &rusqlite::Connection,
+    table_column: &str,
+    values: &[i64],
+) -> rusqlite::Result<()> {
+    let statement = |count: usize| {
+        let mut text = format!("INSERT INTO {table_column} VALUES ");
+        push_marks(&mut text, count, 1);
+        text
+    };
+    let per = 8 * ROWS_PER_STATEMENT;
+    let mut full = conn.prepare(&statement(per))?;
+    for group in values.chunks(per) {
+        let mut partial;
+        let st = if group.len() == per {
+            &mut full
+        } else {
+            partial = conn.prepare(&statement(group.len()))?;
+            &mut partial
+        };
+        for (j, v) in group.iter().enumerate() {
+            st.raw_bind_parameter(j + 1, v)?;
         }
         st.raw_execute()?;
     }
@@ -835,9 +905,6 @@ fn str_groups(items: &mut [(i64, [f32; 4])], capacity: usize) -> Vec<Vec<(i64, [
     groups
 }
 
-/// Features between two progress reports.
-const PROGRESS_EVERY: usize = 16_384;
-
 /// The number of features `control-points.gpkg` holds for `solution` (for a progress bar).
 pub fn control_point_features(solution: &Solution) -> u64 {
     3 * solution.pairs.len() as u64
@@ -906,11 +973,12 @@ pub fn write_control_points(
     create_layers(path, &layers)?;
     let n = s.pairs.len();
     let pairs = &s.pairs;
+    let reference_ids = Gathered::new(n, |i| &result.reference.ids[pairs[i].reference as usize]);
+    let target_ids = Gathered::new(n, |i| &result.target.ids[pairs[i].target as usize]);
     let ids = |i: usize| {
-        let p = &pairs[i];
         (
-            Value::Text(&result.reference.ids[p.reference as usize]),
-            Value::Text(&result.target.ids[p.target as usize]),
+            Value::Text(reference_ids.get(i)),
+            Value::Text(target_ids.get(i)),
         )
     };
     let residual_m = |i: usize| {
@@ -952,6 +1020,45 @@ pub fn write_control_points(
         &mut |k| done(2 * n + k),
     )?;
     finish_filling(conn, path)
+}
+
+/// Strings laid end to end in pieces of [`PIECE`], gathered on the cores at once: the ids
+/// of the control points in pairs order, which every layer binds, read one after another
+/// instead of a pointer chase into the surveys' ids a row (two cache misses each).
+struct Gathered {
+    /// The text of each piece, and where each of its strings ends in it.
+    pieces: Vec<(String, Vec<usize>)>,
+}
+
+impl Gathered {
+    /// Strings `get(0..n)`.
+    fn new<'a>(n: usize, get: impl Fn(usize) -> &'a str + Sync) -> Gathered {
+        use rayon::prelude::*;
+        let pieces = (0..n)
+            .step_by(PIECE)
+            .collect::<Vec<_>>()
+            .into_par_iter()
+            .map(|from| {
+                let to = (from + PIECE).min(n);
+                let mut text = String::with_capacity(16 * (to - from));
+                let mut ends = Vec::with_capacity(to - from + 1);
+                ends.push(0);
+                for i in from..to {
+                    text.push_str(get(i));
+                    ends.push(text.len());
+                }
+                (text, ends)
+            })
+            .collect();
+        Gathered { pieces }
+    }
+
+    /// String `i`.
+    fn get(&self, i: usize) -> &str {
+        let (text, ends) = &self.pieces[i / PIECE];
+        let k = i % PIECE;
+        &text[ends[k]..ends[k + 1]]
+    }
 }
 
 /// Writes a landmark set as points (field `id`) in its own CRS.
