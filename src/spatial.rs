@@ -1,18 +1,23 @@
-//! Small spatial helpers shared by the stages: a k-d tree over points ([`PointIndex`]), a
-//! survey's points with their tree and Morton order ([`Survey`]), spatial ordering of queries,
-//! bounding boxes ([`Extent`]), the median spacing, and the UTM zone of a place
-//! ([`utm_zone_for`]). The k-d tree is checked against brute force in this file's tests.
+//! Small spatial helpers shared by the stages: a k-d tree over points ([`PointIndex`]) with,
+//! built on first use, a uniform grid over the same points for searches within a short radius
+//! ([`PointGrid`]), a survey's points with their tree and Morton order ([`Survey`]), spatial
+//! ordering of queries, bounding boxes ([`Extent`]), the median spacing, and the UTM zone of a
+//! place ([`utm_zone_for`]). The k-d tree and the grid are checked against brute force in this
+//! file's tests.
 //!
 //! kiddo's `SquaredEuclidean` metric returns *squared* distances; every function here says
 //! whether it takes or gives squared values.
 
 use kiddo::{ImmutableKdTree, SquaredEuclidean};
 use std::num::NonZero;
+use std::sync::OnceLock;
 
-/// An immutable 2-D k-d tree whose items are indices into the slice it was built from.
+/// An immutable 2-D k-d tree whose items are indices into the slice it was built from, and the
+/// [`PointGrid`] of that slice once [`PointIndex::grid`] has been asked for it.
 pub struct PointIndex {
     tree: Option<ImmutableKdTree<f64, 2>>,
     len: usize,
+    grid: OnceLock<PointGrid>,
 }
 
 impl PointIndex {
@@ -23,13 +28,28 @@ impl PointIndex {
     /// accepted). Callers report that as too many landmarks.
     pub fn new(points: &[[f64; 2]]) -> Option<Self> {
         if points.is_empty() {
-            return Some(PointIndex { tree: None, len: 0 });
+            return Some(PointIndex {
+                tree: None,
+                len: 0,
+                grid: OnceLock::new(),
+            });
         }
         let tree = ImmutableKdTree::new_from_slice(points).ok()?;
         Some(PointIndex {
             tree: Some(tree),
             len: points.len(),
+            grid: OnceLock::new(),
         })
+    }
+
+    /// The uniform grid of `points`, which must be the slice this index was built from; built
+    /// on the first call (by one thread, the others wait), kept with the index after.
+    ///
+    /// # Panics
+    /// When `points` does not have the length of the indexed slice.
+    pub fn grid(&self, points: &[[f64; 2]]) -> &PointGrid {
+        assert_eq!(points.len(), self.len, "not the points of this index");
+        self.grid.get_or_init(|| PointGrid::new(points))
     }
 
     /// Number of points indexed.
@@ -64,6 +84,223 @@ impl PointIndex {
             .nearest_n::<SquaredEuclidean<f64>>(n)
             .execute();
         out.extend(found.into_iter().map(|r| (r.item, r.distance)));
+    }
+}
+
+/// A uniform grid over points: their indices and coordinates sorted by cell (rows of cells,
+/// each row west to east), with cells about as large as the mean spacing of the points over
+/// their bounding box. It answers searches within a radius exactly, scanning the cells that
+/// the radius reaches; it pays where the radius spans few cells (a fraction of the spacing up
+/// to a few spacings) and the queries come in spatial order.
+///
+/// Squared distances are computed as the k-d tree computes them, (Δx)² + (Δy)², so that both
+/// give the same value bit for bit. Among points at exactly the same distance, the one of the
+/// lowest index counts as the nearer.
+pub struct PointGrid {
+    /// The south-west corner of cell (0, 0).
+    origin: [f64; 2],
+    /// Cells per unit of length (one over the cell's side).
+    per_unit: f64,
+    /// Columns (west to east) and rows (south to north).
+    cols: usize,
+    rows: usize,
+    /// `starts[c]..starts[c + 1]`: cell `c`'s (row-major) entries in `points` and `items`.
+    starts: Vec<u32>,
+    /// Coordinates, by cell.
+    points: Vec<[f64; 2]>,
+    /// Indices into the slice the grid was built from, by cell (ascending within a cell).
+    items: Vec<u32>,
+}
+
+/// At most this many cells per point (where the points fill only a little of their bounding
+/// box, the cells grow instead).
+const CELLS_PER_POINT: usize = 4;
+
+impl PointGrid {
+    /// Builds the grid (a counting sort of the points by cell). Points with a coordinate that
+    /// is not finite are left out (no finite point is at a finite distance from them).
+    pub fn new(points: &[[f64; 2]]) -> Self {
+        let finite = |p: &&[f64; 2]| p[0].is_finite() && p[1].is_finite();
+        let extent = Extent::of(points.iter().filter(finite));
+        let n = points.iter().filter(finite).count();
+        if n == 0 {
+            return PointGrid {
+                origin: [0.0; 2],
+                per_unit: 1.0,
+                cols: 1,
+                rows: 1,
+                starts: vec![0, 0],
+                points: Vec::new(),
+                items: Vec::new(),
+            };
+        }
+        let [w, h] = extent.size();
+        // The mean spacing over the bounding box; along the longer side where the box is flat.
+        let mut side = (w * h / n as f64).sqrt();
+        if !(side > 0.0 && side.is_finite()) {
+            side = w.max(h) / n as f64;
+        }
+        if !(side > 0.0 && side.is_finite()) {
+            side = 1.0;
+        }
+        let fits = |side: f64| {
+            let (c, r) = ((w / side) as usize + 1, (h / side) as usize + 1);
+            c.checked_mul(r)
+                .filter(|&cells| cells <= CELLS_PER_POINT * n + 16)
+                .map(|_| (c, r))
+        };
+        let (cols, rows) = loop {
+            match fits(side) {
+                Some(cr) => break cr,
+                None => side *= 2.0,
+            }
+        };
+        let mut grid = PointGrid {
+            origin: extent.min,
+            per_unit: 1.0 / side,
+            cols,
+            rows,
+            starts: vec![0; cols * rows + 1],
+            points: Vec::with_capacity(n),
+            items: Vec::with_capacity(n),
+        };
+        let cells: Vec<u32> = points
+            .iter()
+            .map(|p| {
+                if finite(&p) {
+                    let c =
+                        grid.cell(p[0], 0, grid.cols) + grid.cols * grid.cell(p[1], 1, grid.rows);
+                    c as u32
+                } else {
+                    u32::MAX
+                }
+            })
+            .collect();
+        for &c in &cells {
+            if c != u32::MAX {
+                grid.starts[c as usize + 1] += 1;
+            }
+        }
+        for c in 0..cols * rows {
+            grid.starts[c + 1] += grid.starts[c];
+        }
+        let mut next = grid.starts.clone();
+        grid.points.resize(n, [0.0; 2]);
+        grid.items.resize(n, 0);
+        for (i, &c) in cells.iter().enumerate() {
+            if c != u32::MAX {
+                let at = next[c as usize] as usize;
+                next[c as usize] += 1;
+                grid.points[at] = points[i];
+                grid.items[at] = i as u32;
+            }
+        }
+        grid
+    }
+
+    /// The cell, along axis `d` of `count` cells, holding coordinate `v` (clamped to the grid).
+    /// (`as` truncates, which is the floor for the non-negative values it is given: the floor
+    /// itself is a library call on the baseline x86-64 target.)
+    #[inline]
+    fn cell(&self, v: f64, d: usize, count: usize) -> usize {
+        let c = (v - self.origin[d]) * self.per_unit;
+        if c >= 0.0 {
+            (c as usize).min(count - 1)
+        } else {
+            0
+        }
+    }
+
+    /// The cells `[x0, x1] × [y0, y1]` that hold every point within `radius` of `p` (a little
+    /// wider, for rounding), or `None` when no cell does.
+    #[inline]
+    fn window(&self, p: [f64; 2], radius: f64) -> Option<[usize; 4]> {
+        // Whatever rounds (p ± r, then the cell), a point whose computed squared distance is
+        // below r² lies within r·(1 + 2ε) on each axis: the margin covers it many times over.
+        let r = radius * (1.0 + 1e-9) + 1e-12 * (p[0].abs().max(p[1].abs()) + radius);
+        let span = |d: usize, count: usize| -> Option<[usize; 2]> {
+            let a = (p[d] - r - self.origin[d]) * self.per_unit;
+            let b = (p[d] + r - self.origin[d]) * self.per_unit;
+            // floor(b) ≥ 0 and floor(a) < count; also false for NaN.
+            if !(b >= 0.0 && a < count as f64) {
+                return None;
+            }
+            Some([
+                if a > 0.0 { a as usize } else { 0 },
+                (b as usize).min(count - 1),
+            ])
+        };
+        let [x0, x1] = span(0, self.cols)?;
+        let [y0, y1] = span(1, self.rows)?;
+        Some([x0, x1, y0, y1])
+    }
+
+    /// The entries of row `y`, columns `x0..=x1`: a range of `points` and `items`.
+    #[inline]
+    fn row(&self, y: usize, x0: usize, x1: usize) -> std::ops::Range<usize> {
+        let base = y * self.cols;
+        self.starts[base + x0] as usize..self.starts[base + x1 + 1] as usize
+    }
+
+    /// The nearest point whose squared distance from `p` is below `radius`²: (index, squared
+    /// distance, position); of several at that distance, the one of the lowest index.
+    #[inline]
+    pub fn nearest_within(&self, p: [f64; 2], radius: f64) -> Option<(u32, f64, [f64; 2])> {
+        let [x0, x1, y0, y1] = self.window(p, radius)?;
+        let mut best: Option<(u32, f64, [f64; 2])> = None;
+        let mut limit = radius * radius;
+        for y in y0..=y1 {
+            let range = self.row(y, x0, x1);
+            for (q, &item) in self.points[range.clone()].iter().zip(&self.items[range]) {
+                let d2 = dist2(*q, p);
+                if d2 < limit || (d2 == limit && best.is_some_and(|b| item < b.0)) {
+                    limit = d2;
+                    best = Some((item, d2, *q));
+                }
+            }
+        }
+        best
+    }
+
+    /// Whether some point lies at a squared distance below `radius`² from `p`.
+    #[inline]
+    pub fn any_within(&self, p: [f64; 2], radius: f64) -> bool {
+        let Some([x0, x1, y0, y1]) = self.window(p, radius) else {
+            return false;
+        };
+        let limit = radius * radius;
+        // Rows from the one of `p` outwards: the likeliest first.
+        let mid = self.cell(p[1], 1, self.rows).clamp(y0, y1);
+        let rows = (mid..=y1).chain((y0..mid).rev());
+        for y in rows {
+            let range = self.row(y, x0, x1);
+            if self.points[range].iter().any(|q| dist2(*q, p) < limit) {
+                return true;
+            }
+        }
+        false
+    }
+
+    /// Whether some point other than `item` is nearer to `p` than `d2` (squared), or as near
+    /// with a lower index: false exactly when `item`, at squared distance `d2` from `p`, is the
+    /// nearest point to `p` ([`PointGrid::nearest_within`]'s choice among equals).
+    #[inline]
+    pub fn beaten(&self, p: [f64; 2], item: u32, d2: f64) -> bool {
+        let Some([x0, x1, y0, y1]) = self.window(p, d2.sqrt()) else {
+            return false;
+        };
+        let mid = self.cell(p[1], 1, self.rows).clamp(y0, y1);
+        let rows = (mid..=y1).chain((y0..mid).rev());
+        for y in rows {
+            let range = self.row(y, x0, x1);
+            for (q, &other) in self.points[range.clone()].iter().zip(&self.items[range]) {
+                let e = dist2(*q, p);
+                if e < d2 || (e == d2 && other < item) {
+                    return true;
+                }
+            }
+        }
+        false
     }
 }
 
@@ -162,7 +399,8 @@ fn interleave(v: u32) -> u64 {
     x
 }
 
-/// Squared distance between two points.
+/// Squared distance between two points, (Δx)² + (Δy)² as kiddo's `SquaredEuclidean` computes
+/// it (the same value bit for bit).
 #[inline]
 pub fn dist2(a: [f64; 2], b: [f64; 2]) -> f64 {
     (a[0] - b[0]).powi(2) + (a[1] - b[1]).powi(2)
@@ -225,6 +463,152 @@ mod tests {
             let got: Vec<u32> = out.iter().map(|x| x.0).collect();
             assert_eq!(got, want);
             assert_eq!(out[7].1, brute[7].1);
+        }
+    }
+
+    /// Points on a coarse lattice (many exactly equal distances), a few exact duplicates, and
+    /// random points; queries at lattice points, between them, and outside the points' box.
+    fn grid_case(rng: &mut rand_chacha::ChaCha8Rng) -> (Vec<[f64; 2]>, Vec<[f64; 2]>) {
+        let mut pts: Vec<[f64; 2]> = (0..1500)
+            .map(|_| {
+                [
+                    rng.gen_range(0..40) as f64 * 2.5,
+                    rng.gen_range(0..40) as f64 * 2.5,
+                ]
+            })
+            .collect();
+        pts.extend((0..1500).map(|_| [rng.gen_range(0.0..100.0), rng.gen_range(0.0..100.0)]));
+        for i in 0..50 {
+            pts.push(pts[i * 7]);
+        }
+        let mut queries: Vec<[f64; 2]> = (0..400)
+            .map(|_| {
+                [
+                    rng.gen_range(-4..44) as f64 * 1.25,
+                    rng.gen_range(-4..44) as f64 * 1.25,
+                ]
+            })
+            .collect();
+        queries
+            .extend((0..400).map(|_| [rng.gen_range(-10.0..110.0), rng.gen_range(-10.0..110.0)]));
+        queries.extend(pts.iter().step_by(11).copied());
+        (pts, queries)
+    }
+
+    /// (index, squared distance) of every point, nearest first, lowest index first among equals.
+    fn brute(pts: &[[f64; 2]], q: [f64; 2]) -> Vec<(u32, f64)> {
+        let mut all: Vec<(u32, f64)> = pts
+            .iter()
+            .enumerate()
+            .map(|(i, p)| (i as u32, dist2(*p, q)))
+            .collect();
+        all.sort_by(|a, b| a.1.total_cmp(&b.1).then(a.0.cmp(&b.0)));
+        all
+    }
+
+    #[test]
+    fn grid_searches_agree_with_brute_force_ties_included() {
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(11);
+        let (pts, queries) = grid_case(&mut rng);
+        let grid = PointGrid::new(&pts);
+        let (mut ties, mut found, mut missed) = (0, 0, 0);
+        for &q in &queries {
+            let all = brute(&pts, q);
+            ties += usize::from(all[0].1 == all[1].1);
+            // Radii of a fraction of a cell up to many cells, and exactly a point's distance
+            // (the search is for distances strictly below the radius).
+            for r in [
+                0.3,
+                1.0,
+                2.5,
+                4.0,
+                9.0,
+                30.0,
+                all[0].1.sqrt(),
+                all[3].1.sqrt(),
+            ] {
+                let want = all.iter().copied().find(|a| a.1 < r * r);
+                let got = grid.nearest_within(q, r);
+                assert_eq!(got.map(|g| (g.0, g.1)), want, "query {q:?} radius {r}");
+                if let Some((i, _, at)) = got {
+                    assert_eq!(at, pts[i as usize]);
+                }
+                assert_eq!(
+                    grid.any_within(q, r),
+                    want.is_some(),
+                    "query {q:?} radius {r}"
+                );
+                found += usize::from(want.is_some());
+                missed += usize::from(want.is_none());
+            }
+            // Each of the nearest few: beaten exactly when it is not the first of `all`.
+            for (k, &(item, d2)) in all.iter().take(4).enumerate() {
+                assert_eq!(grid.beaten(q, item, d2), k > 0, "query {q:?} item {item}");
+            }
+        }
+        // Else the test could not tell a tie rule or a radius rule from another.
+        assert!(ties > 100, "{ties}");
+        assert!(found > 1000 && missed > 1000, "{found} {missed}");
+    }
+
+    /// The grid's squared distances are the k-d tree's, bit for bit, and so are its nearest
+    /// points wherever the nearest is unique.
+    #[test]
+    fn grid_gives_the_trees_distances() {
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(12);
+        let pts: Vec<[f64; 2]> = (0..5000)
+            .map(|_| [rng.gen_range(4.9e5..5.1e5), rng.gen_range(5.29e6..5.31e6)])
+            .collect();
+        let index = PointIndex::new(&pts).unwrap();
+        let grid = index.grid(&pts);
+        for _ in 0..2000 {
+            let q = [
+                rng.gen_range(4.89e5..5.11e5),
+                rng.gen_range(5.289e6..5.311e6),
+            ];
+            let (i, d2) = index.nearest(q).unwrap();
+            let at = pts[i as usize];
+            assert_eq!(grid.nearest_within(q, 1e5), Some((i, d2, at)));
+            assert_eq!(
+                grid.nearest_within(q, d2.sqrt() * 1.0001),
+                Some((i, d2, at))
+            );
+        }
+    }
+
+    #[test]
+    fn grid_of_degenerate_point_sets() {
+        // Empty, one point, all on one spot, on one line, and with points that are not finite.
+        let sets: Vec<Vec<[f64; 2]>> = vec![
+            vec![],
+            vec![[3.0, 4.0]],
+            vec![[1.0, 1.0]; 20],
+            (0..100).map(|i| [i as f64, 7.0]).collect(),
+            vec![
+                [0.0, 0.0],
+                [f64::NAN, 1.0],
+                [f64::INFINITY, 0.0],
+                [2.0, 2.0],
+            ],
+        ];
+        let queries = [
+            [0.0, 0.0],
+            [1.0, 1.0],
+            [50.2, 7.5],
+            [2.0, 1.0],
+            [-1e300, 5.0],
+            [f64::NAN, 0.0],
+        ];
+        for pts in &sets {
+            let grid = PointGrid::new(pts);
+            for &q in &queries {
+                for r in [0.5, 2.0, 1e3] {
+                    let want = brute(pts, q).into_iter().find(|a| a.1 < r * r);
+                    let got = grid.nearest_within(q, r).map(|g| (g.0, g.1));
+                    assert_eq!(got, want, "{pts:?} {q:?} {r}");
+                    assert_eq!(grid.any_within(q, r), want.is_some());
+                }
+            }
         }
     }
 

@@ -1,9 +1,13 @@
 //! Guided matching: given a transform, pair every target landmark with its mutual nearest
 //! reference landmark within the tolerance, refit, and repeat until the pairs stop changing.
 //!
-//! Mutual nearest neighbours are found with the two surveys' own k-d trees: the reference
-//! nearest to S(t), and the target nearest to S⁻¹(r). A similarity scales all distances alike,
-//! so the second query finds exactly the mapped target nearest to r.
+//! Mutual nearest neighbours are found with the two surveys' own uniform grids
+//! ([`crate::spatial::PointGrid`], built once per survey on first use): the reference nearest
+//! to S(t) within the tolerance, and whether any target is nearer to S⁻¹(r) than t. A
+//! similarity scales all distances alike, so the second search asks exactly whether another
+//! mapped target is nearer to r. Of landmarks at exactly the same distance, the one of the
+//! lowest index counts as the nearer (deterministic; a k-d tree's choice among equals depends
+//! on its layout).
 
 use super::similarity::{fit_similarity_indexed, Similarity, SimilarityFit};
 use crate::spatial::PointIndex;
@@ -26,9 +30,9 @@ pub struct Frames<'a> {
     pub reference: &'a [[f64; 2]],
     /// Target landmark positions.
     pub target: &'a [[f64; 2]],
-    /// k-d tree of `reference`.
+    /// Index of `reference` (its grid is what the pairing searches).
     pub reference_index: &'a PointIndex,
-    /// k-d tree of `target`.
+    /// Index of `target` (its grid is what the pairing searches).
     pub target_index: &'a PointIndex,
 }
 
@@ -49,31 +53,64 @@ pub fn mutual_pairs(
     coverage: f64,
     subset: Option<&[u32]>,
 ) -> (Vec<Pair>, usize) {
+    pair_up(frames, &Visits::of(frames, subset), s, tolerance, coverage)
+}
+
+/// The target landmarks a pairing visits, with their positions in visiting order (read once
+/// per guided match rather than once per round, and then in order).
+struct Visits<'a> {
+    ids: Option<&'a [u32]>,
+    points: std::borrow::Cow<'a, [[f64; 2]]>,
+}
+
+impl<'a> Visits<'a> {
+    fn of(frames: &Frames<'a>, subset: Option<&'a [u32]>) -> Self {
+        let points = match subset {
+            None => std::borrow::Cow::Borrowed(frames.target),
+            Some(ids) => ids.iter().map(|&t| frames.target[t as usize]).collect(),
+        };
+        Visits {
+            ids: subset,
+            points,
+        }
+    }
+}
+
+/// [`mutual_pairs`] of `visits`.
+fn pair_up(
+    frames: &Frames,
+    visits: &Visits,
+    s: &Similarity,
+    tolerance: f64,
+    coverage: f64,
+) -> (Vec<Pair>, usize) {
     let inv = s.inverse();
     let tol2 = tolerance * tolerance;
     let cov2 = coverage * coverage;
-    // Landmark `t`: its pair, if any, pushed to `pairs`; true when it is covered.
-    let visit = |t: u32, pairs: &mut Vec<Pair>| -> bool {
-        let p = s.apply(frames.target[t as usize]);
-        let Some((r, d2)) = frames.reference_index.nearest(p) else {
-            return false;
+    let reference = frames.reference_index.grid(frames.reference);
+    let target = frames.target_index.grid(frames.target);
+    // Landmark `t` at `at`: its pair, if any, pushed to `pairs`; true when it is covered. The
+    // nearest reference landmark matters only within the tolerance (a pair) or the coverage
+    // (a trial), so the grids' searches within those radii give what the nearest overall
+    // would.
+    let visit = |t: u32, at: [f64; 2], pairs: &mut Vec<Pair>| -> bool {
+        let p = s.apply(at);
+        let Some((r, d2, there)) = reference.nearest_within(p, tolerance) else {
+            // The nearest lies at tol² or beyond: covered when one lies below cov².
+            return cov2 > tol2 && reference.any_within(p, coverage);
         };
-        if d2 < tol2 {
-            let q = inv.apply(frames.reference[r as usize]);
-            if let Some((back, _)) = frames.target_index.nearest(q) {
-                if back == t {
-                    pairs.push(Pair {
-                        reference: r,
-                        target: t,
-                        residual: d2.sqrt(),
-                    });
-                }
-            }
+        let q = inv.apply(there);
+        if !target.beaten(q, t, crate::spatial::dist2(at, q)) {
+            pairs.push(Pair {
+                reference: r,
+                target: t,
+                residual: d2.sqrt(),
+            });
         }
         d2 < cov2
     };
-    let total = subset.map_or(frames.target.len(), <[u32]>::len);
-    let at = |i: usize| subset.map_or(i as u32, |ids| ids[i]);
+    let total = visits.points.len();
+    let id = |i: usize| visits.ids.map_or(i as u32, |ids| ids[i]);
     let runs: Vec<(Vec<Pair>, usize)> = (0..total.div_ceil(LANDMARKS_PER_TASK))
         .into_par_iter()
         .map(|run| {
@@ -81,7 +118,7 @@ pub fn mutual_pairs(
             let mut covered = 0;
             let end = ((run + 1) * LANDMARKS_PER_TASK).min(total);
             for i in run * LANDMARKS_PER_TASK..end {
-                covered += usize::from(visit(at(i), &mut pairs));
+                covered += usize::from(visit(id(i), visits.points[i], &mut pairs));
             }
             (pairs, covered)
         })
@@ -135,8 +172,9 @@ pub fn guided_match(
             .iter()
             .all(|&p| crate::spatial::dist2(a.apply(p), b.apply(p)) < (1e-3 * tolerance).powi(2))
     };
+    let visits = Visits::of(frames, subset);
     let mut s = start;
-    let (mut pairs, mut covered) = mutual_pairs(frames, &s, tolerance, coverage, subset);
+    let (mut pairs, mut covered) = pair_up(frames, &visits, &s, tolerance, coverage);
     let mut rounds = 0;
     while rounds < max_rounds && pairs.len() >= 2 {
         let Some(fit) = refit(frames, &pairs) else {
@@ -147,8 +185,7 @@ pub fn guided_match(
         }
         rounds += 1;
         let still = settled(&s, &fit.transform);
-        let (next, next_covered) =
-            mutual_pairs(frames, &fit.transform, tolerance, coverage, subset);
+        let (next, next_covered) = pair_up(frames, &visits, &fit.transform, tolerance, coverage);
         let same = next.len() == pairs.len()
             && next
                 .iter()
