@@ -6,10 +6,11 @@
 //!
 //! The reference keys go into a kiddo k-d tree of the keys' dimension (per harmonic 2 in the
 //! unit disc, 3 on the unit sphere: 2, 3, 4 or 6); every target key asks for its nearest few.
-//! Queries run in Morton order of the keys' first two coordinates, so that consecutive queries
+//! Queries run in Morton order over all the keys' coordinates, so that consecutive queries
 //! touch nearby leaves, shared between the threads of the current rayon pool in runs of
-//! consecutive queries; the candidates are the same, in the same order, whatever the number of
-//! threads.
+//! consecutive queries. The candidates are then listed by target in Morton order of the keys'
+//! first two coordinates (which decides the order of equal scores) and sorted by score: the
+//! same candidates, in the same order, whatever the number of threads.
 
 mod params;
 
@@ -157,19 +158,53 @@ pub fn candidates(
     Ok(out)
 }
 
-/// Key `i` of `s` as a point of the key space.
-#[inline]
-fn key_point<const K: usize>(s: &Signatures, i: usize) -> [f64; K] {
-    let k = &s.keys[i * K..(i + 1) * K];
-    std::array::from_fn(|d| k[d])
-}
-
 /// The arguments of one [`candidates`] call.
 struct Query<'a> {
     reference: &'a Signatures,
     target: &'a Signatures,
     per_query: usize,
     rank: Rank,
+}
+
+/// Indices of `keys` in Morton order over all K coordinates (each quantised to 64 / K bits
+/// over the keys' range on that coordinate): keys close in every coordinate come close in the
+/// order.
+fn key_order<const K: usize>(keys: &[[f64; K]]) -> Vec<u32> {
+    let bits = 64 / K as u32;
+    let mut lo = [f64::INFINITY; K];
+    let mut hi = [f64::NEG_INFINITY; K];
+    for k in keys {
+        for d in 0..K {
+            lo[d] = lo[d].min(k[d]);
+            hi[d] = hi[d].max(k[d]);
+        }
+    }
+    let top = ((1u64 << bits) - 1) as f64;
+    let scale: [f64; K] = std::array::from_fn(|d| {
+        let span = hi[d] - lo[d];
+        if span > 0.0 {
+            top / span
+        } else {
+            0.0
+        }
+    });
+    let mut keyed: Vec<(u64, u32)> = keys
+        .iter()
+        .enumerate()
+        .map(|(i, k)| {
+            let q: [u64; K] =
+                std::array::from_fn(|d| (((k[d] - lo[d]) * scale[d]) as u64).min(top as u64));
+            let mut code = 0u64;
+            for b in (0..bits).rev() {
+                for qd in q {
+                    code = (code << 1) | ((qd >> b) & 1);
+                }
+            }
+            (code, i as u32)
+        })
+        .collect();
+    keyed.sort_unstable();
+    keyed.into_iter().map(|(_, i)| i).collect()
 }
 
 /// Target signatures one rayon task queries.
@@ -191,14 +226,20 @@ fn candidates_k<const K: usize>(
     let (rkeys, _) = reference.keys.as_chunks::<K>();
     let tree = ImmutableKdTree::<f64, K>::new_from_slice(rkeys)
         .map_err(|e| MatchingError::from_kiddo(e, K, rkeys.len()))?;
-    let order = {
+    // The order the candidates are listed in (and so, through the stable sort by score, the
+    // order of equal scores): Morton order of the keys' first two coordinates.
+    let listed = {
         let first_two: Vec<[f64; 2]> = target.keys.chunks_exact(K).map(|k| [k[0], k[1]]).collect();
         morton_order(&first_two)
     };
+    // The order the queries run in: Morton order over all K coordinates, so that consecutive
+    // queries descend to the same leaves of the tree.
+    let (tkeys, _) = target.keys.as_chunks::<K>();
+    let order = key_order(tkeys);
     // One query: its candidates appended to `out`.
-    let query = |t: u32, out: &mut Vec<Candidate>| {
+    let query = |t: u32, key: &[f64; K], out: &mut Vec<Candidate>| {
         let found = tree
-            .query(&key_point::<K>(target, t as usize))
+            .query(key)
             .nearest_n::<SquaredEuclidean<f64>>(n)
             .execute();
         let start = out.len();
@@ -218,26 +259,52 @@ fn candidates_k<const K: usize>(
             out.truncate(start + per_query);
         }
     };
-    // Queries in Morton order, in tasks of consecutive queries, one batch of tasks per thread
-    // at a time; the tasks' candidates are appended in task order, so the result does not
-    // depend on the number of threads.
-    let mut out = Vec::with_capacity(target.len() * per_query);
+    // Queries in key order, in tasks of consecutive queries, one batch of tasks per thread at a
+    // time; each query's candidates stay together, and are put in `listed` order at the end,
+    // so the result does not depend on the number of threads.
+    let mut found = Vec::with_capacity(target.len() * per_query);
+    // Where the candidates of the i-th query of `order` end in `found`.
+    let mut ends: Vec<u32> = Vec::with_capacity(target.len());
     let batch = QUERIES_PER_TASK * rayon::current_num_threads().max(1);
     let mut done = 0;
     for queries in order.chunks(batch) {
-        let found: Vec<Vec<Candidate>> = queries
+        let runs: Vec<(Vec<Candidate>, Vec<u32>)> = queries
             .par_chunks(QUERIES_PER_TASK)
             .map(|ids| {
                 let mut mine = Vec::with_capacity(ids.len() * per_query);
-                ids.iter().for_each(|&t| query(t, &mut mine));
-                mine
+                let mut counts = Vec::with_capacity(ids.len());
+                // The keys first, in query order (their reads overlap, not each query's).
+                let keys: Vec<[f64; K]> = ids.iter().map(|&t| tkeys[t as usize]).collect();
+                for (&t, key) in ids.iter().zip(&keys) {
+                    let before = mine.len();
+                    query(t, key, &mut mine);
+                    counts.push((mine.len() - before) as u32);
+                }
+                (mine, counts)
             })
             .collect();
-        for f in found {
-            out.extend_from_slice(&f);
+        for (f, counts) in runs {
+            let base = found.len() as u32;
+            let mut end = base;
+            ends.extend(counts.iter().map(|&c| {
+                end += c;
+                end
+            }));
+            found.extend_from_slice(&f);
         }
         done += queries.len();
         progress(done);
+    }
+    // Where each target signature was queried in `order`.
+    let mut at = vec![0u32; target.len()];
+    for (i, &t) in order.iter().enumerate() {
+        at[t as usize] = i as u32;
+    }
+    let mut out = Vec::with_capacity(found.len());
+    for &t in &listed {
+        let i = at[t as usize] as usize;
+        let start = if i == 0 { 0 } else { ends[i - 1] as usize };
+        out.extend_from_slice(&found[start..ends[i] as usize]);
     }
     Ok(out)
 }
@@ -313,6 +380,69 @@ mod tests {
                 }
             }
         }
+    }
+
+    /// The whole list, in order: candidates by target in Morton order of the keys' first two
+    /// coordinates, nearest first, then stably sorted by score; many exactly equal scores
+    /// (keys repeated in both surveys), so that the order among equals is tested too.
+    #[test]
+    fn candidates_come_in_the_documented_order_ties_included() {
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(5);
+        for dims in [2, 6] {
+            let mut r = random_sigs(&mut rng, 3000, dims);
+            let mut t = random_sigs(&mut rng, 400, dims);
+            // Every 5th target key is a reference key, and so is its twin in the reference:
+            // two equal distances of 0 each.
+            for i in (0..t.len()).step_by(5) {
+                let k = r.key(i).to_vec();
+                t.keys[i * dims..(i + 1) * dims].copy_from_slice(&k);
+                r.keys[(i + 1000) * dims..(i + 1001) * dims].copy_from_slice(&k);
+            }
+            let got = candidates(&r, &t, 2, Rank::Distance, &mut |_| {}).unwrap();
+            let first_two: Vec<[f64; 2]> =
+                t.keys.chunks_exact(dims).map(|k| [k[0], k[1]]).collect();
+            let mut want = Vec::new();
+            for ti in morton_order(&first_two) {
+                let mut near = by_distance(&r, &t, ti as usize);
+                near.truncate(2);
+                want.extend(near.into_iter().map(|(i, d)| (ti, i as u32, d)));
+            }
+            want.sort_by(|a, b| a.2.total_cmp(&b.2));
+            assert_eq!(got.len(), want.len());
+            let zeros = want.iter().filter(|w| w.2 == 0.0).count();
+            assert!(zeros >= 150, "dims {dims}: {zeros}");
+            for (g, w) in got.iter().zip(&want) {
+                assert_eq!(g.target, w.0, "dims {dims}");
+                assert!((g.score - w.2).abs() <= 1e-12, "dims {dims}");
+                // Of two equal keys (twins) either may come first in one query's list.
+                assert_eq!(
+                    r.key(g.reference as usize),
+                    r.key(w.1 as usize),
+                    "dims {dims}"
+                );
+            }
+        }
+    }
+
+    #[test]
+    fn key_order_is_a_permutation_that_keeps_near_keys_near() {
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(6);
+        let s = random_sigs(&mut rng, 5000, 6);
+        let (keys, _) = s.keys.as_chunks::<6>();
+        let order = key_order(keys);
+        let mut sorted = order.clone();
+        sorted.sort_unstable();
+        assert_eq!(sorted, (0..5000).collect::<Vec<u32>>());
+        // Consecutive keys of the order are far nearer than consecutive keys of the file.
+        let step = |ids: &mut dyn Iterator<Item = u32>| {
+            let ids: Vec<u32> = ids.collect();
+            ids.windows(2)
+                .map(|w| key_distance(&s, w[0] as usize, &s, w[1] as usize))
+                .sum::<f64>()
+        };
+        let along = step(&mut order.iter().copied());
+        let file = step(&mut (0..5000u32));
+        assert!(along < 0.5 * file, "{along} {file}");
     }
 
     /// Rank::Sensitivity as documented: the 2·per_query nearest by key distance, ranked by
