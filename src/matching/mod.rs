@@ -147,15 +147,13 @@ pub fn candidates(
         per_query,
         rank,
     };
-    let mut out = match reference.key_dims {
+    match reference.key_dims {
         2 => candidates_k::<2>(&query, progress),
         3 => candidates_k::<3>(&query, progress),
         4 => candidates_k::<4>(&query, progress),
         6 => candidates_k::<6>(&query, progress),
         d => panic!("unsupported key dimension {d}"),
-    }?;
-    out.sort_by(|a, b| a.score.total_cmp(&b.score));
-    Ok(out)
+    }
 }
 
 /// The arguments of one [`candidates`] call.
@@ -226,8 +224,8 @@ fn candidates_k<const K: usize>(
     let (rkeys, _) = reference.keys.as_chunks::<K>();
     let tree = ImmutableKdTree::<f64, K>::new_from_slice(rkeys)
         .map_err(|e| MatchingError::from_kiddo(e, K, rkeys.len()))?;
-    // The order the candidates are listed in (and so, through the stable sort by score, the
-    // order of equal scores): Morton order of the keys' first two coordinates.
+    // The order equal scores come in: as if the queries ran in Morton order of the keys' first
+    // two coordinates, their candidates appended in that order, then stably sorted by score.
     let listed = {
         let first_two: Vec<[f64; 2]> = target.keys.chunks_exact(K).map(|k| [k[0], k[1]]).collect();
         morton_order(&first_two)
@@ -260,52 +258,41 @@ fn candidates_k<const K: usize>(
         }
     };
     // Queries in key order, in tasks of consecutive queries, one batch of tasks per thread at a
-    // time; each query's candidates stay together, and are put in `listed` order at the end,
-    // so the result does not depend on the number of threads.
-    let mut found = Vec::with_capacity(target.len() * per_query);
-    // Where the candidates of the i-th query of `order` end in `found`.
-    let mut ends: Vec<u32> = Vec::with_capacity(target.len());
+    // time; the tasks' candidates are appended in task order, so the result does not depend
+    // on the number of threads.
+    let mut out = Vec::with_capacity(target.len() * per_query);
     let batch = QUERIES_PER_TASK * rayon::current_num_threads().max(1);
     let mut done = 0;
     for queries in order.chunks(batch) {
-        let runs: Vec<(Vec<Candidate>, Vec<u32>)> = queries
+        let found: Vec<Vec<Candidate>> = queries
             .par_chunks(QUERIES_PER_TASK)
             .map(|ids| {
                 let mut mine = Vec::with_capacity(ids.len() * per_query);
-                let mut counts = Vec::with_capacity(ids.len());
                 // The keys first, in query order (their reads overlap, not each query's).
                 let keys: Vec<[f64; K]> = ids.iter().map(|&t| tkeys[t as usize]).collect();
                 for (&t, key) in ids.iter().zip(&keys) {
-                    let before = mine.len();
                     query(t, key, &mut mine);
-                    counts.push((mine.len() - before) as u32);
                 }
-                (mine, counts)
+                mine
             })
             .collect();
-        for (f, counts) in runs {
-            let base = found.len() as u32;
-            let mut end = base;
-            ends.extend(counts.iter().map(|&c| {
-                end += c;
-                end
-            }));
-            found.extend_from_slice(&f);
+        for f in found {
+            out.extend_from_slice(&f);
         }
         done += queries.len();
         progress(done);
     }
-    // Where each target signature was queried in `order`.
-    let mut at = vec![0u32; target.len()];
-    for (i, &t) in order.iter().enumerate() {
-        at[t as usize] = i as u32;
+    // By score, and equal scores as if the queries had run in `listed` order: by the target's
+    // place in it, then (the stable sort) as its query gave them.
+    let mut place = vec![0u32; target.len()];
+    for (i, &t) in listed.iter().enumerate() {
+        place[t as usize] = i as u32;
     }
-    let mut out = Vec::with_capacity(found.len());
-    for &t in &listed {
-        let i = at[t as usize] as usize;
-        let start = if i == 0 { 0 } else { ends[i - 1] as usize };
-        out.extend_from_slice(&found[start..ends[i] as usize]);
-    }
+    out.sort_by(|a, b| {
+        a.score
+            .total_cmp(&b.score)
+            .then_with(|| place[a.target as usize].cmp(&place[b.target as usize]))
+    });
     Ok(out)
 }
 
