@@ -282,6 +282,8 @@ fn candidates_k<const K: usize>(
         done += queries.len();
         progress(done);
     }
+    // The tree goes before the sort's scratch comes.
+    drop(tree);
     // By score, and equal scores as if the queries had run in `listed` order: by the target's
     // place in it, then (the stable sort) as its query gave them.
     let mut place = vec![0u32; target.len()];
