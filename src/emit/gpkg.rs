@@ -556,7 +556,7 @@ fn fill_layer<'v, const K: usize>(
             let blob = tree.node_blob(i, cells, node_bytes);
             st.execute(rusqlite::params![node, blob]).map_err(&e)?;
         }
-        insert_pairs(
+        insert_rows(
             conn,
             &format!("\"{rtree}_parent\" (nodeno, parentnode)"),
             &tree.parents,
@@ -565,8 +565,8 @@ fn fill_layer<'v, const K: usize>(
         // The leaf of each feature, by feature id (1..=n): SQLite numbers them so, as the
         // features (and appends them as it goes).
         debug_assert!(tree.rowids.iter().zip(1..).all(|(r, id)| r.0 == id));
-        let leaves: Vec<i64> = tree.rowids.iter().map(|r| r.1).collect();
-        insert_column(conn, &format!("\"{rtree}_rowid\" (nodeno)"), &leaves).map_err(&e)?;
+        let leaves: Vec<[i64; 1]> = tree.rowids.iter().map(|r| [r.1]).collect();
+        insert_rows(conn, &format!("\"{rtree}_rowid\" (nodeno)"), &leaves).map_err(&e)?;
     }
     // The ids SQLite gave are the feature ids (they are not if a table was not empty).
     for table in [name.to_string(), format!("{rtree}_rowid")] {
@@ -639,18 +639,19 @@ fn push_marks(text: &mut String, rows: usize, width: usize) {
     }
 }
 
-/// Inserts integer pairs into `table_columns` (e.g. `"t" (a, b)`) with multi-row statements.
-fn insert_pairs(
+/// Inserts rows of `N` integers into `table_columns` (e.g. `"t" (a, b)`, the columns
+/// given, any others left to SQLite) with multi-row statements.
+fn insert_rows<const N: usize>(
     conn: &rusqlite::Connection,
     table_columns: &str,
-    rows: &[(i64, i64)],
+    rows: &[[i64; N]],
 ) -> rusqlite::Result<()> {
     let statement = |count: usize| {
         let mut text = format!("INSERT INTO {table_columns} VALUES ");
-        push_marks(&mut text, count, 2);
+        push_marks(&mut text, count, N);
         text
     };
-    let per = 4 * ROWS_PER_STATEMENT;
+    let per = 8 * ROWS_PER_STATEMENT / N;
     let mut full = conn.prepare(&statement(per))?;
     for group in rows.chunks(per) {
         let mut partial;
@@ -660,39 +661,10 @@ fn insert_pairs(
             partial = conn.prepare(&statement(group.len()))?;
             &mut partial
         };
-        for (j, (a, b)) in group.iter().enumerate() {
-            st.raw_bind_parameter(2 * j + 1, a)?;
-            st.raw_bind_parameter(2 * j + 2, b)?;
-        }
-        st.raw_execute()?;
-    }
-    Ok(())
-}
-
-/// Inserts one integer a row into `table_column` (e.g. `"t" (a)`) with multi-row
-/// statements, leaving SQLite to number the rows.
-fn insert_column(
-    conn: &rusqlite::Connection,
-    table_column: &str,
-    values: &[i64],
-) -> rusqlite::Result<()> {
-    let statement = |count: usize| {
-        let mut text = format!("INSERT INTO {table_column} VALUES ");
-        push_marks(&mut text, count, 1);
-        text
-    };
-    let per = 8 * ROWS_PER_STATEMENT;
-    let mut full = conn.prepare(&statement(per))?;
-    for group in values.chunks(per) {
-        let mut partial;
-        let st = if group.len() == per {
-            &mut full
-        } else {
-            partial = conn.prepare(&statement(group.len()))?;
-            &mut partial
-        };
-        for (j, v) in group.iter().enumerate() {
-            st.raw_bind_parameter(j + 1, v)?;
+        for (j, row) in group.iter().enumerate() {
+            for (k, v) in row.iter().enumerate() {
+                st.raw_bind_parameter(N * j + k + 1, v)?;
+            }
         }
         st.raw_execute()?;
     }
@@ -746,7 +718,7 @@ struct PackedTree {
     /// Levels above the leaves.
     depth: u16,
     /// (node, parent) of every node but the root, by node.
-    parents: Vec<(i64, i64)>,
+    parents: Vec<[i64; 2]>,
     /// (feature id, leaf node) of every feature, by feature id.
     rowids: Vec<(i64, i64)>,
 }
@@ -779,7 +751,7 @@ impl PackedTree {
                     if leaves {
                         rowids.push((*child, 1));
                     } else {
-                        parents.push((*child, 1));
+                        parents.push([*child, 1]);
                     }
                 }
                 nodes.push((1, cells));
@@ -793,7 +765,7 @@ impl PackedTree {
                     if leaves {
                         rowids.push((*child, node));
                     } else {
-                        parents.push((*child, node));
+                        parents.push([*child, node]);
                     }
                 }
                 let b = cells.iter().fold(
@@ -1181,7 +1153,7 @@ mod tests {
             }
             // Every child's cells within its parent's cell for it; nodes at most full and,
             // but for the root, at least half full.
-            for (node, parent) in &tree.parents {
+            for [node, parent] in &tree.parents {
                 let within = nodes[parent].iter().find(|c| c.0 == *node).unwrap().1;
                 for (_, c) in nodes[node].iter() {
                     assert!(c[0] >= within[0] && c[1] <= within[1]);
