@@ -262,6 +262,87 @@ impl PointGrid {
         best
     }
 
+    /// The `n` nearest points to `p`, nearest first and, among points at exactly the same
+    /// distance, the lowest index first, written to `out` as (index, squared distance); fewer
+    /// when the grid holds fewer. Nothing for a `p` that is not finite.
+    ///
+    /// The search scans rings of cells around `p`'s cell, outwards, and stops once the `n`-th
+    /// nearest found so far is nearer than any cell not yet scanned can be. With cells about
+    /// the mean spacing and `n` a few, that is two rings (25 cells).
+    pub fn nearest_n(&self, p: [f64; 2], n: usize, out: &mut Vec<(u32, f64)>) {
+        out.clear();
+        if n == 0 || self.items.is_empty() || !(p[0].is_finite() && p[1].is_finite()) {
+            return;
+        }
+        let (cols, rows) = (self.cols, self.rows);
+        let (cx, cy) = (self.cell(p[0], 0, cols), self.cell(p[1], 1, rows));
+        let side = 1.0 / self.per_unit;
+        // Cell edges computed here and cells computed for the points may differ by rounding:
+        // the bound is lowered by far more than that.
+        let slack = 1e-9
+            * (side + p[0].abs().max(p[1].abs()) + self.origin[0].abs().max(self.origin[1].abs()));
+        let scan = |range: std::ops::Range<usize>, out: &mut Vec<(u32, f64)>| {
+            for (q, &item) in self.points[range.clone()].iter().zip(&self.items[range]) {
+                let d2 = dist2(*q, p);
+                let before = |&(i, d): &(u32, f64)| d < d2 || (d == d2 && i < item);
+                if out.len() == n {
+                    if out.last().is_some_and(before) {
+                        continue;
+                    }
+                    out.pop();
+                }
+                let at = out.partition_point(before);
+                out.insert(at, (item, d2));
+            }
+        };
+        let mut h = 0usize;
+        loop {
+            // Ring h: the cells at Chebyshev distance h from (cx, cy), within the grid.
+            let x0 = cx.saturating_sub(h);
+            let x1 = (cx + h).min(cols - 1);
+            if cy >= h {
+                scan(self.row(cy - h, x0, x1), out);
+            }
+            if h > 0 && cy + h < rows {
+                scan(self.row(cy + h, x0, x1), out);
+            }
+            if h > 0 {
+                let (y0, y1) = ((cy + 1).saturating_sub(h), (cy + h - 1).min(rows - 1));
+                for y in y0..=y1 {
+                    if cx >= h {
+                        scan(self.row(y, cx - h, cx - h), out);
+                    }
+                    if cx + h < cols {
+                        scan(self.row(y, cx + h, cx + h), out);
+                    }
+                }
+            }
+            // The nearest any cell outside the rings scanned can be (sides beyond the grid hold
+            // no cell).
+            let mut bound = f64::INFINITY;
+            if cx > h {
+                bound = bound.min(p[0] - (self.origin[0] + (cx - h) as f64 * side));
+            }
+            if cx + h + 1 < cols {
+                bound = bound.min(self.origin[0] + (cx + h + 1) as f64 * side - p[0]);
+            }
+            if cy > h {
+                bound = bound.min(p[1] - (self.origin[1] + (cy - h) as f64 * side));
+            }
+            if cy + h + 1 < rows {
+                bound = bound.min(self.origin[1] + (cy + h + 1) as f64 * side - p[1]);
+            }
+            if bound == f64::INFINITY {
+                return;
+            }
+            let b = (bound - slack).max(0.0);
+            if out.len() == n && out[n - 1].1 < b * b {
+                return;
+            }
+            h += 1;
+        }
+    }
+
     /// Whether some point lies at a squared distance below `radius`² from `p`.
     #[inline]
     pub fn any_within(&self, p: [f64; 2], radius: f64) -> bool {
@@ -541,6 +622,12 @@ mod tests {
                 found += usize::from(want.is_some());
                 missed += usize::from(want.is_none());
             }
+            // The n nearest, in order, ties by the lower index.
+            for n in [1, 2, 6, 25] {
+                let mut out = Vec::new();
+                grid.nearest_n(q, n, &mut out);
+                assert_eq!(out, all[..n], "query {q:?} n {n}");
+            }
             // Each of the nearest few: beaten exactly when it is not the first of `all`.
             for (k, &(item, d2)) in all.iter().take(4).enumerate() {
                 assert_eq!(grid.beaten(q, item, d2), k > 0, "query {q:?} item {item}");
@@ -568,11 +655,40 @@ mod tests {
             ];
             let (i, d2) = index.nearest(q).unwrap();
             let at = pts[i as usize];
+            let (mut tree_n, mut grid_n) = (Vec::new(), Vec::new());
+            index.nearest_n(q, 6, &mut tree_n);
+            grid.nearest_n(q, 6, &mut grid_n);
+            assert_eq!(grid_n, tree_n);
             assert_eq!(grid.nearest_within(q, 1e5), Some((i, d2, at)));
             assert_eq!(
                 grid.nearest_within(q, d2.sqrt() * 1.0001),
                 Some((i, d2, at))
             );
+        }
+    }
+
+    /// Two tight clusters far apart (most cells empty, the cells grown) and queries in them,
+    /// between them and beyond them.
+    #[test]
+    fn grid_nearest_n_on_clustered_points() {
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(13);
+        let mut pts: Vec<[f64; 2]> = (0..2000)
+            .map(|_| [rng.gen_range(0.0..10.0), rng.gen_range(0.0..10.0)])
+            .collect();
+        pts.extend((0..2000).map(|_| [rng.gen_range(9e3..9.01e3), rng.gen_range(5e3..5.01e3)]));
+        let grid = PointGrid::new(&pts);
+        let mut out = Vec::new();
+        for _ in 0..300 {
+            let q = match rng.gen_range(0..3) {
+                0 => pts[rng.gen_range(0..pts.len())],
+                1 => [rng.gen_range(-2e3..1.2e4), rng.gen_range(-2e3..8e3)],
+                _ => [rng.gen_range(4e3..5e3), rng.gen_range(2e3..3e3)],
+            };
+            let all = brute(&pts, q);
+            for n in [1, 6, 40] {
+                grid.nearest_n(q, n, &mut out);
+                assert_eq!(out, all[..n], "query {q:?} n {n}");
+            }
         }
     }
 
@@ -607,6 +723,17 @@ mod tests {
                     let got = grid.nearest_within(q, r).map(|g| (g.0, g.1));
                     assert_eq!(got, want, "{pts:?} {q:?} {r}");
                     assert_eq!(grid.any_within(q, r), want.is_some());
+                }
+                // Non-finite points are not in the grid; a non-finite query finds nothing.
+                let finite: Vec<(u32, f64)> = brute(pts, q)
+                    .into_iter()
+                    .filter(|a| pts[a.0 as usize].iter().all(|v| v.is_finite()))
+                    .filter(|_| q.iter().all(|v| v.is_finite()))
+                    .collect();
+                for n in [0, 1, 3, 50] {
+                    let mut out = vec![(9, 9.0)];
+                    grid.nearest_n(q, n, &mut out);
+                    assert_eq!(out, finite[..n.min(finite.len())], "{pts:?} {q:?} {n}");
                 }
             }
         }

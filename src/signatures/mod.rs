@@ -5,7 +5,9 @@
 //! indices, landmark first) and its key: per harmonic, a point of the unit disc or of the
 //! unit sphere ([`KeySpace`]).
 //!
-//! For each landmark the k nearest neighbours (kiddo k-d tree) are put in a canonical order
+//! For each landmark the k nearest neighbours (found through the survey's uniform grid,
+//! [`crate::spatial::PointGrid::nearest_n`]: of neighbours at exactly the same distance, the
+//! one of the lower index is the nearer) are put in a canonical order
 //! ([`neighbourhood`]), giving a polygon of k + 1 complex vertices. Its discrete Fourier
 //! transform (RustFFT, planned once) yields the ratio r_j = Z_j / Z_{−j}, unchanged by
 //! rotation, scale and translation ([`fourier`]); the key is r_j mapped into the unit disc or
@@ -598,8 +600,9 @@ impl ChunkBuilder<'_> {
         s.ratios.clear();
         s.sens.clear();
         s.polys.clear();
+        let grid = index.grid(points);
         for &c in chunk {
-            index.nearest_n(points[c as usize], pool + 1, &mut s.found);
+            grid.nearest_n(points[c as usize], pool + 1, &mut s.found);
             s.nbrs.clear();
             s.nbrs
                 .extend(s.found.iter().map(|x| x.0).filter(|&i| i != c).take(pool));

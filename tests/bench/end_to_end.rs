@@ -271,22 +271,40 @@ fn print_run(r: &Run) {
     );
 }
 
-/// Prints each stage's wall time as it ends, and the resident memory then (`/proc/self/status`).
+/// Prints each stage's wall time and the CPU time of the process meanwhile (user + system, all
+/// threads; steadier than wall time on a loaded machine) as it ends, and the resident memory
+/// then (`/proc/self/status`).
 struct Timed {
-    current: std::cell::RefCell<Option<(String, Instant)>>,
+    current: std::cell::RefCell<Option<(String, Instant, f64)>>,
+}
+
+/// CPU time of this process so far, user + system of all its threads, in seconds: fields 14
+/// and 15 of `/proc/self/stat`, in clock ticks of 1/100 s (Linux's USER_HZ; proc(5)).
+fn cpu_seconds() -> f64 {
+    let stat = std::fs::read_to_string("/proc/self/stat").unwrap_or_default();
+    // The fields after the command name (in parentheses, which may hold spaces).
+    let after = stat.rsplit_once(')').map_or("", |(_, rest)| rest);
+    let ticks: Vec<f64> = after
+        .split_whitespace()
+        .skip(11)
+        .take(2)
+        .filter_map(|v| v.parse().ok())
+        .collect();
+    ticks.iter().sum::<f64>() / 100.0
 }
 
 impl tiemark::progress::Progress for Timed {
     fn begin(&self, stage: &str, _total: Option<u64>) {
-        *self.current.borrow_mut() = Some((stage.to_string(), Instant::now()));
+        *self.current.borrow_mut() = Some((stage.to_string(), Instant::now(), cpu_seconds()));
     }
     fn advance(&self, _done: u64) {}
     fn message(&self, _message: &str) {}
     fn end(&self) {
-        if let Some((stage, t)) = self.current.borrow_mut().take() {
+        if let Some((stage, t, cpu)) = self.current.borrow_mut().take() {
             println!(
-                "  {stage}: {:.2} s (resident now {} MB, peak so far {} MB)",
+                "  {stage}: {:.2} s, CPU {:.2} s (resident now {} MB, peak so far {} MB)",
                 t.elapsed().as_secs_f64(),
+                cpu_seconds() - cpu,
                 status_mb("VmRSS"),
                 status_mb("VmHWM")
             );
