@@ -52,6 +52,7 @@
 
 mod csv;
 pub mod georef;
+mod gpkg_points;
 pub(crate) use open::{clear_gdal_error, take_gdal_failure};
 mod open;
 mod raster;

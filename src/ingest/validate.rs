@@ -36,17 +36,36 @@ const EXAMPLES: usize = 3;
 
 /// Rejects ids that occur more than once: counts the values that repeat and shows the
 /// [`EXAMPLES`] most frequent (ties in reading order) with their counts.
+///
+/// Ids that are all integers written the one way Rust and GDAL print them (feature ids,
+/// integer fields) are the same text exactly when they are the same number, so they are
+/// compared as numbers, sorted on the cores; any other ids through a hash map.
 fn check_ids(set: &LandmarkSet, id_field: Option<&str>) -> Result<(), IngestError> {
-    // Per value: (count, first position).
-    let mut seen: HashMap<&str, (usize, usize)> = HashMap::with_capacity(set.ids.len());
-    for (i, id) in set.ids.iter().enumerate() {
-        seen.entry(id.as_str()).or_insert((0, i)).0 += 1;
-    }
-    let mut repeated: Vec<(&str, usize, usize)> = seen
-        .into_iter()
-        .filter(|(_, (n, _))| *n > 1)
-        .map(|(id, (n, first))| (id, n, first))
-        .collect();
+    // Per repeated value: (value, count, first position).
+    let mut repeated: Vec<(&str, usize, usize)> = match integer_ids(&set.ids) {
+        Some(mut numbers) => {
+            use rayon::slice::ParallelSliceMut;
+            numbers.par_sort_unstable();
+            numbers
+                .chunk_by(|a, b| a.0 == b.0)
+                .filter(|run| run.len() > 1)
+                .map(|run| {
+                    let first = run[0].1 as usize;
+                    (set.ids[first].as_str(), run.len(), first)
+                })
+                .collect()
+        }
+        None => {
+            let mut seen: HashMap<&str, (usize, usize)> = HashMap::with_capacity(set.ids.len());
+            for (i, id) in set.ids.iter().enumerate() {
+                seen.entry(id.as_str()).or_insert((0, i)).0 += 1;
+            }
+            seen.into_iter()
+                .filter(|(_, (n, _))| *n > 1)
+                .map(|(id, (n, first))| (id, n, first))
+                .collect()
+        }
+    };
     if repeated.is_empty() {
         return Ok(());
     }
@@ -66,6 +85,30 @@ fn check_ids(set: &LandmarkSet, id_field: Option<&str>) -> Result<(), IngestErro
         repeated: repeated.len(),
         examples: examples.join(", "),
     })
+}
+
+/// Every id as (number, position) when all are integers in canonical decimal form (an
+/// optional minus, no leading zero, not "-0", within i64); else `None`.
+fn integer_ids(ids: &[String]) -> Option<Vec<(i64, u32)>> {
+    let number = |s: &str| -> Option<i64> {
+        let digits = s.strip_prefix('-').unwrap_or(s);
+        let canonical = !digits.is_empty()
+            && digits.bytes().all(|b| b.is_ascii_digit())
+            && (digits == "0" || !digits.starts_with('0'))
+            && s != "-0";
+        if canonical {
+            s.parse().ok()
+        } else {
+            None
+        }
+    };
+    if ids.len() > u32::MAX as usize {
+        return None;
+    }
+    ids.iter()
+        .enumerate()
+        .map(|(i, s)| number(s).map(|v| (v, i as u32)))
+        .collect()
 }
 
 /// Rejects the first landmark (in reading order) outside the coordinate range. (The reader
@@ -180,6 +223,56 @@ mod tests {
             skipped: Default::default(),
             raster: None,
         }
+    }
+
+    fn with_ids(ids: &[&str]) -> LandmarkSet {
+        let mut s = set((0..ids.len()).map(|i| [i as f64, (i * i) as f64]).collect());
+        s.ids = ids.iter().map(|v| v.to_string()).collect();
+        s
+    }
+
+    /// Repeated ids: the same message whether the ids are compared as numbers or as text,
+    /// most frequent first, ties in reading order; numbers only when written canonically.
+    #[test]
+    fn repeated_ids_are_named_alike_as_numbers_and_as_text() {
+        let numbers = ["7", "-3", "12", "7", "0", "12", "7", "-3", "5"];
+        let texts = ["g", "c", "b", "g", "a", "b", "g", "c", "e"];
+        let message = |ids: &[&str]| match check_ids(&with_ids(ids), Some("id")) {
+            Err(IngestError::DuplicateIds {
+                repeated, examples, ..
+            }) => (repeated, examples),
+            other => panic!("repeats not found: {other:?}"),
+        };
+        assert!(integer_ids(&with_ids(&numbers).ids).is_some());
+        assert!(integer_ids(&with_ids(&texts).ids).is_none());
+        let (n, shown) = message(&numbers);
+        assert_eq!(
+            (n, shown.as_str()),
+            (3, "'7' 3 times, '-3' 2 times, '12' 2 times")
+        );
+        let (n, shown) = message(&texts);
+        assert_eq!(
+            (n, shown.as_str()),
+            (3, "'g' 3 times, 'c' 2 times, 'b' 2 times")
+        );
+        // "07" and "7", "-0" and "0", "+5" and "5" are different ids: compared as text.
+        for ids in [["07", "7"], ["-0", "0"], ["+5", "5"], ["00", "0"]] {
+            assert!(integer_ids(&with_ids(&ids).ids).is_none(), "{ids:?}");
+            assert!(check_ids(&with_ids(&ids), None).is_ok(), "{ids:?}");
+        }
+        // Beyond i64: text.
+        assert!(integer_ids(&with_ids(&["9223372036854775808"]).ids).is_none());
+        assert!(check_ids(
+            &with_ids(&["-9223372036854775808", "9223372036854775807"]),
+            None
+        )
+        .is_ok());
+        // Four repeated values: three shown, then an ellipsis.
+        let (n, shown) = message(&["1", "1", "2", "2", "3", "3", "4", "4"]);
+        assert_eq!(
+            (n, shown.as_str()),
+            (4, "'1' 2 times, '2' 2 times, '3' 2 times, …")
+        );
     }
 
     /// Shared positions are counted once per extra landmark and the earliest pair in reading
