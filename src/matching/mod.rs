@@ -488,7 +488,11 @@ mod tests {
             }
         );
         let text = e.in_survey("the reference (a.gpkg)").to_string();
-        for part in ["the reference (a.gpkg)", "5000000000", "signatures.leave_out"] {
+        for part in [
+            "the reference (a.gpkg)",
+            "5000000000",
+            "signatures.leave_out",
+        ] {
             assert!(text.contains(part), "{text}");
         }
     }

@@ -69,7 +69,10 @@ impl<const K: usize> KeyTree<K> {
     /// # Panics
     /// When there are more than `u32::MAX` keys (the caller refuses those first).
     pub fn new(keys: &[[f64; K]]) -> Self {
-        assert!(keys.len() <= u32::MAX as usize, "too many keys for u32 indices");
+        assert!(
+            keys.len() <= u32::MAX as usize,
+            "too many keys for u32 indices"
+        );
         let n = keys.len();
         let mut levels = 0u32;
         while n.div_ceil(1 << levels) > LEAF {
@@ -392,7 +395,10 @@ mod tests {
         let same = vec![[0.1, 0.2, 0.3, 0.4, 0.5, 0.6]; 50_000];
         let tree = KeyTree::new(&same);
         tree.nearest(&[0.0; 6], 5, &mut best);
-        assert_eq!(best.iter().map(|b| b.1).collect::<Vec<_>>(), [0, 1, 2, 3, 4]);
+        assert_eq!(
+            best.iter().map(|b| b.1).collect::<Vec<_>>(),
+            [0, 1, 2, 3, 4]
+        );
         assert!(best.iter().all(|b| b.0 == brute(&same, &[0.0; 6], 1)[0].0));
         let few: Vec<[f64; 4]> = (0..40).map(|i| [i as f64 % 7.0, 0.0, 1.0, -1.0]).collect();
         agrees(&few, &[[2.2, 0.1, 1.0, -1.0], [0.0; 4]], &[39, 40, 41, 64]);
