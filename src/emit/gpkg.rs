@@ -372,20 +372,142 @@ impl Shape {
     }
 }
 
-/// A field's value in one feature.
+/// A field's value in one feature (or a geometry blob).
 #[derive(Clone, Copy, Debug)]
 enum Value<'a> {
     Text(&'a str),
     Real(f64),
+    Blob(&'a [u8]),
 }
 
-impl rusqlite::ToSql for Value<'_> {
-    fn to_sql(&self) -> rusqlite::Result<rusqlite::types::ToSqlOutput<'_>> {
-        use rusqlite::types::{ToSqlOutput, ValueRef};
-        Ok(match self {
-            Value::Text(s) => ToSqlOutput::Borrowed(ValueRef::Text(s.as_bytes())),
-            Value::Real(v) => ToSqlOutput::Borrowed(ValueRef::Real(*v)),
-        })
+/// A prepared `INSERT` whose text and blob values are bound where they lie
+/// (`SQLITE_STATIC`), not copied: rusqlite binds them as `SQLITE_TRANSIENT`, a copy each, and
+/// every copy is an allocation under SQLite's global memory-statistics mutex. For the three
+/// layers of a million control points that was some six million allocations on the writer's
+/// thread. [`Insert::execute`] binds, steps, resets and clears the bindings in one call, so
+/// that SQLite never holds a pointer to the values once it returns.
+struct Insert<'c> {
+    stmt: *mut rusqlite::ffi::sqlite3_stmt,
+    db: *mut rusqlite::ffi::sqlite3,
+    /// The connection the statement belongs to outlives it.
+    _conn: std::marker::PhantomData<&'c rusqlite::Connection>,
+}
+
+impl<'c> Insert<'c> {
+    /// Prepares `sql` on `conn`.
+    #[allow(unsafe_code)]
+    fn prepare(conn: &'c rusqlite::Connection, sql: &str) -> rusqlite::Result<Insert<'c>> {
+        // SAFETY: the handle of a live connection, used only while `conn` is borrowed; the
+        // statement text is passed with its length (no NUL needed); `stmt` is written by
+        // SQLite and checked below.
+        unsafe {
+            let db = conn.handle();
+            let mut stmt = std::ptr::null_mut();
+            let rc = rusqlite::ffi::sqlite3_prepare_v2(
+                db,
+                sql.as_ptr().cast(),
+                sql.len() as std::ffi::c_int,
+                &mut stmt,
+                std::ptr::null_mut(),
+            );
+            let insert = Insert {
+                stmt,
+                db,
+                _conn: std::marker::PhantomData,
+            };
+            insert.check(rc)?;
+            if stmt.is_null() {
+                return Err(rusqlite::Error::InvalidQuery);
+            }
+            Ok(insert)
+        }
+    }
+
+    /// `Ok` for SQLite's `SQLITE_OK`, else the connection's error.
+    #[allow(unsafe_code)]
+    fn check(&self, rc: std::ffi::c_int) -> rusqlite::Result<()> {
+        if rc == rusqlite::ffi::SQLITE_OK {
+            return Ok(());
+        }
+        // SAFETY: the connection is live; SQLite's message is copied at once.
+        let message = unsafe {
+            let m = rusqlite::ffi::sqlite3_errmsg(self.db);
+            (!m.is_null()).then(|| std::ffi::CStr::from_ptr(m).to_string_lossy().into_owned())
+        };
+        Err(rusqlite::Error::SqliteFailure(
+            rusqlite::ffi::Error::new(rc),
+            message,
+        ))
+    }
+
+    /// Binds `v` to parameter `i` (from 1), without a copy. Only [`Insert::execute`] calls it,
+    /// with values that stay in place until it has cleared the bindings.
+    #[allow(unsafe_code)]
+    fn bind(&mut self, i: usize, v: Value<'_>) -> rusqlite::Result<()> {
+        use rusqlite::ffi;
+        let i = i as std::ffi::c_int;
+        // SAFETY: a live statement; text and blob pointers with their lengths, bound as
+        // SQLITE_STATIC: `execute` keeps them borrowed until it has cleared the bindings.
+        let rc = unsafe {
+            match v {
+                Value::Text(t) => ffi::sqlite3_bind_text64(
+                    self.stmt,
+                    i,
+                    t.as_ptr().cast(),
+                    t.len() as ffi::sqlite3_uint64,
+                    ffi::SQLITE_STATIC(),
+                    ffi::SQLITE_UTF8 as std::ffi::c_uchar,
+                ),
+                Value::Blob(b) => ffi::sqlite3_bind_blob64(
+                    self.stmt,
+                    i,
+                    b.as_ptr().cast(),
+                    b.len() as ffi::sqlite3_uint64,
+                    ffi::SQLITE_STATIC(),
+                ),
+                Value::Real(r) => ffi::sqlite3_bind_double(self.stmt, i, r),
+            }
+        };
+        self.check(rc)
+    }
+
+    /// Binds `values` to the parameters 1, 2, … (one each), runs the statement once, then
+    /// resets it and clears its bindings, whatever happened.
+    #[allow(unsafe_code)]
+    fn execute(&mut self, values: &[Value<'_>]) -> rusqlite::Result<()> {
+        use rusqlite::ffi;
+        let bound = values
+            .iter()
+            .enumerate()
+            .try_for_each(|(i, v)| self.bind(i + 1, *v));
+        // SAFETY: a live statement whose parameters point into `values`, borrowed until this
+        // function returns; the bindings are cleared before it does.
+        let (step, reset) = unsafe {
+            let step = if bound.is_ok() {
+                ffi::sqlite3_step(self.stmt)
+            } else {
+                ffi::SQLITE_DONE
+            };
+            let reset = ffi::sqlite3_reset(self.stmt);
+            ffi::sqlite3_clear_bindings(self.stmt);
+            (step, reset)
+        };
+        bound?;
+        if step != ffi::SQLITE_DONE {
+            self.check(if reset != ffi::SQLITE_OK { reset } else { step })?;
+            return Err(rusqlite::Error::ExecuteReturnedResults);
+        }
+        Ok(())
+    }
+}
+
+impl Drop for Insert<'_> {
+    #[allow(unsafe_code)]
+    fn drop(&mut self) {
+        // SAFETY: the statement was prepared by `prepare` and is finalized once, here.
+        unsafe {
+            rusqlite::ffi::sqlite3_finalize(self.stmt);
+        }
     }
 }
 
@@ -487,7 +609,7 @@ fn fill_layer<'v, const K: usize>(
         push_marks(&mut text, rows, width);
         text
     };
-    let mut full = conn.prepare(&statement(ROWS_PER_STATEMENT)).map_err(&e)?;
+    let mut full = Insert::prepare(conn, &statement(ROWS_PER_STATEMENT)).map_err(&e)?;
     let mut boxes: Vec<(i64, [f64; 4])> = Vec::with_capacity(n);
     for start in (0..n).step_by(BLOCK) {
         let end = (start + BLOCK).min(n);
@@ -518,6 +640,7 @@ fn fill_layer<'v, const K: usize>(
             .collect();
         for piece in &pieces {
             let (bytes, ends) = (&piece.bytes, &piece.ends);
+            let mut scratch: Vec<Value> = Vec::with_capacity(ROWS_PER_STATEMENT * width);
             let rows = ends.len() - 1;
             for group in (0..rows).step_by(ROWS_PER_STATEMENT) {
                 let count = ROWS_PER_STATEMENT.min(rows - group);
@@ -525,19 +648,15 @@ fn fill_layer<'v, const K: usize>(
                 let st = if count == ROWS_PER_STATEMENT {
                     &mut full
                 } else {
-                    partial = conn.prepare(&statement(count)).map_err(&e)?;
+                    partial = Insert::prepare(conn, &statement(count)).map_err(&e)?;
                     &mut partial
                 };
-                for j in 0..count {
-                    let k = group + j;
-                    let base = j * width;
-                    st.raw_bind_parameter(base + 1, &bytes[ends[k]..ends[k + 1]])
-                        .map_err(&e)?;
-                    for (f, v) in piece.values[k].iter().enumerate() {
-                        st.raw_bind_parameter(base + 2 + f, v).map_err(&e)?;
-                    }
+                scratch.clear();
+                for k in group..group + count {
+                    scratch.push(Value::Blob(&bytes[ends[k]..ends[k + 1]]));
+                    scratch.extend_from_slice(&piece.values[k]);
                 }
-                st.raw_execute().map_err(&e)?;
+                st.execute(&scratch).map_err(&e)?;
             }
             boxes.extend_from_slice(&piece.boxes);
             done(boxes.len());
