@@ -258,12 +258,30 @@ fn candidates_k<const K: usize>(
     for (i, &t) in listed.iter().enumerate() {
         place[t as usize] = i as u32;
     }
-    out.sort_by(|a, b| {
-        a.score
-            .total_cmp(&b.score)
-            .then_with(|| place[a.target as usize].cmp(&place[b.target as usize]))
-    });
-    Ok(out)
+    // Sorted as keys on the cores: (the score's bits in `f64::total_cmp`'s order, the place,
+    // the position in `out`, which makes the unstable sort give the stable order), then
+    // gathered: 0.19-0.21 s against 0.26-0.36 s for the stable sort on the 3M candidates of
+    // the 1M pair. More candidates than a u32 numbers take the stable sort.
+    if u32::try_from(out.len()).is_err() {
+        out.sort_by(|a, b| {
+            a.score
+                .total_cmp(&b.score)
+                .then_with(|| place[a.target as usize].cmp(&place[b.target as usize]))
+        });
+        return Ok(out);
+    }
+    let mut keys: Vec<(u64, u32, u32)> = out
+        .iter()
+        .zip(0u32..)
+        .map(|(c, i)| {
+            let b = c.score.to_bits();
+            let ordered = if b >> 63 == 1 { !b } else { b | (1 << 63) };
+            (ordered, place[c.target as usize], i)
+        })
+        .collect();
+    drop(place);
+    keys.par_sort_unstable();
+    Ok(keys.into_iter().map(|k| out[k.2 as usize]).collect())
 }
 
 #[cfg(test)]
