@@ -74,6 +74,27 @@ pub fn coordinate_decimals(geographic: bool) -> usize {
 pub const HEADER: &str =
     "reference_id,target_id,reference_x,reference_y,target_x,target_y,residual_m,residual_dx_m,residual_dy_m";
 
+/// The pairs in the order of their reference ids (byte order). Ids are unique in a survey, so
+/// the unstable sort gives the one order there is. Each pair is sorted with its id's first
+/// eight bytes as a number (zeros after a shorter id): two ids whose first bytes differ are in
+/// the order of those numbers, so the ids themselves are compared only where they agree (a
+/// fraction of the cache misses of comparing the strings every time).
+fn by_reference_id(pairs: &[crate::fit::Pair], ids: &[String]) -> Vec<crate::fit::Pair> {
+    let id_of = |p: &crate::fit::Pair| ids[p.reference as usize].as_bytes();
+    let mut keyed: Vec<(u64, &crate::fit::Pair)> = pairs
+        .iter()
+        .map(|p| {
+            let mut head = [0u8; 8];
+            let id = id_of(p);
+            let n = id.len().min(8);
+            head[..n].copy_from_slice(&id[..n]);
+            (u64::from_be_bytes(head), p)
+        })
+        .collect();
+    keyed.par_sort_unstable_by(|a, b| a.0.cmp(&b.0).then_with(|| id_of(a.1).cmp(id_of(b.1))));
+    keyed.into_iter().map(|(_, p)| *p).collect()
+}
+
 /// Writes `control-points.csv` (see the module doc of [`crate::emit`]).
 pub fn write_control_points(
     result: &MatchOutcome,
@@ -114,11 +135,7 @@ pub fn write_control_points(
         header.push_str(",correlation,refine_shift_m");
     }
     writeln!(w, "{header}").map_err(io_err(path))?;
-    let mut pairs = s.pairs.clone();
-    // Ids are unique in each survey, so the unstable sort gives the one order there is.
-    pairs.par_sort_unstable_by(|a, b| {
-        result.reference.ids[a.reference as usize].cmp(&result.reference.ids[b.reference as usize])
-    });
+    let pairs = by_reference_id(&s.pairs, &result.reference.ids);
     let row = |out: &mut String, p: &crate::fit::Pair| {
         let (ri, ti) = (p.reference as usize, p.target as usize);
         let r = result.reference.points[ri];
@@ -195,6 +212,63 @@ pub fn write_landmarks(set: &LandmarkSet, path: &Path) -> Result<(), EmitError> 
 #[cfg(test)]
 mod tests {
     use rand::{Rng, SeedableRng};
+
+    /// The keyed sort gives the byte order of the ids: ids sharing their first eight bytes or
+    /// more, ids that are prefixes of others, shorter than eight bytes, with multi-byte
+    /// characters, and numbers of several lengths.
+    #[test]
+    fn pairs_come_in_the_byte_order_of_their_reference_ids() {
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(33);
+        let stems = [
+            "building-",
+            "building-0",
+            "b",
+            "",
+            "é",
+            "éa",
+            "Z",
+            "12",
+            "123456789",
+        ];
+        let mut ids: Vec<String> = Vec::new();
+        for i in 0..3000 {
+            let stem = stems[i % stems.len()];
+            let id = match rng.gen_range(0..4) {
+                0 => format!("{stem}{}", rng.gen_range(0..100_000)),
+                1 => format!("{stem}{i}"),
+                2 => format!("{}{stem}", rng.gen_range(0..1000)),
+                _ => format!("{stem}{i:08}x"),
+            };
+            ids.push(id);
+        }
+        ids.sort();
+        ids.dedup();
+        // Shuffled pairs over the ids.
+        let mut pairs: Vec<crate::fit::Pair> = (0..ids.len() as u32)
+            .map(|i| crate::fit::Pair {
+                reference: i,
+                target: i * 7,
+                residual: i as f64,
+            })
+            .collect();
+        rand::seq::SliceRandom::shuffle(pairs.as_mut_slice(), &mut rng);
+        let mut want = pairs.clone();
+        want.sort_by(|a, b| ids[a.reference as usize].cmp(&ids[b.reference as usize]));
+        let got = super::by_reference_id(&pairs, &ids);
+        assert_eq!(got.len(), want.len());
+        assert!(got
+            .iter()
+            .zip(&want)
+            .all(|(g, w)| g.reference == w.reference));
+        // Some ids share their first eight bytes (else the full comparison went untested).
+        let shared = ids
+            .windows(2)
+            .filter(|w| {
+                w[0].len() >= 8 && w[1].len() >= 8 && w[0].as_bytes()[..8] == w[1].as_bytes()[..8]
+            })
+            .count();
+        assert!(shared > 100, "{shared}");
+    }
 
     /// `push_fixed` against the standard formatting (the reference it must equal) on random
     /// values of every magnitude and sign, exact ties, near-ties and the special values.
