@@ -519,11 +519,10 @@ const BLOCK: usize = 65_536;
 const PIECE: usize = 4_096;
 
 /// The rows `from..to` of a layer, ready to bind: their geometry blobs end to end (row k's
-/// is `bytes[ends[k]..ends[k + 1]]`), their boxes with their feature ids, their fields.
+/// is `bytes[ends[k]..ends[k + 1]]`), their fields.
 struct Piece<'v, const K: usize> {
     bytes: Vec<u8>,
     ends: Vec<usize>,
-    boxes: Vec<(i64, [f64; 4])>,
     values: Vec<[Value<'v>; K]>,
 }
 
@@ -595,96 +594,50 @@ fn fill_layer<'v, const K: usize>(
             .map_err(&e)?;
     }
 
-    let columns: String = spec
-        .fields
-        .iter()
-        .map(|(f, _)| format!(", \"{f}\""))
+    // The boxes first (a pass on the cores), so that the spatial index is packed, and its
+    // node blobs made, on another thread while SQLite's takes the rows: 0.26-0.29 s at
+    // 661,878 features that no longer wait on the rows' thread.
+    let boxes: Vec<(i64, [f64; 4])> = (0..n)
+        .into_par_iter()
+        .map(|i| (i as i64 + 1, shape(i).bbox()))
         .collect();
-    // No feature id: SQLite gives row i the id i + 1 itself (the table is empty and the rows
-    // go in in order), and so appends each at the end of the table's B-tree instead of
-    // looking its place up (a descent and a binary search each).
-    let width = K + 1;
-    let statement = |rows: usize| {
-        let mut text = format!("INSERT INTO \"{name}\" (\"{GEOMETRY_COLUMN}\"{columns}) VALUES ");
-        push_marks(&mut text, rows, width);
-        text
-    };
-    let mut full = Insert::prepare(conn, &statement(ROWS_PER_STATEMENT)).map_err(&e)?;
-    let mut boxes: Vec<(i64, [f64; 4])> = Vec::with_capacity(n);
-    for start in (0..n).step_by(BLOCK) {
-        let end = (start + BLOCK).min(n);
-        // Everything a row needs, looked up on the cores at once (the lookups wander over
-        // the surveys: a cache miss or two a row), so that SQLite's thread only reads on.
-        let pieces: Vec<Piece<'v, K>> = (start..end)
-            .step_by(PIECE)
-            .collect::<Vec<_>>()
-            .into_par_iter()
-            .map(|from| {
-                let to = (from + PIECE).min(end);
-                let mut piece = Piece {
-                    bytes: Vec::with_capacity((to - from) * 81),
-                    ends: Vec::with_capacity(to - from + 1),
-                    boxes: Vec::with_capacity(to - from),
-                    values: Vec::with_capacity(to - from),
-                };
-                piece.ends.push(0);
-                for i in from..to {
-                    let s = shape(i);
-                    s.push_blob(srs_id, &mut piece.bytes);
-                    piece.ends.push(piece.bytes.len());
-                    piece.boxes.push((i as i64 + 1, s.bbox()));
-                    piece.values.push(values(i));
-                }
-                piece
-            })
-            .collect();
-        for piece in &pieces {
-            let (bytes, ends) = (&piece.bytes, &piece.ends);
-            let mut scratch: Vec<Value> = Vec::with_capacity(ROWS_PER_STATEMENT * width);
-            let rows = ends.len() - 1;
-            for group in (0..rows).step_by(ROWS_PER_STATEMENT) {
-                let count = ROWS_PER_STATEMENT.min(rows - group);
-                let mut partial;
-                let st = if count == ROWS_PER_STATEMENT {
-                    &mut full
-                } else {
-                    partial = Insert::prepare(conn, &statement(count)).map_err(&e)?;
-                    &mut partial
-                };
-                scratch.clear();
-                for k in group..group + count {
-                    scratch.push(Value::Blob(&bytes[ends[k]..ends[k + 1]]));
-                    scratch.extend_from_slice(&piece.values[k]);
-                }
-                st.execute(&scratch).map_err(&e)?;
-            }
-            boxes.extend_from_slice(&piece.boxes);
-            done(boxes.len());
-        }
-    }
-    drop(full);
-
-    let tree = PackedTree::pack(&boxes, (node_bytes - 4) / CELL_BYTES);
+    let capacity = (node_bytes - 4) / CELL_BYTES;
+    let (index, inserted) = std::thread::scope(|scope| {
+        let packing = scope.spawn(|| {
+            let tree = PackedTree::pack(&boxes, capacity);
+            let blobs: Vec<(i64, Vec<u8>)> = tree
+                .nodes
+                .iter()
+                .enumerate()
+                .map(|(i, (node, cells))| (*node, tree.node_blob(i, cells, node_bytes)))
+                .collect();
+            // The leaf of each feature, by feature id (1..=n): SQLite numbers them so, as
+            // the features (and appends them as it goes).
+            debug_assert!(tree.rowids.iter().zip(1..).all(|(r, id)| r.0 == id));
+            let leaves: Vec<[i64; 1]> = tree.rowids.iter().map(|r| [r.1]).collect();
+            (blobs, tree.parents, leaves)
+        });
+        let rows = insert_features(conn, spec, n, shape, values, srs_id, done);
+        let index = packing.join().expect("packing the spatial index panicked");
+        (index, rows)
+    });
+    inserted.map_err(&e)?;
     {
+        let (blobs, parents, leaves) = index;
         let mut st = conn
             .prepare(&format!(
                 "INSERT OR REPLACE INTO \"{rtree}_node\" (nodeno, data) VALUES (?1, ?2)"
             ))
             .map_err(&e)?;
-        for (i, (node, cells)) in tree.nodes.iter().enumerate() {
-            let blob = tree.node_blob(i, cells, node_bytes);
+        for (node, blob) in &blobs {
             st.execute(rusqlite::params![node, blob]).map_err(&e)?;
         }
         insert_rows(
             conn,
             &format!("\"{rtree}_parent\" (nodeno, parentnode)"),
-            &tree.parents,
+            &parents,
         )
         .map_err(&e)?;
-        // The leaf of each feature, by feature id (1..=n): SQLite numbers them so, as the
-        // features (and appends them as it goes).
-        debug_assert!(tree.rowids.iter().zip(1..).all(|(r, id)| r.0 == id));
-        let leaves: Vec<[i64; 1]> = tree.rowids.iter().map(|r| [r.1]).collect();
         insert_rows(conn, &format!("\"{rtree}_rowid\" (nodeno)"), &leaves).map_err(&e)?;
     }
     // The ids SQLite gave are the feature ids (they are not if a table was not empty).
@@ -737,6 +690,86 @@ fn fill_layer<'v, const K: usize>(
         conn.execute_batch(statement).map_err(&e)?;
     }
     done(n);
+    Ok(())
+}
+
+/// Inserts rows `0..n` of layer `spec` (its triggers set aside by [`fill_layer`]) in that
+/// order, through one prepared multi-row statement; `done` is told how many are in.
+fn insert_features<'v, const K: usize>(
+    conn: &rusqlite::Connection,
+    spec: &LayerSpec,
+    n: usize,
+    shape: &(dyn Fn(usize) -> Shape + Sync),
+    values: &(dyn Fn(usize) -> [Value<'v>; K] + Sync),
+    srs_id: i32,
+    done: &mut dyn FnMut(usize),
+) -> rusqlite::Result<()> {
+    use rayon::prelude::*;
+    let name = spec.name;
+    let columns: String = spec
+        .fields
+        .iter()
+        .map(|(f, _)| format!(", \"{f}\""))
+        .collect();
+    // No feature id: SQLite gives row i the id i + 1 itself (the table is empty and the rows
+    // go in in order), and so appends each at the end of the table's B-tree instead of
+    // looking its place up (a descent and a binary search each).
+    let width = K + 1;
+    let statement = |rows: usize| {
+        let mut text = format!("INSERT INTO \"{name}\" (\"{GEOMETRY_COLUMN}\"{columns}) VALUES ");
+        push_marks(&mut text, rows, width);
+        text
+    };
+    let mut full = Insert::prepare(conn, &statement(ROWS_PER_STATEMENT))?;
+    for start in (0..n).step_by(BLOCK) {
+        let end = (start + BLOCK).min(n);
+        // Everything a row needs, looked up on the cores at once (the lookups wander over
+        // the surveys: a cache miss or two a row), so that SQLite's thread only reads on.
+        let pieces: Vec<Piece<'v, K>> = (start..end)
+            .step_by(PIECE)
+            .collect::<Vec<_>>()
+            .into_par_iter()
+            .map(|from| {
+                let to = (from + PIECE).min(end);
+                let mut piece = Piece {
+                    bytes: Vec::with_capacity((to - from) * 81),
+                    ends: Vec::with_capacity(to - from + 1),
+                    values: Vec::with_capacity(to - from),
+                };
+                piece.ends.push(0);
+                for i in from..to {
+                    shape(i).push_blob(srs_id, &mut piece.bytes);
+                    piece.ends.push(piece.bytes.len());
+                    piece.values.push(values(i));
+                }
+                piece
+            })
+            .collect();
+        let mut scratch: Vec<Value> = Vec::with_capacity(ROWS_PER_STATEMENT * width);
+        let mut written = start;
+        for piece in &pieces {
+            let (bytes, ends) = (&piece.bytes, &piece.ends);
+            let rows = ends.len() - 1;
+            for group in (0..rows).step_by(ROWS_PER_STATEMENT) {
+                let count = ROWS_PER_STATEMENT.min(rows - group);
+                let mut partial;
+                let st = if count == ROWS_PER_STATEMENT {
+                    &mut full
+                } else {
+                    partial = Insert::prepare(conn, &statement(count))?;
+                    &mut partial
+                };
+                scratch.clear();
+                for k in group..group + count {
+                    scratch.push(Value::Blob(&bytes[ends[k]..ends[k + 1]]));
+                    scratch.extend_from_slice(&piece.values[k]);
+                }
+                st.execute(&scratch)?;
+            }
+            written += rows;
+            done(written);
+        }
+    }
     Ok(())
 }
 
