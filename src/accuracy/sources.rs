@@ -94,7 +94,7 @@ pub fn holdout_split(n: usize, share: f64, seed: u64) -> Vec<usize> {
 /// pairs or all `from` at one place.
 pub fn leave_one_out<F>(n: usize, pair: F) -> Option<Vec<[f64; 2]>>
 where
-    F: Fn(usize) -> ([f64; 2], [f64; 2]),
+    F: Fn(usize) -> ([f64; 2], [f64; 2]) + Sync,
 {
     if n < 3 {
         return None;

@@ -125,7 +125,7 @@ impl TransformStatement {
         unit_scale: f64,
     ) -> Option<Self>
     where
-        F: Fn(usize) -> ([f64; 2], [f64; 2]),
+        F: Fn(usize) -> ([f64; 2], [f64; 2]) + Sync,
     {
         let fit = fit_similarity_indexed(n, &pair)?;
         let nf = n as f64;

@@ -134,11 +134,37 @@ pub struct SimilarityFit {
 /// assert!(fit.rmse < 1e-9);
 /// ```
 pub fn fit_similarity(from: &[[f64; 2]], to: &[[f64; 2]]) -> Option<SimilarityFit> {
-    fit_similarity_indexed(from.len().min(to.len()), |i| (from[i], to[i]))
+    fit_in_order(from.len().min(to.len()), |i| (from[i], to[i]))
 }
 
-/// As [`fit_similarity`], with the pairs given by an accessor (avoids copying large sets).
+/// Pairs from which [`fit_similarity_indexed`] first gathers them into one buffer.
+const GATHER_FROM: usize = 32_768;
+
+/// As [`fit_similarity`], with the pairs given by an accessor.
+///
+/// The fit reads every pair three times (the centroids, the sums, the residuals). From
+/// 32,768 pairs on, they are first gathered into one buffer on the cores of the current rayon
+/// pool, so that an accessor's scattered reads (control points look up both surveys) happen
+/// once and in parallel; the sums still run over the pairs in order on one thread, so the fit
+/// is bit for bit the same either way and with any number of threads.
 pub fn fit_similarity_indexed<F>(n: usize, pair: F) -> Option<SimilarityFit>
+where
+    F: Fn(usize) -> ([f64; 2], [f64; 2]) + Sync,
+{
+    use rayon::prelude::*;
+    if n >= GATHER_FROM {
+        let pairs: Vec<([f64; 2], [f64; 2])> = (0..n)
+            .into_par_iter()
+            .with_min_len(4096)
+            .map(&pair)
+            .collect();
+        return fit_in_order(n, |i| pairs[i]);
+    }
+    fit_in_order(n, pair)
+}
+
+/// The fit of [`fit_similarity_indexed`], reading `pair(i)` for i in order.
+fn fit_in_order<F>(n: usize, pair: F) -> Option<SimilarityFit>
 where
     F: Fn(usize) -> ([f64; 2], [f64; 2]),
 {
