@@ -494,8 +494,9 @@ impl Extent {
 pub fn morton_order(points: &[[f64; 2]]) -> Vec<u32> {
     let Extent { min: lo, max: hi } = Extent::of(points);
     let span = [(hi[0] - lo[0]).max(1e-300), (hi[1] - lo[1]).max(1e-300)];
+    use rayon::prelude::*;
     let mut keyed: Vec<(u64, u32)> = points
-        .iter()
+        .par_iter()
         .enumerate()
         .map(|(i, p)| {
             let qx = (((p[0] - lo[0]) / span[0]) * 65535.0) as u32;
@@ -503,8 +504,10 @@ pub fn morton_order(points: &[[f64; 2]]) -> Vec<u32> {
             (interleave(qx) | (interleave(qy) << 1), i as u32)
         })
         .collect();
-    keyed.sort_unstable();
-    keyed.into_iter().map(|(_, i)| i).collect()
+    // (code, index) pairs are distinct, so the unstable sort's order is the one order there
+    // is, on any number of threads.
+    keyed.par_sort_unstable();
+    keyed.into_par_iter().map(|(_, i)| i).collect()
 }
 
 fn interleave(v: u32) -> u64 {

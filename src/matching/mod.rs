@@ -157,7 +157,7 @@ fn key_order<const K: usize>(keys: &[[f64; K]]) -> Vec<u32> {
         }
     });
     let mut keyed: Vec<(u64, u32)> = keys
-        .iter()
+        .par_iter()
         .enumerate()
         .map(|(i, k)| {
             let q: [u64; K] =
@@ -171,8 +171,9 @@ fn key_order<const K: usize>(keys: &[[f64; K]]) -> Vec<u32> {
             (code, i as u32)
         })
         .collect();
-    keyed.sort_unstable();
-    keyed.into_iter().map(|(_, i)| i).collect()
+    // (code, index) pairs are distinct: one order, on any number of threads.
+    keyed.par_sort_unstable();
+    keyed.into_par_iter().map(|(_, i)| i).collect()
 }
 
 /// Target signatures one rayon task queries.
@@ -192,17 +193,20 @@ fn candidates_k<const K: usize>(
     }
     let (rkeys, _) = reference.keys.as_chunks::<K>();
     MatchingError::check_count(rkeys.len())?;
-    let tree = KeyTree::new(rkeys);
-    // The order equal scores come in: as if the queries ran in Morton order of the keys' first
-    // two coordinates, their candidates appended in that order, then stably sorted by score.
-    let listed = {
-        let first_two: Vec<[f64; 2]> = target.keys.chunks_exact(K).map(|k| [k[0], k[1]]).collect();
-        morton_order(&first_two)
-    };
-    // The order the queries run in: Morton order over all K coordinates, so that consecutive
-    // queries descend to the same leaves of the tree.
     let (tkeys, _) = target.keys.as_chunks::<K>();
-    let order = key_order(tkeys);
+    // The tree and the two orders at once (each is partly serial).
+    let (tree, (listed, order)) = rayon::join(
+        || KeyTree::new(rkeys),
+        || {
+            // The order equal scores come in: as if the queries ran in Morton order of the
+            // keys' first two coordinates, their candidates appended in that order, then
+            // stably sorted by score.
+            let first_two: Vec<[f64; 2]> = tkeys.iter().map(|k| [k[0], k[1]]).collect();
+            // The order the queries run in: Morton order over all K coordinates, so that
+            // consecutive queries descend to the same leaves of the tree.
+            (morton_order(&first_two), key_order(tkeys))
+        },
+    );
     // One query: its candidates appended to `out`, nearest first (equal distances by the
     // lower reference index); `found` is scratch.
     let query = |t: u32, key: &[f64; K], out: &mut Vec<Candidate>, found: &mut Vec<(f64, u32)>| {
