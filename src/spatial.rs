@@ -290,7 +290,7 @@ impl PointGrid {
             for (q, &item) in self.points[range.clone()].iter().zip(&self.items[range]) {
                 let d2 = dist2(*q, p);
                 if out.len() < n || d2 <= out[n - 1].1 {
-                    offer(out, n, item, d2);
+                    offer_nearest(out, n, item, d2);
                 }
             }
         };
@@ -401,9 +401,10 @@ impl PointGrid {
 }
 
 /// Puts (item, d2) into `best`, kept sorted by squared distance and then index and at most `n`
-/// long, unless `n` better ones are there already.
+/// long, unless `n` better ones are there already (the grid's nearest-n search here and the
+/// key tree's, `matching/tree.rs`).
 #[inline(always)]
-fn offer(best: &mut Vec<(u32, f64)>, n: usize, item: u32, d2: f64) {
+pub(crate) fn offer_nearest(best: &mut Vec<(u32, f64)>, n: usize, item: u32, d2: f64) {
     let before = |&(i, d): &(u32, f64)| d < d2 || (d == d2 && i < item);
     if best.len() == n {
         if best.last().is_some_and(before) {
@@ -517,6 +518,19 @@ fn interleave(v: u32) -> u64 {
     x = (x | (x << 2)) & 0x3333_3333;
     x = (x | (x << 1)) & 0x5555_5555;
     x
+}
+
+/// `v`'s bits as an unsigned key in [`f64::total_cmp`]'s order (-NaN, -inf, …, -0, +0, …,
+/// +inf, NaN): sorting the keys sorts the values, as integers (the positions' duplicate check,
+/// the candidates' sort by score).
+#[inline]
+pub fn total_order_bits(v: f64) -> u64 {
+    let b = v.to_bits();
+    if b >> 63 == 1 {
+        !b
+    } else {
+        b | (1 << 63)
+    }
 }
 
 /// Squared distance between two points, (Δx)² + (Δy)² as kiddo's `SquaredEuclidean` computes
@@ -708,6 +722,38 @@ mod tests {
 
     /// Two tight clusters far apart (most cells empty, the cells grown) and queries in them,
     /// between them and beyond them.
+    #[test]
+    fn total_order_bits_sort_as_total_cmp_does() {
+        let mut values = vec![
+            f64::NAN,
+            -f64::NAN,
+            f64::INFINITY,
+            f64::NEG_INFINITY,
+            0.0,
+            -0.0,
+            f64::MIN_POSITIVE,
+            -f64::MIN_POSITIVE,
+            5e-324,
+            -5e-324,
+            f64::MAX,
+            f64::MIN,
+            1.0,
+            -1.0,
+            1.0 + f64::EPSILON,
+            0.3,
+            -0.3,
+        ];
+        let mut by_key = values.clone();
+        values.sort_by(f64::total_cmp);
+        by_key.sort_by_key(|&v| total_order_bits(v));
+        let bits = |v: &[f64]| v.iter().map(|x| x.to_bits()).collect::<Vec<_>>();
+        assert_eq!(bits(&by_key), bits(&values));
+        // Distinct values, distinct keys.
+        let mut keys: Vec<u64> = values.iter().map(|&v| total_order_bits(v)).collect();
+        keys.dedup();
+        assert_eq!(keys.len(), values.len());
+    }
+
     #[test]
     fn grid_nearest_n_on_clustered_points() {
         let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(13);

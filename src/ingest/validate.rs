@@ -134,11 +134,8 @@ fn check_duplicates(set: &LandmarkSet) -> Result<(), IngestError> {
     let p = &set.points;
     // Sorted by position (in `f64::total_cmp`'s order, as integer keys; -0 counts as 0), then
     // by reading order: equal positions end up next to each other, earliest first.
-    let key = |v: f64| {
-        let bits = (v + 0.0).to_bits() as i64;
-        bits ^ (((bits >> 63) as u64) >> 1) as i64
-    };
-    let mut order: Vec<(i64, i64, usize)> = p
+    let key = |v: f64| crate::spatial::total_order_bits(v + 0.0);
+    let mut order: Vec<(u64, u64, usize)> = p
         .iter()
         .enumerate()
         .map(|(i, q)| (key(q[0]), key(q[1]), i))

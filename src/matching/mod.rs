@@ -209,10 +209,10 @@ fn candidates_k<const K: usize>(
     );
     // One query: its candidates appended to `out`, nearest first (equal distances by the
     // lower reference index); `found` is scratch.
-    let query = |t: u32, key: &[f64; K], out: &mut Vec<Candidate>, found: &mut Vec<(f64, u32)>| {
+    let query = |t: u32, key: &[f64; K], out: &mut Vec<Candidate>, found: &mut Vec<(u32, f64)>| {
         tree.nearest(key, fetch, found);
         let start = out.len();
-        out.extend(found.iter().map(|&(distance, r)| Candidate {
+        out.extend(found.iter().map(|&(r, distance)| Candidate {
             target: t,
             reference: r,
             score: distance.sqrt(),
@@ -278,8 +278,7 @@ fn candidates_k<const K: usize>(
         .iter()
         .zip(0u32..)
         .map(|(c, i)| {
-            let b = c.score.to_bits();
-            let ordered = if b >> 63 == 1 { !b } else { b | (1 << 63) };
+            let ordered = crate::spatial::total_order_bits(c.score);
             (ordered, place[c.target as usize], i)
         })
         .collect();

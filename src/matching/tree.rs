@@ -2,7 +2,7 @@
 //!
 //! **In:** the keys to index, `[f64; K]` each (the matching stage uses K = 2, 3, 4 and 6; any
 //! K ≥ 1 works), named by their place in the slice; then, query by query, a key and a count n.
-//! **Out:** per query, the n nearest keys as (squared distance, index), nearest first, exactly
+//! **Out:** per query, the n nearest keys as (index, squared distance), nearest first, exactly
 //! equal distances by the lower index first; all the keys, so ordered, when there are n or
 //! fewer.
 //!
@@ -104,9 +104,9 @@ impl<const K: usize> KeyTree<K> {
         }
     }
 
-    /// The `n` keys nearest to `query`, as (squared distance, index), into `best` (cleared
+    /// The `n` keys nearest to `query`, as (index, squared distance), into `best` (cleared
     /// first): nearest first, equal distances by the lower index first.
-    pub fn nearest(&self, query: &[f64; K], n: usize, best: &mut Vec<(f64, u32)>) {
+    pub fn nearest(&self, query: &[f64; K], n: usize, best: &mut Vec<(u32, f64)>) {
         best.clear();
         if n == 0 || self.index.is_empty() {
             return;
@@ -186,8 +186,8 @@ struct Search<'a, const K: usize> {
     tree: &'a KeyTree<K>,
     query: &'a [f64; K],
     n: usize,
-    /// The best so far, sorted by (distance, index), at most `n`.
-    best: &'a mut Vec<(f64, u32)>,
+    /// The best so far, sorted by distance and then index, at most `n`.
+    best: &'a mut Vec<(u32, f64)>,
     /// Per dimension, the rounded square of the gap between the query and the current cell
     /// (0 where the query lies within the cell's extent).
     gap: [f64; K],
@@ -199,7 +199,7 @@ impl<const K: usize> Search<'_, K> {
         if self.best.len() < self.n {
             f64::INFINITY
         } else {
-            self.best[self.n - 1].0
+            self.best[self.n - 1].1
         }
     }
 
@@ -252,27 +252,10 @@ impl<const K: usize> Search<'_, K> {
         let mut worst = self.worst();
         for (&s, &i) in dist.iter().zip(&tree.index[start..end]) {
             if s <= worst {
-                self.offer(s, i);
+                crate::spatial::offer_nearest(self.best, self.n, i, s);
                 worst = self.worst();
             }
         }
-    }
-
-    /// Puts (s, i) in the best list if it ranks among the first n by (distance, index).
-    fn offer(&mut self, s: f64, i: u32) {
-        let best = &mut *self.best;
-        if best.len() == self.n {
-            let (ws, wi) = best[self.n - 1];
-            if s == ws && i > wi {
-                return;
-            }
-            best.pop();
-        }
-        let mut at = best.len();
-        while at > 0 && (best[at - 1].0 > s || (best[at - 1].0 == s && best[at - 1].1 > i)) {
-            at -= 1;
-        }
-        best.insert(at, (s, i));
     }
 }
 
@@ -283,7 +266,7 @@ mod tests {
 
     /// The documented answer by brute force: every key's squared distance summed in dimension
     /// order, sorted by (distance, index), the first n.
-    fn brute<const K: usize>(keys: &[[f64; K]], q: &[f64; K], n: usize) -> Vec<(f64, u32)> {
+    fn brute<const K: usize>(keys: &[[f64; K]], q: &[f64; K], n: usize) -> Vec<(u32, f64)> {
         let mut all: Vec<(f64, u32)> = keys
             .iter()
             .enumerate()
@@ -297,7 +280,7 @@ mod tests {
             .collect();
         all.sort_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)));
         all.truncate(n);
-        all
+        all.into_iter().map(|(s, i)| (i, s)).collect()
     }
 
     /// Keys of a coarse grid (so that many are exactly equal, and many distances tie), a
@@ -327,8 +310,8 @@ mod tests {
                 tree.nearest(q, n, &mut best);
                 let want = brute(keys, q, n);
                 // Bit for bit: the same keys, in the same order, with the same distances.
-                let bits = |v: &[(f64, u32)]| -> Vec<(u64, u32)> {
-                    v.iter().map(|&(s, i)| (s.to_bits(), i)).collect()
+                let bits = |v: &[(u32, f64)]| -> Vec<(u32, u64)> {
+                    v.iter().map(|&(i, s)| (i, s.to_bits())).collect()
                 };
                 assert_eq!(bits(&best), bits(&want), "K {K}, n {n}, query {q:?}");
             }
@@ -377,17 +360,17 @@ mod tests {
         let tree = KeyTree::new(&keys);
         let mut best = Vec::new();
         tree.nearest(&[0.0, 0.0], 2, &mut best);
-        assert_eq!(best, vec![(1.0, 2), (1.0, 5)]);
+        assert_eq!(best, vec![(2, 1.0), (5, 1.0)]);
     }
 
     #[test]
     fn empty_single_and_identical_inputs_and_n_beyond_the_keys() {
-        let mut best = vec![(0.0, 0)];
+        let mut best = vec![(0, 0.0)];
         KeyTree::<6>::new(&[]).nearest(&[0.0; 6], 3, &mut best);
         assert!(best.is_empty());
         let tree = KeyTree::new(&[[0.5, -0.5, 0.25]]);
         tree.nearest(&[0.0; 3], 3, &mut best);
-        assert_eq!(best, vec![(0.5 * 0.5 + 0.5 * 0.5 + 0.25 * 0.25, 0)]);
+        assert_eq!(best, vec![(0, 0.5 * 0.5 + 0.5 * 0.5 + 0.25 * 0.25)]);
         tree.nearest(&[0.0; 3], 0, &mut best);
         assert!(best.is_empty());
         // 50 000 identical keys (an exactly repeated layout): every query gets the lowest
@@ -396,10 +379,10 @@ mod tests {
         let tree = KeyTree::new(&same);
         tree.nearest(&[0.0; 6], 5, &mut best);
         assert_eq!(
-            best.iter().map(|b| b.1).collect::<Vec<_>>(),
+            best.iter().map(|b| b.0).collect::<Vec<_>>(),
             [0, 1, 2, 3, 4]
         );
-        assert!(best.iter().all(|b| b.0 == brute(&same, &[0.0; 6], 1)[0].0));
+        assert!(best.iter().all(|b| b.1 == brute(&same, &[0.0; 6], 1)[0].1));
         let few: Vec<[f64; 4]> = (0..40).map(|i| [i as f64 % 7.0, 0.0, 1.0, -1.0]).collect();
         agrees(&few, &[[2.2, 0.1, 1.0, -1.0], [0.0; 4]], &[39, 40, 41, 64]);
         let tree = KeyTree::new(&few);
@@ -423,9 +406,9 @@ mod tests {
         for _ in 0..100 {
             let q: [f64; 3] = std::array::from_fn(|_| rng.gen_range(-1.0..1.0));
             tree.nearest(&q, 5, &mut best);
-            let want: Vec<(f64, u32)> = brute(&keys, &q, 2000)
+            let want: Vec<(u32, f64)> = brute(&keys, &q, 2000)
                 .into_iter()
-                .filter(|b| !b.0.is_nan())
+                .filter(|b| !b.1.is_nan())
                 .take(5)
                 .collect();
             assert_eq!(best, want);
