@@ -18,15 +18,15 @@
 //! - while one survey's signatures are computed, the chunk buffers of
 //!   [`crate::signatures::CHUNK_LANDMARKS`] landmarks (polygon vertices as complex numbers,
 //!   vertex indices, ratios);
-//! - matching: a copy of the reference keys, the kiddo key tree built on them (leaf points and
-//!   items, its construction index and stems), a copy of the target keys, their first two
+//! - matching: the key tree built on the reference keys (`matching/tree.rs`: while it is
+//!   built, each key with its index; then the keys by dimension and their indices), a copy of the target keys, their first two
 //!   coordinates and Morton order, and the candidates (`matching.candidates` per target
 //!   signature, [`Candidate`] each); sorting the candidates takes half their size again;
 //! - the robust fit: `fit.max_rounds` drawn pairs, the target's Morton order and the paired
 //!   landmarks.
 //!
 //! The peak is the largest of the five phases (reference signatures, target signatures,
-//! matching queries, candidate sort, fit). The surveys' points, their 2-D k-d trees and Morton
+//! matching queries, candidate sort, fit). The surveys' points, their grids and Morton
 //! orders exist before the check and are already out of `MemAvailable`; they are counted in
 //! [`MemoryEstimate::inputs_bytes`] for the record only.
 //!
@@ -129,8 +129,9 @@ pub fn estimate(
             .saturating_add(candidates_bytes)
             .saturating_add(fit_bytes),
     ];
-    // Points (16 bytes), 2-D tree (16 + 4 + 4 per point and its stems), Morton order (4).
-    let inputs_bytes = (nr + nt).saturating_mul(16 + 24 + 1 + 4);
+    // Points (16 bytes), their grid (a copy of the point and its u32 index, and at most four
+    // cells of a u32 start each per point), Morton order (4).
+    let inputs_bytes = (nr + nt).saturating_mul(16 + 20 + 16 + 4);
     MemoryEstimate {
         landmarks: [nr, nt],
         per_landmark,
@@ -287,7 +288,8 @@ mod tests {
         // candidates.
         let matching = e.signatures_bytes + e.key_tree_bytes + 7_500 * 84 + e.candidates_bytes;
         assert_eq!(e.peak_bytes, matching);
-        assert_eq!(e.inputs_bytes, 1500 * 45);
+        // Points 16, grid 20 + 16, Morton order 4 bytes per landmark.
+        assert_eq!(e.inputs_bytes, 1500 * 56);
     }
 
     #[test]

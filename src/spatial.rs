@@ -1,55 +1,41 @@
-//! Small spatial helpers shared by the stages: a k-d tree over points ([`PointIndex`]) with,
-//! built on first use, a uniform grid over the same points for searches within a short radius
-//! ([`PointGrid`]), a survey's points with their tree and Morton order ([`Survey`]), spatial
-//! ordering of queries, bounding boxes ([`Extent`]), the median spacing, and the UTM zone of a
-//! place ([`utm_zone_for`]). The k-d tree and the grid are checked against brute force in this
-//! file's tests.
+//! Small spatial helpers shared by the stages: a survey's spatial index ([`PointIndex`]: a
+//! uniform grid over its points, [`PointGrid`], for the nearest points to a place and for
+//! searches within a short radius), a survey's points with their index and Morton order
+//! ([`Survey`]), spatial ordering of queries, bounding boxes ([`Extent`]), the median spacing,
+//! and the UTM zone of a place ([`utm_zone_for`]). The grid is checked against brute force in
+//! this file's tests.
 //!
-//! kiddo's `SquaredEuclidean` metric returns *squared* distances; every function here says
-//! whether it takes or gives squared values.
+//! Distances are compared squared; every function here says whether it takes or gives squared
+//! values.
 
-use kiddo::{ImmutableKdTree, SquaredEuclidean};
-use std::num::NonZero;
-use std::sync::OnceLock;
-
-/// An immutable 2-D k-d tree whose items are indices into the slice it was built from, and the
-/// [`PointGrid`] of that slice once [`PointIndex::grid`] has been asked for it.
+/// The spatial index of a survey's points: their [`PointGrid`], built once, answering the
+/// nearest and the n nearest points to any place (items are indices into the slice it was
+/// built from; among points at exactly the same distance, the lower index counts as nearer).
 pub struct PointIndex {
-    tree: Option<ImmutableKdTree<f64, 2>>,
     len: usize,
-    grid: OnceLock<PointGrid>,
+    grid: PointGrid,
 }
 
 impl PointIndex {
-    /// Builds the tree. An empty slice gives an index that finds nothing.
+    /// Builds the index. An empty slice gives an index that finds nothing.
     ///
-    /// Returns `None` when kiddo refuses the input: its item indices are `u32`, so it takes at
-    /// most 4,294,967,295 points (kiddo 6.3's `ConstructionError`; repeated coordinates are
-    /// accepted). Callers report that as too many landmarks.
+    /// Returns `None` for more than 4,294,967,295 points (items are `u32`). Callers report
+    /// that as too many landmarks.
     pub fn new(points: &[[f64; 2]]) -> Option<Self> {
-        if points.is_empty() {
-            return Some(PointIndex {
-                tree: None,
-                len: 0,
-                grid: OnceLock::new(),
-            });
-        }
-        let tree = ImmutableKdTree::new_from_slice(points).ok()?;
+        u32::try_from(points.len()).ok()?;
         Some(PointIndex {
-            tree: Some(tree),
             len: points.len(),
-            grid: OnceLock::new(),
+            grid: PointGrid::new(points),
         })
     }
 
-    /// The uniform grid of `points`, which must be the slice this index was built from; built
-    /// on the first call (by one thread, the others wait), kept with the index after.
+    /// The uniform grid of `points`, which must be the slice this index was built from.
     ///
     /// # Panics
     /// When `points` does not have the length of the indexed slice.
     pub fn grid(&self, points: &[[f64; 2]]) -> &PointGrid {
         assert_eq!(points.len(), self.len, "not the points of this index");
-        self.grid.get_or_init(|| PointGrid::new(points))
+        &self.grid
     }
 
     /// Number of points indexed.
@@ -62,28 +48,19 @@ impl PointIndex {
         self.len == 0
     }
 
-    /// The nearest point: (index, squared distance).
+    /// The nearest point: (index, squared distance); `None` when nothing is indexed or `p` is
+    /// not finite.
     #[inline]
     pub fn nearest(&self, p: [f64; 2]) -> Option<(u32, f64)> {
-        let tree = self.tree.as_ref()?;
-        let r = tree
-            .query(&p)
-            .nearest_one::<SquaredEuclidean<f64>>()
-            .execute();
-        Some((r.item, r.distance))
+        let mut out = Vec::with_capacity(1);
+        self.grid.nearest_n(p, 1, &mut out);
+        out.first().copied()
     }
 
-    /// The `n` nearest points, nearest first, appended to `out` as (index, squared distance).
+    /// The `n` nearest points, nearest first, written to `out` as (index, squared distance)
+    /// ([`PointGrid::nearest_n`]).
     pub fn nearest_n(&self, p: [f64; 2], n: usize, out: &mut Vec<(u32, f64)>) {
-        out.clear();
-        let (Some(tree), Some(n)) = (self.tree.as_ref(), NonZero::new(n)) else {
-            return;
-        };
-        let found = tree
-            .query(&p)
-            .nearest_n::<SquaredEuclidean<f64>>(n)
-            .execute();
-        out.extend(found.into_iter().map(|r| (r.item, r.distance)));
+        self.grid.nearest_n(p, n, out);
     }
 }
 
@@ -314,27 +291,41 @@ impl PointGrid {
                 scan(self.row(cy + k, x0, x1), out);
             }
         }
+        // How far p lies outside the grid's span on each axis (0 within it): a cell beyond the
+        // rings on one side is at least that far off on the other axis.
+        let outside = |d: usize, count: usize| {
+            let lo = self.origin[d];
+            let hi = lo + count as f64 * side;
+            ((lo - p[d]).max(p[d] - hi) - slack).max(0.0)
+        };
+        let (out_x, out_y) = (outside(0, cols), outside(1, rows));
         loop {
-            // The nearest any cell outside the rings scanned can be (sides beyond the grid hold
-            // no cell).
-            let mut bound = f64::INFINITY;
+            // The nearest any cell outside the rings scanned can be, squared (sides beyond the
+            // grid hold no cell): per side, the gap to that side's first unscanned column or
+            // row, and p's distance outside the grid on the other axis.
+            let mut bound2 = f64::INFINITY;
+            let mut sides = 0;
+            let mut side_bound = |gap: f64, across: f64| {
+                let g = (gap - slack).max(0.0);
+                bound2 = bound2.min(g * g + across * across);
+                sides += 1;
+            };
             if cx > h {
-                bound = bound.min(p[0] - (self.origin[0] + (cx - h) as f64 * side));
+                side_bound(p[0] - (self.origin[0] + (cx - h) as f64 * side), out_y);
             }
             if cx + h + 1 < cols {
-                bound = bound.min(self.origin[0] + (cx + h + 1) as f64 * side - p[0]);
+                side_bound(self.origin[0] + (cx + h + 1) as f64 * side - p[0], out_y);
             }
             if cy > h {
-                bound = bound.min(p[1] - (self.origin[1] + (cy - h) as f64 * side));
+                side_bound(p[1] - (self.origin[1] + (cy - h) as f64 * side), out_x);
             }
             if cy + h + 1 < rows {
-                bound = bound.min(self.origin[1] + (cy + h + 1) as f64 * side - p[1]);
+                side_bound(self.origin[1] + (cy + h + 1) as f64 * side - p[1], out_x);
             }
-            if bound == f64::INFINITY {
+            if sides == 0 {
                 return;
             }
-            let b = (bound - slack).max(0.0);
-            if out.len() == n && out[n - 1].1 < b * b {
+            if out.len() == n && out[n - 1].1 < bound2 {
                 return;
             }
             // Ring h + 1: the cells at Chebyshev distance h + 1 from (cx, cy), within the grid.
@@ -691,27 +682,29 @@ mod tests {
         assert!(found > 1000 && missed > 1000, "{found} {missed}");
     }
 
-    /// The grid's squared distances are the k-d tree's, bit for bit, and so are its nearest
-    /// points wherever the nearest is unique.
+    /// In survey coordinates (UTM magnitudes): the index's nearest and n nearest, and the
+    /// grid's nearest within a radius, are brute force's, distances bit for bit, also for
+    /// queries beyond the points.
     #[test]
-    fn grid_gives_the_trees_distances() {
+    fn index_answers_are_brute_force_in_survey_coordinates() {
         let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(12);
         let pts: Vec<[f64; 2]> = (0..5000)
             .map(|_| [rng.gen_range(4.9e5..5.1e5), rng.gen_range(5.29e6..5.31e6)])
             .collect();
         let index = PointIndex::new(&pts).unwrap();
         let grid = index.grid(&pts);
+        let mut got = Vec::new();
         for _ in 0..2000 {
             let q = [
-                rng.gen_range(4.89e5..5.11e5),
-                rng.gen_range(5.289e6..5.311e6),
+                rng.gen_range(4.85e5..5.15e5),
+                rng.gen_range(5.285e6..5.315e6),
             ];
-            let (i, d2) = index.nearest(q).unwrap();
+            let all = brute(&pts, q);
+            let (i, d2) = all[0];
+            assert_eq!(index.nearest(q), Some((i, d2)));
+            index.nearest_n(q, 6, &mut got);
+            assert_eq!(got, all[..6]);
             let at = pts[i as usize];
-            let (mut tree_n, mut grid_n) = (Vec::new(), Vec::new());
-            index.nearest_n(q, 6, &mut tree_n);
-            grid.nearest_n(q, 6, &mut grid_n);
-            assert_eq!(grid_n, tree_n);
             assert_eq!(grid.nearest_within(q, 1e5), Some((i, d2, at)));
             assert_eq!(
                 grid.nearest_within(q, d2.sqrt() * 1.0001),
@@ -720,8 +713,7 @@ mod tests {
         }
     }
 
-    /// Two tight clusters far apart (most cells empty, the cells grown) and queries in them,
-    /// between them and beyond them.
+    /// The keys sort as `f64::total_cmp` does, over the special values and some plain ones.
     #[test]
     fn total_order_bits_sort_as_total_cmp_does() {
         let mut values = vec![
@@ -754,6 +746,8 @@ mod tests {
         assert_eq!(keys.len(), values.len());
     }
 
+    /// Two tight clusters far apart (most cells empty, the cells grown) and queries in them,
+    /// between them and beyond them.
     #[test]
     fn grid_nearest_n_on_clustered_points() {
         let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(13);
@@ -764,10 +758,12 @@ mod tests {
         let grid = PointGrid::new(&pts);
         let mut out = Vec::new();
         for _ in 0..300 {
-            let q = match rng.gen_range(0..3) {
+            let q = match rng.gen_range(0..4) {
                 0 => pts[rng.gen_range(0..pts.len())],
                 1 => [rng.gen_range(-2e3..1.2e4), rng.gen_range(-2e3..8e3)],
-                _ => [rng.gen_range(4e3..5e3), rng.gen_range(2e3..3e3)],
+                2 => [rng.gen_range(4e3..5e3), rng.gen_range(2e3..3e3)],
+                // Far outside the grid, beside it or off a corner.
+                _ => [rng.gen_range(-1e6..1e6), rng.gen_range(-1e6..1e6)],
             };
             let all = brute(&pts, q);
             for n in [1, 6, 40] {

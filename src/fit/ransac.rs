@@ -121,20 +121,24 @@ impl Sprt {
 
 struct Scorer<'a> {
     input: &'a RansacInput<'a>,
+    /// The reference landmarks' grid.
+    grid: &'a crate::spatial::PointGrid,
     sample: Vec<u32>,
+    /// The tolerance, and its square (`tolerance * tolerance`, the grid's radius test).
+    tolerance: f64,
     tol2: f64,
     scratch: Vec<(u32, f64)>,
     sprt: Sprt,
 }
 
 impl Scorer<'_> {
-    /// True when `t` lands within the tolerance of some reference landmark under `s`.
+    /// The reference landmark nearest to where `t` lands under `s`, if it lies within the
+    /// tolerance (squared distance below `tol2`; of equally near ones, the lowest index).
     #[inline]
     fn hits(&self, s: &Similarity, t: u32) -> Option<u32> {
-        self.input
-            .reference_index
-            .nearest(s.apply(self.input.target[t as usize]))
-            .and_then(|(r, d2)| (d2 < self.tol2).then_some(r))
+        self.grid
+            .nearest_within(s.apply(self.input.target[t as usize]), self.tolerance)
+            .map(|(r, _, _)| r)
     }
 
     /// The local pre-test (SPRT) around target landmark `t0` on its [`LOCAL_RING`] nearest
@@ -280,7 +284,9 @@ pub fn ransac(input: &RansacInput, params: &RansacParams) -> RansacOutcome {
     rand::seq::SliceRandom::shuffle(sample.as_mut_slice(), &mut rng);
     let mut scorer = Scorer {
         input,
+        grid: input.reference_index.grid(input.reference),
         sample,
+        tolerance: params.tolerance,
         tol2: params.tolerance * params.tolerance,
         scratch: Vec::new(),
         sprt: Sprt::new(params.chance_rate),
