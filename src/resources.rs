@@ -106,8 +106,11 @@ pub fn estimate(
     let candidates_bytes = st
         .saturating_mul(matching.candidates as u64)
         .saturating_mul(size_of::<Candidate>() as u64);
-    // kiddo's ImmutableKdTree: per item its point and u32 item, a u32 construction index, and
-    // stems of one f64 per 32-item leaf (rounded up to a power of two: at most 0.5 byte per item).
+    // The key tree (matching/tree.rs) at the end of its build: each key with its u32 index as
+    // the build moved them (8·dims + 8 bytes with padding) beside the keys laid out by
+    // dimension (8·dims); its splits and leaf starts, one each per 16 keys, under half a byte
+    // per key. (Its 4-byte index per key is not counted: within the estimate's measured
+    // margin, module doc.)
     let key_copy = sr.saturating_mul(8 * dims);
     let tree = sr.saturating_mul(8 * dims + 4 + 4) + sr / 2;
     let key_tree_bytes = key_copy.saturating_add(tree);

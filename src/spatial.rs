@@ -70,9 +70,9 @@ impl PointIndex {
 /// the radius reaches; it pays where the radius spans few cells (a fraction of the spacing up
 /// to a few spacings) and the queries come in spatial order.
 ///
-/// Squared distances are computed as the k-d tree computes them, (Δx)² + (Δy)², so that both
-/// give the same value bit for bit. Among points at exactly the same distance, the one of the
-/// lowest index counts as the nearer.
+/// Squared distances are computed by [`dist2`], (Δx)² + (Δy)², as every other search of the
+/// stages computes them (the same value bit for bit). Among points at exactly the same
+/// distance, the one of the lowest index counts as the nearer.
 pub struct PointGrid {
     /// The south-west corner of cell (0, 0).
     origin: [f64; 2],
@@ -413,12 +413,12 @@ pub(crate) fn offer_nearest(best: &mut Vec<(u32, f64)>, n: usize, item: u32, d2:
     best[at] = (item, d2);
 }
 
-/// One survey's landmarks in the working frame with what every stage reuses: their k-d tree
-/// and their Morton order (computed once per run).
+/// One survey's landmarks in the working frame with what every stage reuses: their spatial
+/// index and their Morton order (computed once per run).
 pub struct Survey<'a> {
     /// Positions, working frame.
     pub points: &'a [[f64; 2]],
-    /// k-d tree of `points`.
+    /// Spatial index (grid) of `points`.
     pub index: &'a PointIndex,
     /// Indices of `points` in Morton order ([`morton_order`]).
     pub order: &'a [u32],
@@ -482,7 +482,7 @@ impl Extent {
 }
 
 /// Indices of `points` in Morton (Z-curve) order, so that consecutive queries touch nearby
-/// parts of a k-d tree (several times faster on large sets than random order).
+/// parts of an index (several times faster on large sets than random order).
 pub fn morton_order(points: &[[f64; 2]]) -> Vec<u32> {
     let Extent { min: lo, max: hi } = Extent::of(points);
     let span = [(hi[0] - lo[0]).max(1e-300), (hi[1] - lo[1]).max(1e-300)];
@@ -524,8 +524,8 @@ pub fn total_order_bits(v: f64) -> u64 {
     }
 }
 
-/// Squared distance between two points, (Δx)² + (Δy)² as kiddo's `SquaredEuclidean` computes
-/// it (the same value bit for bit).
+/// Squared distance between two points, (Δx)² + (Δy)², summed in that order: the one
+/// expression of every 2-D search here (the same value bit for bit).
 #[inline]
 pub fn dist2(a: [f64; 2], b: [f64; 2]) -> f64 {
     (a[0] - b[0]).powi(2) + (a[1] - b[1]).powi(2)

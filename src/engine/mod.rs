@@ -57,7 +57,7 @@ pub enum Error {
     /// The accuracy statement cannot be made as asked (a hold-out share too large).
     #[error(transparent)]
     Accuracy(#[from] accuracy::StatementError),
-    /// More landmarks than the k-d tree's 32-bit item indices hold.
+    /// More landmarks than the spatial index's 32-bit item indices hold.
     #[error("{path}: more than 4,294,967,295 landmarks, which the spatial index cannot hold; split the survey into tiles and match them one by one")]
     Degenerate {
         /// File.
@@ -344,7 +344,7 @@ pub fn solve_points(
     Ok((found.search, fit))
 }
 
-/// As [`solve_points`] on plain point arrays: builds their k-d trees and Morton orders first.
+/// As [`solve_points`] on plain point arrays: builds their spatial indexes and Morton orders first.
 /// The surveys are named "reference" and "target" in errors.
 pub fn solve_pair(
     config: &MatchConfig,

@@ -1,7 +1,7 @@
 //! Stage 5 — robust fit: from candidate correspondences to a verified similarity and its
 //! control points.
 //!
-//! **In:** both surveys' landmarks in the working frame with their k-d trees, their signatures,
+//! **In:** both surveys' landmarks in the working frame with their spatial indexes, their signatures,
 //! the candidates of the matching stage, and [`FitParams`].
 //! **Out:** either a [`Solution`] (transform, standard errors, control-point pairs with
 //! residuals, significance) or a [`Rejection`] saying why no consistent transform was
@@ -259,9 +259,9 @@ pub struct FitInput<'a> {
     pub reference: &'a [[f64; 2]],
     /// Target landmarks, working frame.
     pub target: &'a [[f64; 2]],
-    /// k-d tree of `reference`.
+    /// Spatial index of `reference`.
     pub reference_index: &'a PointIndex,
-    /// k-d tree of `target`.
+    /// Spatial index of `target`.
     pub target_index: &'a PointIndex,
     /// Indices of `target` in Morton order ([`crate::spatial::morton_order`]).
     pub target_order: &'a [u32],
@@ -486,7 +486,7 @@ pub fn robust_fit(
     // transform.
     let mut alternatives: Vec<Similarity> = ranked.iter().map(|r| r.1).collect();
     progress("guided matching on every landmark");
-    // Every landmark, visited in Morton order: k-d tree queries in spatial order are several
+    // Every landmark, visited in Morton order: grid queries in spatial order are several
     // times faster than in file order.
     let everyone = input.target_order;
     for (i, (_, start, h)) in ranked.into_iter().take(full_runs).enumerate() {
