@@ -17,7 +17,8 @@
 //! memory in order; every row goes in through one prepared multi-row statement with its
 //! values bound, its feature id left to SQLite (1..n in order: each row is appended at the end
 //! of the table's B-tree rather than looked up); the spatial index is packed from the
-//! features' bounding boxes and stored; the layer's extent and feature count are set as GDAL
+//! features' bounding boxes (made first, on the cores; packed on another thread while SQLite
+//! takes the rows) and stored; the layer's extent and feature count are set as GDAL
 //! would set them, and the triggers are put back. Feature-by-feature through GDAL (a
 //! `Feature`, an OGR geometry, GDAL's own encoding and statement work per row) was most of the
 //! cost of `control-points.gpkg`; see README, "Writing the outputs". Filling layers on other
