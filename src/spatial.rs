@@ -8,8 +8,8 @@
 //! Distances are compared squared; every function here says whether it takes or gives squared
 //! values.
 
-/// The spatial index of a survey's points: their [`PointGrid`], built once, answering the
-/// nearest and the n nearest points to any place (items are indices into the slice it was
+/// The spatial index of a survey's points: their [`PointGrid`], built once, answering the n
+/// nearest points to any place (items are indices into the slice it was
 /// built from; among points at exactly the same distance, the lower index counts as nearer).
 pub struct PointIndex {
     len: usize,
@@ -46,15 +46,6 @@ impl PointIndex {
     /// True when nothing is indexed.
     pub fn is_empty(&self) -> bool {
         self.len == 0
-    }
-
-    /// The nearest point: (index, squared distance); `None` when nothing is indexed or `p` is
-    /// not finite.
-    #[inline]
-    pub fn nearest(&self, p: [f64; 2]) -> Option<(u32, f64)> {
-        let mut out = Vec::with_capacity(1);
-        self.grid.nearest_n(p, 1, &mut out);
-        out.first().copied()
     }
 
     /// The `n` nearest points, nearest first, written to `out` as (index, squared distance)
@@ -701,7 +692,8 @@ mod tests {
             ];
             let all = brute(&pts, q);
             let (i, d2) = all[0];
-            assert_eq!(index.nearest(q), Some((i, d2)));
+            index.nearest_n(q, 1, &mut got);
+            assert_eq!(got, [(i, d2)]);
             index.nearest_n(q, 6, &mut got);
             assert_eq!(got, all[..6]);
             let at = pts[i as usize];
