@@ -4,7 +4,7 @@
 //!
 //! **In:** the landmark counts of the two surveys, the resolved [`SignatureParams`], the
 //! [`MatchingParams`] and [`FitParams`]; the memory available (`MemAvailable` in
-//! `/proc/meminfo`).
+//! `/proc/meminfo`, or the room a memory cgroup's limit leaves, where that is less).
 //! **Out:** a [`MemoryEstimate`] (the peak bytes stages 3-5 add to what is already allocated),
 //! or a [`ResourceError`] when that exceeds the memory available. Where `/proc/meminfo` cannot
 //! be read (not Linux), there is no check.
@@ -234,9 +234,99 @@ pub fn ensure_memory(
     Ok(e)
 }
 
-/// `MemAvailable` of `/proc/meminfo` in bytes; `None` where it cannot be read.
+/// `MemAvailable` of `/proc/meminfo` in bytes, or less where a memory cgroup of this process
+/// (a container's or a batch job's limit) leaves less (`cgroup_room`); `None` where
+/// `/proc/meminfo` cannot be read.
 pub fn available_memory() -> Option<u64> {
-    parse_mem_available(&std::fs::read_to_string("/proc/meminfo").ok()?)
+    let read = |path: &str| std::fs::read_to_string(path).ok();
+    let machine = parse_mem_available(&read("/proc/meminfo")?)?;
+    Some(cgroup_room(&read).map_or(machine, |room| room.min(machine)))
+}
+
+/// A limit at or above this is no limit (cgroup v1 reports "unlimited" as the largest page
+/// count times the page size, 9,223,372,036,854,771,712 on x86-64).
+const NO_LIMIT: u64 = 1 << 62;
+
+/// The memory the memory cgroups of this process leave it, read through `read` (a file's text
+/// by path): for the process's own cgroup and each of its ancestors that has a limit, the
+/// limit less what is charged to it and cannot simply be dropped (its usage less its inactive
+/// file cache, which the kernel reclaims before it refuses memory); the least of those. `None`
+/// where no limit is set or none can be read.
+///
+/// Both hierarchies are read: cgroup v2 (a `0::PATH` line in `/proc/self/cgroup`, files
+/// `memory.max`, `memory.current` and `memory.stat`'s `inactive_file`, under `/sys/fs/cgroup`
+/// or, on hybrid systems, `/sys/fs/cgroup/unified`) and cgroup v1 (the line naming the
+/// `memory` controller, files `memory.limit_in_bytes`, `memory.usage_in_bytes` and
+/// `memory.stat`'s `total_inactive_file`, under `/sys/fs/cgroup/memory`); the file names are
+/// those of the Linux kernel's documentation (`Documentation/admin-guide/cgroup-v2.rst` and
+/// `cgroup-v1/memory.rst`; from memory). Inside a container whose cgroup namespace shows its
+/// own cgroup as `/`, that is the mount's root.
+fn cgroup_room(read: &dyn Fn(&str) -> Option<String>) -> Option<u64> {
+    let own = read("/proc/self/cgroup")?;
+    let number = |text: &str| text.trim().parse::<u64>().ok();
+    let stat_value = |stat: &str, key: &str| {
+        stat.lines().find_map(|l| {
+            let mut parts = l.split_whitespace();
+            (parts.next() == Some(key))
+                .then(|| parts.next().and_then(number))
+                .flatten()
+        })
+    };
+    let mut least: Option<u64> = None;
+    for line in own.lines() {
+        let mut parts = line.splitn(3, ':');
+        let (Some(_), Some(controllers), Some(path)) = (parts.next(), parts.next(), parts.next())
+        else {
+            continue;
+        };
+        // (mounts, limit file, usage file, the stat's inactive file cache)
+        let (bases, files): (&[&str], [&str; 3]) = if controllers.is_empty() {
+            (
+                &["/sys/fs/cgroup", "/sys/fs/cgroup/unified"],
+                ["memory.max", "memory.current", "inactive_file"],
+            )
+        } else if controllers.split(',').any(|c| c == "memory") {
+            (
+                &["/sys/fs/cgroup/memory"],
+                [
+                    "memory.limit_in_bytes",
+                    "memory.usage_in_bytes",
+                    "total_inactive_file",
+                ],
+            )
+        } else {
+            continue;
+        };
+        // The cgroup's own directory, then each ancestor's up to the mount's root.
+        let mut dirs = vec![path.trim_end_matches('/').to_string()];
+        while let Some(cut) = dirs.last().and_then(|d| d.rfind('/')) {
+            let up = dirs
+                .last()
+                .map(|d| d[..cut].to_string())
+                .unwrap_or_default();
+            dirs.push(up);
+        }
+        dirs.dedup();
+        for base in bases {
+            for dir in &dirs {
+                let at = |file: &str| read(&format!("{base}{dir}/{file}"));
+                let Some(limit) = at(files[0]) else {
+                    continue;
+                };
+                let Some(limit) = number(&limit).filter(|&l| l < NO_LIMIT) else {
+                    continue; // "max", or v1's "unlimited"
+                };
+                let usage = at(files[1]).as_deref().and_then(number).unwrap_or(0);
+                let inactive = at("memory.stat")
+                    .as_deref()
+                    .and_then(|stat| stat_value(stat, files[2]))
+                    .unwrap_or(0);
+                let room = limit.saturating_sub(usage.saturating_sub(inactive));
+                least = Some(least.map_or(room, |l| l.min(room)));
+            }
+        }
+    }
+    least
 }
 
 /// The `MemAvailable:` line of a `/proc/meminfo` text, in bytes (the file says "kB" and
@@ -386,6 +476,92 @@ mod tests {
         assert!(check(&e, Some(e.peak_bytes), &params, &labels()).is_ok());
         assert!(check(&e, Some(e.peak_bytes - 1), &params, &labels()).is_err());
         assert!(check(&e, None, &params, &labels()).is_ok());
+    }
+
+    /// A file system of the given files for [`cgroup_room`].
+    fn files(list: &[(&str, &str)]) -> impl Fn(&str) -> Option<String> {
+        let map: std::collections::HashMap<String, String> = list
+            .iter()
+            .map(|(p, t)| (p.to_string(), t.to_string()))
+            .collect();
+        move |path: &str| map.get(path).cloned()
+    }
+
+    #[test]
+    fn cgroup_limits_are_read_from_either_hierarchy_and_every_ancestor() {
+        // cgroup v2, a job of a batch scheduler: 8 GiB on the job's parent, none on the job;
+        // 3 GiB charged, 1 GiB of it inactive file cache.
+        let gib = 1u64 << 30;
+        let v2 = files(&[
+            ("/proc/self/cgroup", "0::/jobs/job-17\n"),
+            ("/sys/fs/cgroup/jobs/job-17/memory.max", "max\n"),
+            ("/sys/fs/cgroup/jobs/job-17/memory.current", "2000\n"),
+            ("/sys/fs/cgroup/jobs/memory.max", &format!("{}\n", 8 * gib)),
+            (
+                "/sys/fs/cgroup/jobs/memory.current",
+                &format!("{}\n", 3 * gib),
+            ),
+            (
+                "/sys/fs/cgroup/jobs/memory.stat",
+                &format!("anon 99\nfile 7\ninactive_file {}\nactive_file 5\n", gib),
+            ),
+            ("/sys/fs/cgroup/memory.max", "max\n"),
+        ]);
+        assert_eq!(cgroup_room(&v2), Some(8 * gib - 2 * gib));
+        // A container (its cgroup namespace shows "/"): the mount's root is its cgroup.
+        let container = files(&[
+            ("/proc/self/cgroup", "0::/\n"),
+            ("/sys/fs/cgroup/memory.max", "4294967296\n"),
+            ("/sys/fs/cgroup/memory.current", "1073741824\n"),
+        ]);
+        assert_eq!(cgroup_room(&container), Some(3 * gib));
+        // cgroup v1 as on this project's development machine: unlimited everywhere.
+        let unlimited = files(&[
+            (
+                "/proc/self/cgroup",
+                "9:name=systemd:/\n4:memory:/svc/e2\n1:cpu:/\n0::/\n",
+            ),
+            (
+                "/sys/fs/cgroup/memory/svc/e2/memory.limit_in_bytes",
+                "9223372036854771712\n",
+            ),
+            (
+                "/sys/fs/cgroup/memory/svc/e2/memory.usage_in_bytes",
+                "11075543040\n",
+            ),
+            (
+                "/sys/fs/cgroup/memory/memory.limit_in_bytes",
+                "9223372036854771712\n",
+            ),
+        ]);
+        assert_eq!(cgroup_room(&unlimited), None);
+        // cgroup v1 with a limit on the process's own cgroup and a tighter room above it: the
+        // least room counts; the stat's key is total_inactive_file.
+        let v1 = files(&[
+            ("/proc/self/cgroup", "4:cpu,memory:/a/b\n"),
+            ("/sys/fs/cgroup/memory/a/b/memory.limit_in_bytes", "1000\n"),
+            ("/sys/fs/cgroup/memory/a/b/memory.usage_in_bytes", "400\n"),
+            (
+                "/sys/fs/cgroup/memory/a/b/memory.stat",
+                "cache 300\ninactive_file 999\ntotal_inactive_file 100\n",
+            ),
+            ("/sys/fs/cgroup/memory/a/memory.limit_in_bytes", "900\n"),
+            ("/sys/fs/cgroup/memory/a/memory.usage_in_bytes", "850\n"),
+        ]);
+        assert_eq!(cgroup_room(&v1), Some(50));
+        // More charged than the limit (it can happen briefly): no room, not an overflow.
+        let over = files(&[
+            ("/proc/self/cgroup", "0::/\n"),
+            ("/sys/fs/cgroup/memory.max", "100\n"),
+            ("/sys/fs/cgroup/memory.current", "250\n"),
+        ]);
+        assert_eq!(cgroup_room(&over), Some(0));
+        // Nothing readable, or no memory controller at all.
+        assert_eq!(cgroup_room(&files(&[])), None);
+        assert_eq!(
+            cgroup_room(&files(&[("/proc/self/cgroup", "3:cpuset:/\n")])),
+            None
+        );
     }
 
     #[test]
