@@ -512,7 +512,7 @@ impl Drop for Insert<'_> {
     }
 }
 
-/// Rows whose geometry blobs, boxes and fields are made on the cores at once (in fixed
+/// Rows whose geometry blobs and fields are made on the cores at once (in fixed
 /// pieces, so that they and their order never depend on the thread count) before they go
 /// into SQLite one by one.
 const BLOCK: usize = 65_536;

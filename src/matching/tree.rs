@@ -8,8 +8,9 @@
 //!
 //! The answer is exactly the brute-force one: the squared distance of a key is computed as
 //! Σ_d (q_d − k_d)² summed in dimension order, the same floating-point number a plain loop over
-//! the dimensions gives (kiddo's `SquaredEuclidean` sums the same way), and the search prunes
-//! a cell of the tree only when its lower bound is strictly above the n-th best distance so far.
+//! the dimensions gives (`spatial::dist2` sums the same way in two dimensions), and the search
+//! prunes a cell of the tree only when its lower bound is strictly above the n-th best distance
+//! so far.
 //! That bound (Arya and Mount's incremental distance to the cell) is kept per dimension, each
 //! term the rounded square of the rounded gap between the query and the cell's nearest split
 //! plane, and summed in dimension order too; rounding is monotone, so the bound never exceeds
