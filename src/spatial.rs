@@ -12,7 +12,6 @@
 /// nearest points to any place (items are indices into the slice it was
 /// built from; among points at exactly the same distance, the lower index counts as nearer).
 pub struct PointIndex {
-    len: usize,
     grid: PointGrid,
 }
 
@@ -24,28 +23,13 @@ impl PointIndex {
     pub fn new(points: &[[f64; 2]]) -> Option<Self> {
         u32::try_from(points.len()).ok()?;
         Some(PointIndex {
-            len: points.len(),
             grid: PointGrid::new(points),
         })
     }
 
-    /// The uniform grid of `points`, which must be the slice this index was built from.
-    ///
-    /// # Panics
-    /// When `points` does not have the length of the indexed slice.
-    pub fn grid(&self, points: &[[f64; 2]]) -> &PointGrid {
-        assert_eq!(points.len(), self.len, "not the points of this index");
+    /// The uniform grid of the points (it holds its own copy of them, by cell).
+    pub fn grid(&self) -> &PointGrid {
         &self.grid
-    }
-
-    /// Number of points indexed.
-    pub fn len(&self) -> usize {
-        self.len
-    }
-
-    /// True when nothing is indexed.
-    pub fn is_empty(&self) -> bool {
-        self.len == 0
     }
 
     /// The `n` nearest points, nearest first, written to `out` as (index, squared distance)
@@ -683,7 +667,7 @@ mod tests {
             .map(|_| [rng.gen_range(4.9e5..5.1e5), rng.gen_range(5.29e6..5.31e6)])
             .collect();
         let index = PointIndex::new(&pts).unwrap();
-        let grid = index.grid(&pts);
+        let grid = index.grid();
         let mut got = Vec::new();
         for _ in 0..2000 {
             let q = [

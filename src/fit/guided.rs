@@ -87,8 +87,8 @@ fn pair_up(
     let inv = s.inverse();
     let tol2 = tolerance * tolerance;
     let cov2 = coverage * coverage;
-    let reference = frames.reference_index.grid(frames.reference);
-    let target = frames.target_index.grid(frames.target);
+    let reference = frames.reference_index.grid();
+    let target = frames.target_index.grid();
     // Landmark `t` at `at`: its pair, if any, pushed to `pairs`; true when it is covered. The
     // nearest reference landmark matters only within the tolerance (a pair) or the coverage
     // (a trial), so the grids' searches within those radii give what the nearest overall

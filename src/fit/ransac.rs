@@ -284,7 +284,7 @@ pub fn ransac(input: &RansacInput, params: &RansacParams) -> RansacOutcome {
     rand::seq::SliceRandom::shuffle(sample.as_mut_slice(), &mut rng);
     let mut scorer = Scorer {
         input,
-        grid: input.reference_index.grid(input.reference),
+        grid: input.reference_index.grid(),
         sample,
         tolerance: params.tolerance,
         tol2: params.tolerance * params.tolerance,

@@ -600,7 +600,7 @@ impl ChunkBuilder<'_> {
         s.ratios.clear();
         s.sens.clear();
         s.polys.clear();
-        let grid = index.grid(points);
+        let grid = index.grid();
         for &c in chunk {
             grid.nearest_n(points[c as usize], pool + 1, &mut s.found);
             s.nbrs.clear();
